@@ -1,0 +1,1 @@
+"""bandwright's HTTP service and command line."""

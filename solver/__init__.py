@@ -1,0 +1,56 @@
+"""bandwright's planning library: spectrum, link physics and the carrier packer.
+
+Pure computation: no web, no database.  The public names are listed in ``__all__``.
+"""
+
+from solver.model import (
+    Amplifier,
+    AmplifierModel,
+    Block,
+    Carrier,
+    CarrierConfig,
+    Coding,
+    CurrentSetting,
+    Demand,
+    Exclusion,
+    Modulation,
+    Objective,
+    Plan,
+    PlanSummary,
+    Problem,
+    ProblemError,
+    SolveStats,
+    SolveStatus,
+    Transmitter,
+    Unserved,
+    UnservedReason,
+    Window,
+    format_code_rate,
+    parse_code_rate,
+)
+
+__all__ = [
+    "Amplifier",
+    "AmplifierModel",
+    "Block",
+    "Carrier",
+    "CarrierConfig",
+    "Coding",
+    "CurrentSetting",
+    "Demand",
+    "Exclusion",
+    "Modulation",
+    "Objective",
+    "Plan",
+    "PlanSummary",
+    "Problem",
+    "ProblemError",
+    "SolveStats",
+    "SolveStatus",
+    "Transmitter",
+    "Unserved",
+    "UnservedReason",
+    "Window",
+    "format_code_rate",
+    "parse_code_rate",
+]

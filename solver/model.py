@@ -1,0 +1,373 @@
+"""Domain objects shared by every part of the solver.
+
+All quantities are SI and carry their unit in the name: ``_hz``, ``_baud``, ``_bps``, ``_db``,
+``_dbhz``, ``_s``.  Every class is a frozen dataclass, so a problem or a plan can be hashed,
+cached and compared.  Validation of user input happens at the edge (the service's schemas and
+:func:`validate_problem`); the dataclasses themselves only hold values.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from enum import StrEnum
+from fractions import Fraction
+
+__all__ = [
+    "Amplifier",
+    "AmplifierModel",
+    "Block",
+    "Carrier",
+    "CarrierConfig",
+    "Coding",
+    "CurrentSetting",
+    "Demand",
+    "Exclusion",
+    "Modulation",
+    "Objective",
+    "Plan",
+    "PlanSummary",
+    "Problem",
+    "ProblemError",
+    "SolveStats",
+    "SolveStatus",
+    "Transmitter",
+    "Unserved",
+    "UnservedReason",
+    "Window",
+    "format_code_rate",
+    "parse_code_rate",
+]
+
+
+class ProblemError(ValueError):
+    """A problem description is not valid; ``field`` names the offending input."""
+
+    def __init__(self, field_name: str, message: str) -> None:
+        super().__init__(f"{field_name}: {message}")
+        self.field = field_name
+        self.message = message
+
+
+class Modulation(StrEnum):
+    """Modulation formats of the catalogue (Gray labelled, unit mean symbol energy)."""
+
+    BPSK = "BPSK"
+    QPSK = "QPSK"
+    PSK8 = "8PSK"
+    APSK16 = "16APSK"
+    APSK32 = "32APSK"
+    QAM16 = "16QAM"
+    QAM64 = "64QAM"
+    QAM256 = "256QAM"
+    PAM4 = "4PAM"
+    PAM8 = "8PAM"
+
+
+class AmplifierModel(StrEnum):
+    """Memoryless power-amplifier models."""
+
+    RAPP = "rapp"
+    SALEH = "saleh"
+
+
+class Window(StrEnum):
+    """Windows that may be applied to the truncated shaping filter."""
+
+    NONE = "none"
+    HANN = "hann"
+    HAMMING = "hamming"
+    BLACKMAN = "blackman"
+    KAISER = "kaiser"
+
+
+class Objective(StrEnum):
+    """What the packer optimises."""
+
+    MAX_THROUGHPUT = "max_throughput"
+    MIN_BANDWIDTH = "min_bandwidth"
+    MAX_MARGIN = "max_margin"
+
+
+class SolveStatus(StrEnum):
+    """Outcome of a solve, as the plan reports it."""
+
+    OPTIMAL = "optimal"
+    FEASIBLE = "feasible"
+    INFEASIBLE = "infeasible"
+
+
+class UnservedReason(StrEnum):
+    """Why a demand got no carrier."""
+
+    NO_LINK = "no_link"
+    NO_SPECTRUM = "no_spectrum"
+    NOT_ADMITTED = "not_admitted"
+
+
+CodeRate = Fraction | None
+"""A forward-error-correction code rate; ``None`` means uncoded."""
+
+
+def parse_code_rate(text: str) -> CodeRate:
+    """Parse ``"3/4"`` or ``"uncoded"`` into a code rate.
+
+    Examples
+    --------
+    >>> parse_code_rate("3/4")
+    Fraction(3, 4)
+    >>> parse_code_rate("uncoded") is None
+    True
+    """
+    cleaned = text.strip().lower()
+    if cleaned in {"uncoded", "none", "1", "1/1"}:
+        return None
+    try:
+        rate = Fraction(cleaned)
+    except (ValueError, ZeroDivisionError) as exc:
+        raise ProblemError(
+            "code_rate", f"{text!r} is not a fraction like '3/4' or 'uncoded'"
+        ) from exc
+    if not 0 < rate < 1:
+        raise ProblemError("code_rate", f"{text!r} must lie strictly between 0 and 1")
+    return rate
+
+
+def format_code_rate(rate: CodeRate) -> str:
+    """Format a code rate for the wire: ``"3/4"`` or ``"uncoded"``.
+
+    >>> format_code_rate(Fraction(9, 10))
+    '9/10'
+    """
+    return "uncoded" if rate is None else f"{rate.numerator}/{rate.denominator}"
+
+
+@dataclass(frozen=True)
+class Amplifier:
+    """A memoryless amplifier operated at an output back-off.
+
+    ``output_backoff_db`` is the ratio of saturated output power to mean output power.
+    ``smoothness`` is Rapp's p (ignored by the Saleh model, which uses its published fit).
+    """
+
+    model: AmplifierModel = AmplifierModel.RAPP
+    smoothness: float = 2.0
+    output_backoff_db: float = 6.0
+
+
+@dataclass(frozen=True)
+class Transmitter:
+    """Equipment parameters shared by every carrier of a plan."""
+
+    filter_span_symbols: int = 12
+    rolloffs: tuple[float, ...] = (0.05, 0.10, 0.15, 0.20, 0.25, 0.35)
+    window: Window = Window.NONE
+    amplifier: Amplifier | None = None
+
+
+@dataclass(frozen=True)
+class Coding:
+    """Forward-error-correction assumptions used for the coded thresholds.
+
+    ``block_length_bits`` is the code word length n (bits), ``target_block_error_rate`` the
+    code-word error probability, ``implementation_loss_db`` is added to every threshold,
+    ``framing_overhead`` is the fraction of symbols spent on headers and pilots, and
+    ``target_bit_error_rate`` applies to uncoded entries.
+    """
+
+    block_length_bits: int = 16200
+    target_block_error_rate: float = 1e-5
+    implementation_loss_db: float = 1.0
+    framing_overhead: float = 0.02
+    target_bit_error_rate: float = 1e-6
+
+
+@dataclass(frozen=True)
+class Exclusion:
+    """A part of the block that no carrier may use (for example a protected service)."""
+
+    start_hz: float
+    stop_hz: float
+    note: str = ""
+
+
+@dataclass(frozen=True)
+class Block:
+    """The licensed spectrum block.
+
+    Carriers are placed on a raster of ``raster_hz`` from ``start_hz``.  ``edge_leakage_limit_db``
+    is the leakage limit towards the block edges and exclusions; ``None`` means the plan's
+    ``leakage_limit_db`` applies there too.
+    """
+
+    start_hz: float
+    stop_hz: float
+    raster_hz: float = 1_000.0
+    exclusions: tuple[Exclusion, ...] = ()
+    edge_leakage_limit_db: float | None = None
+
+    @property
+    def width_hz(self) -> float:
+        return self.stop_hz - self.start_hz
+
+    @property
+    def usable_width_hz(self) -> float:
+        """Width less the exclusions (they are validated not to overlap)."""
+        return self.width_hz - sum(x.stop_hz - x.start_hz for x in self.exclusions)
+
+
+@dataclass(frozen=True)
+class CurrentSetting:
+    """How a demand is served today (for a replan)."""
+
+    center_hz: float
+    symbol_rate_baud: float
+    rolloff: float
+    modulation: Modulation
+    code_rate: CodeRate
+
+
+@dataclass(frozen=True)
+class Demand:
+    """One user's need.
+
+    Exactly one of ``cn0_dbhz`` (a power-limited link: Es/N0 falls as the symbol rate rises)
+    and ``esn0_db`` (a link whose Es/N0 is fixed) is given.  ``relative_level_db`` is the
+    carrier's power spectral density level relative to the others, used for interference.
+    ``modulations`` restricts the catalogue (empty: every modulation).
+    """
+
+    id: str
+    min_rate_bps: float
+    target_rate_bps: float
+    priority: int = 1
+    cn0_dbhz: float | None = None
+    esn0_db: float | None = None
+    margin_db: float = 3.0
+    modulations: tuple[Modulation, ...] = ()
+    relative_level_db: float = 0.0
+    pinned_center_hz: float | None = None
+    current: CurrentSetting | None = None
+
+
+@dataclass(frozen=True)
+class Problem:
+    """A complete planning request."""
+
+    block: Block
+    demands: tuple[Demand, ...]
+    name: str = "plan"
+    leakage_limit_db: float = 30.0
+    transmitter: Transmitter = field(default_factory=Transmitter)
+    coding: Coding = field(default_factory=Coding)
+    objective: Objective = Objective.MAX_THROUGHPUT
+    retune_penalty: float = 1.0
+    time_limit_s: float = 10.0
+    num_workers: int = 2
+    seed: int = 1
+
+    @property
+    def edge_limit_db(self) -> float:
+        limit = self.block.edge_leakage_limit_db
+        return self.leakage_limit_db if limit is None else limit
+
+
+@dataclass(frozen=True)
+class CarrierConfig:
+    """One feasible way to serve a demand, before placement."""
+
+    demand_id: str
+    modulation: Modulation
+    code_rate: CodeRate
+    rolloff: float
+    symbol_rate_baud: float
+    bits_per_symbol: int
+    allocated_bandwidth_hz: float
+    occupied_bandwidth_hz: float
+    guard_hz: float
+    edge_guard_hz: float
+    throughput_bps: float
+    esn0_db: float
+    required_esn0_db: float
+
+    @property
+    def margin_db(self) -> float:
+        return self.esn0_db - self.required_esn0_db
+
+
+@dataclass(frozen=True)
+class Carrier:
+    """A placed carrier of a finished plan."""
+
+    config: CarrierConfig
+    center_hz: float
+    guard_below_hz: float
+    guard_above_hz: float
+    leakage_ratio_below_db: float = math.inf
+    leakage_ratio_above_db: float = math.inf
+    c_over_i_db: float = math.inf
+    margin_after_interference_db: float = math.nan
+    retuned: bool = False
+
+    @property
+    def demand_id(self) -> str:
+        return self.config.demand_id
+
+    @property
+    def lower_edge_hz(self) -> float:
+        return self.center_hz - self.config.allocated_bandwidth_hz / 2
+
+    @property
+    def upper_edge_hz(self) -> float:
+        return self.center_hz + self.config.allocated_bandwidth_hz / 2
+
+
+@dataclass(frozen=True)
+class Unserved:
+    """A demand the plan does not serve, and why, in words."""
+
+    demand_id: str
+    reason: UnservedReason
+    detail: str
+
+
+@dataclass(frozen=True)
+class SolveStats:
+    """What the optimiser reports about its own run."""
+
+    status: SolveStatus
+    objective_value: float
+    best_bound: float
+    optimality_gap: float
+    solve_time_s: float
+    num_workers: int
+    seed: int
+    solver_version: str
+    verification_rounds: int = 1
+
+
+@dataclass(frozen=True)
+class PlanSummary:
+    """Totals over a plan."""
+
+    used_bandwidth_hz: float
+    free_bandwidth_hz: float
+    largest_free_segment_hz: float
+    total_throughput_bps: float
+    spectral_efficiency_bps_per_hz: float
+    shannon_bound_bps: float
+    efficiency_vs_bound: float
+    retune_count: int
+
+
+@dataclass(frozen=True)
+class Plan:
+    """A verified frequency plan."""
+
+    name: str
+    status: SolveStatus
+    carriers: tuple[Carrier, ...]
+    unserved: tuple[Unserved, ...]
+    summary: PlanSummary
+    stats: SolveStats
+    notices: tuple[str, ...]
