@@ -29,6 +29,7 @@ __all__ = [
     "PlanSummary",
     "Problem",
     "ProblemError",
+    "ProgressEvent",
     "SolveStats",
     "SolveStatus",
     "Transmitter",
@@ -371,3 +372,13 @@ class Plan:
     summary: PlanSummary
     stats: SolveStats
     notices: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class ProgressEvent:
+    """A progress report from a running solve (for progress lines and job records)."""
+
+    elapsed_s: float
+    objective_value: float
+    best_bound: float
+    optimality_gap: float
