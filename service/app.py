@@ -1,0 +1,100 @@
+"""The FastAPI application factory.
+
+``create_app(settings)`` builds an application around one :class:`~service.store.Store`, one
+:class:`~service.jobs.SolveGate` and one :class:`~service.jobs.JobManager`, created at start-up
+(lifespan) and closed at shutdown.  Tests pass their own settings (and, to exercise the service
+machinery alone, their own solve function).
+"""
+
+from __future__ import annotations
+
+import logging
+from collections.abc import AsyncIterator
+from contextlib import asynccontextmanager
+from importlib.metadata import PackageNotFoundError, version
+
+from fastapi import FastAPI
+
+from service.errors import install_error_handlers
+from service.jobs import JobManager, Runtime, SolveFunction, SolveGate
+from service.metrics import Metrics, MetricsMiddleware
+from service.routes import carriers, health, jobs, modcods, plans
+from service.settings import Settings, get_settings
+from service.store import Store, StoreUnavailableError
+
+__all__ = ["API_VERSION", "create_app"]
+
+logger = logging.getLogger(__name__)
+
+API_VERSION = "1"
+DESCRIPTION = (
+    "Plans carriers in a licensed spectrum block: symbol rate, modulation, code rate, roll-off "
+    "and guard bands for every demand, packed by CP-SAT and verified from the power spectral "
+    "densities. All quantities are SI and carry their unit in the field name. Errors are "
+    "RFC 9457 problem details. A plan is an engineering estimate from models: measure real "
+    "equipment before a carrier goes on air; licence conditions and the regulator decide."
+)
+
+
+def _package_version() -> str:
+    try:
+        return version("bandwright")
+    except PackageNotFoundError:
+        return "0+unknown"
+
+
+def _default_solve() -> SolveFunction:
+    from solver import solve  # type: ignore[attr-defined,unused-ignore]
+
+    solve_fn: SolveFunction = solve
+    return solve_fn
+
+
+def create_app(settings: Settings | None = None, *, solve: SolveFunction | None = None) -> FastAPI:
+    """Build the application.
+
+    Parameters
+    ----------
+    settings : Settings, optional
+        Defaults to :func:`service.settings.get_settings` (environment variables).
+    solve : callable, optional
+        The planning function; defaults to :func:`solver.solve`.
+    """
+    settings = get_settings() if settings is None else settings
+    metrics = Metrics()
+
+    @asynccontextmanager
+    async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        store = Store(settings.database_url)
+        try:
+            store.ensure_schema()
+        except StoreUnavailableError as exc:  # /readyz reports it until the store answers
+            logger.error("store not reachable at start-up: %s", exc)
+        solve_fn = _default_solve() if solve is None else solve
+        runtime = Runtime(settings, store, metrics, solve_fn, SolveGate(settings, metrics))
+        runtime.jobs = JobManager(runtime)
+        app.state.runtime = runtime
+        try:
+            runtime.jobs.start()
+        except StoreUnavailableError as exc:
+            logger.error("jobs not requeued: %s", exc)
+        try:
+            yield
+        finally:
+            runtime.jobs.shutdown()
+            store.close()
+
+    app = FastAPI(
+        title="bandwright",
+        version=_package_version(),
+        summary="Optimised, verified carrier plans for a licensed spectrum block",
+        description=DESCRIPTION,
+        lifespan=lifespan,
+        max_body_size=settings.max_body_bytes,
+    )
+    app.dependency_overrides[get_settings] = lambda: settings
+    install_error_handlers(app)
+    app.add_middleware(MetricsMiddleware, metrics=metrics)
+    for module in (plans, jobs, carriers, modcods, health):
+        app.include_router(module.router)
+    return app

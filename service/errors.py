@@ -1,0 +1,213 @@
+"""RFC 9457 problem details, and the one place that maps exceptions to HTTP statuses.
+
+Exception tree of the service::
+
+    ServiceError
+     ├── InvalidInputError     422  the request is well-formed JSON but not a valid problem
+     ├── NotFoundError         404  no plan or job with that id
+     └── SolverBusyError       503  every solve slot and queue place is taken (with Retry-After)
+
+Also mapped here: :class:`solver.ProblemError` (422, naming its field), FastAPI's
+``RequestValidationError`` (422, one entry per bad field), Starlette's ``HTTPException`` (its own
+status, e.g. 405 or 413) and any other exception (500, logged with its traceback).  Every answer
+is an ``application/problem+json`` document; no request ever gets a bare 500.
+
+References
+----------
+RFC 9457, "Problem Details for HTTP APIs", IETF, July 2023.
+"""
+
+from __future__ import annotations
+
+import logging
+from collections.abc import Sequence
+from dataclasses import dataclass
+from http import HTTPStatus
+from typing import Any
+
+from fastapi import FastAPI, Request
+from fastapi.exceptions import RequestValidationError
+from fastapi.responses import JSONResponse
+from starlette.exceptions import HTTPException as StarletteHTTPException
+
+from solver.model import ProblemError
+
+__all__ = [
+    "PROBLEM_JSON",
+    "FieldIssue",
+    "InvalidInputError",
+    "NotFoundError",
+    "ServiceError",
+    "SolverBusyError",
+    "field_path",
+    "install_error_handlers",
+    "problem_document",
+    "problem_response",
+]
+
+logger = logging.getLogger(__name__)
+
+PROBLEM_JSON = "application/problem+json"
+PROBLEM_BASE = "https://bandwright.dev/problems/"
+VALUE_ERROR_PREFIX = "Value error, "  # pydantic prefixes messages of ValueError
+REQUEST_PARTS = frozenset({"body", "query", "path", "header", "cookie"})
+
+
+@dataclass(frozen=True)
+class FieldIssue:
+    """One invalid input: ``field`` is a path such as ``demands[3].target_rate_bps``."""
+
+    field: str
+    message: str
+
+
+class ServiceError(Exception):
+    """Base of the service's own errors."""
+
+
+class InvalidInputError(ServiceError):
+    """The request names values that cannot form a valid problem."""
+
+    def __init__(self, issues: Sequence[FieldIssue]) -> None:
+        super().__init__("; ".join(f"{i.field}: {i.message}" for i in issues))
+        self.issues = tuple(issues)
+
+
+class NotFoundError(ServiceError):
+    """No resource of kind ``kind`` has id ``resource_id``."""
+
+    def __init__(self, kind: str, resource_id: str) -> None:
+        super().__init__(f"no {kind} with id {resource_id!r}")
+        self.kind = kind
+        self.resource_id = resource_id
+
+
+class SolverBusyError(ServiceError):
+    """Every solve slot and waiting place is taken; retry after ``retry_after_s`` seconds."""
+
+    def __init__(self, retry_after_s: int) -> None:
+        super().__init__(f"all solver slots are busy; retry after {retry_after_s} s")
+        self.retry_after_s = retry_after_s
+
+
+def field_path(loc: Sequence[int | str]) -> str:
+    """Turn a validation location into a dotted path: ``demands[3].target_rate_bps``.
+
+    >>> field_path(("body", "demands", 3, "target_rate_bps"))
+    'demands[3].target_rate_bps'
+    >>> field_path(("query", "block_length_bits"))
+    'block_length_bits'
+    """
+    parts = list(loc)
+    if parts and parts[0] in REQUEST_PARTS:
+        parts = parts[1:]
+    path = ""
+    for part in parts:
+        if isinstance(part, int):
+            path += f"[{part}]"
+        else:
+            path += f".{part}" if path else str(part)
+    return path or "body"
+
+
+def problem_document(
+    status: int, slug: str | None, detail: str, instance: str, errors: Sequence[FieldIssue] = ()
+) -> dict[str, Any]:
+    """One problem details document; ``slug=None`` means ``about:blank`` (plain HTTP status)."""
+    phrase = HTTPStatus(status).phrase
+    body: dict[str, Any] = {
+        "type": "about:blank" if slug is None else PROBLEM_BASE + slug,
+        "title": phrase if slug is None else slug.replace("-", " ").capitalize(),
+        "status": status,
+        "detail": detail,
+        "instance": instance,
+    }
+    if errors:
+        body["errors"] = [{"field": e.field, "message": e.message} for e in errors]
+    return body
+
+
+def problem_response(
+    status: int,
+    *,
+    slug: str | None,
+    detail: str,
+    instance: str,
+    errors: Sequence[FieldIssue] = (),
+    headers: dict[str, str] | None = None,
+) -> JSONResponse:
+    """A problem details answer with media type application/problem+json."""
+    body = problem_document(status, slug, detail, instance, errors)
+    return JSONResponse(body, status_code=status, headers=headers, media_type=PROBLEM_JSON)
+
+
+def _issues_from_validation(exc: RequestValidationError) -> list[FieldIssue]:
+    issues = []
+    for err in exc.errors():
+        message = str(err.get("msg", "invalid value")).removeprefix(VALUE_ERROR_PREFIX)
+        issues.append(FieldIssue(field_path(err.get("loc", ())), message))
+    return issues
+
+
+async def _on_validation(request: Request, exc: Exception) -> JSONResponse:
+    if not isinstance(exc, RequestValidationError):
+        return await _on_unexpected(request, exc)
+    issues = _issues_from_validation(exc)
+    detail = f"{len(issues)} invalid field(s): " + ", ".join(i.field for i in issues)
+    return problem_response(
+        422, slug="invalid-request", detail=detail, instance=request.url.path, errors=issues
+    )
+
+
+async def _on_service_error(request: Request, exc: Exception) -> JSONResponse:
+    path = request.url.path
+    if isinstance(exc, InvalidInputError):
+        return problem_response(
+            422, slug="invalid-request", detail=str(exc), instance=path, errors=exc.issues
+        )
+    if isinstance(exc, NotFoundError):
+        return problem_response(404, slug="not-found", detail=str(exc), instance=path)
+    if isinstance(exc, SolverBusyError):
+        headers = {"Retry-After": str(exc.retry_after_s)}
+        return problem_response(
+            503, slug="solver-busy", detail=str(exc), instance=path, headers=headers
+        )
+    return await _on_unexpected(request, exc)
+
+
+async def _on_problem_error(request: Request, exc: Exception) -> JSONResponse:
+    if not isinstance(exc, ProblemError):
+        return await _on_unexpected(request, exc)
+    issue = FieldIssue(exc.field, exc.message)
+    return problem_response(
+        422, slug="invalid-request", detail=str(exc), instance=request.url.path, errors=[issue]
+    )
+
+
+async def _on_http_error(request: Request, exc: Exception) -> JSONResponse:
+    if not isinstance(exc, StarletteHTTPException):
+        return await _on_unexpected(request, exc)
+    detail = exc.detail if isinstance(exc.detail, str) else HTTPStatus(exc.status_code).phrase
+    headers = dict(exc.headers) if exc.headers else None
+    return problem_response(
+        exc.status_code, slug=None, detail=detail, instance=request.url.path, headers=headers
+    )
+
+
+async def _on_unexpected(request: Request, exc: Exception) -> JSONResponse:
+    logger.exception("unhandled error on %s %s", request.method, request.url.path, exc_info=exc)
+    return problem_response(
+        500,
+        slug="internal",
+        detail="the service failed to answer this request; the error has been logged",
+        instance=request.url.path,
+    )
+
+
+def install_error_handlers(app: FastAPI) -> None:
+    """Register every handler on ``app``; call once from the app factory."""
+    app.add_exception_handler(RequestValidationError, _on_validation)
+    app.add_exception_handler(ServiceError, _on_service_error)
+    app.add_exception_handler(ProblemError, _on_problem_error)
+    app.add_exception_handler(StarletteHTTPException, _on_http_error)
+    app.add_exception_handler(Exception, _on_unexpected)

@@ -1,0 +1,61 @@
+"""``POST /v1/carriers/evaluate``: figures for one carrier configuration."""
+
+from __future__ import annotations
+
+import math
+
+from fastapi import APIRouter
+
+from service.jobs import amplifier_from_wire, coding_from_wire
+from service.routes.plans import PROBLEM_RESPONSES
+from service.schemas import EvaluateRequest, EvaluateResponse, LeakageAtGap
+from solver.evaluate import evaluate_carrier
+from solver.model import parse_code_rate
+
+__all__ = ["router"]
+
+router = APIRouter(prefix="/v1/carriers", tags=["carriers"])
+
+
+def _finite(value: float) -> float | None:
+    return value if math.isfinite(value) else None
+
+
+@router.post(
+    "/evaluate",
+    operation_id="evaluate_carrier",
+    summary="Bandwidths, leakage, guard, margin and throughput of one carrier",
+    responses=PROBLEM_RESPONSES,
+)
+def evaluate(body: EvaluateRequest) -> EvaluateResponse:
+    """Evaluate one configuration; no block, no placement, nothing stored."""
+    result = evaluate_carrier(
+        symbol_rate_baud=body.symbol_rate_baud,
+        rolloff=body.rolloff,
+        modulation=body.modulation,
+        code_rate=parse_code_rate(body.code_rate),
+        filter_span_symbols=body.filter_span_symbols,
+        window=body.window,
+        amplifier=amplifier_from_wire(body.amplifier),
+        cn0_dbhz=body.cn0_dbhz,
+        esn0_db=body.esn0_db,
+        coding=coding_from_wire(body.coding),
+        margin_db=body.margin_db,
+        gaps_hz=body.gaps_hz,
+        leakage_limit_db=body.leakage_limit_db,
+    )
+    return EvaluateResponse(
+        occupied_bandwidth_hz=result.occupied_bandwidth_hz,
+        allocated_bandwidth_hz=result.allocated_bandwidth_hz,
+        leakage_ratio_db=[
+            LeakageAtGap(gap_hz=item.gap_hz, ratio_db=_finite(item.ratio_db))
+            for item in result.leakage_ratio_db
+        ],
+        guard_needed_hz=_finite(result.guard_needed_hz),
+        esn0_db=result.esn0_db,
+        required_esn0_db=result.required_esn0_db,
+        margin_db=result.margin_db,
+        link_closes=result.link_closes,
+        bits_per_symbol=result.bits_per_symbol,
+        throughput_bps=result.throughput_bps,
+    )

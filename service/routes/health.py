@@ -1,0 +1,57 @@
+"""Probes and metrics: ``/healthz`` (alive), ``/readyz`` (store reachable), ``/metrics``."""
+
+from __future__ import annotations
+
+import logging
+from typing import Annotated
+
+from fastapi import APIRouter, Depends, Response
+from fastapi.responses import JSONResponse
+
+from service.jobs import Runtime, get_runtime
+from service.metrics import CONTENT_TYPE
+from service.schemas import HealthOut
+from service.store import StoreUnavailableError
+
+__all__ = ["router"]
+
+logger = logging.getLogger(__name__)
+router = APIRouter(tags=["health"])
+
+
+@router.get("/healthz", operation_id="healthz", summary="The process answers")
+async def healthz() -> HealthOut:
+    """Never touches the store or the solver, so it answers during long solves."""
+    return HealthOut(status="ok")
+
+
+@router.get(
+    "/readyz",
+    operation_id="readyz",
+    summary="The store answers",
+    responses={
+        200: {"model": HealthOut, "description": "store reachable"},
+        503: {"model": HealthOut, "description": "store unreachable"},
+    },
+)
+def readyz(runtime: Annotated[Runtime, Depends(get_runtime)]) -> JSONResponse:
+    """503 while the store cannot be reached."""
+    try:
+        runtime.store.ping()
+    except StoreUnavailableError as exc:
+        logger.warning("not ready: %s", exc)
+        body = HealthOut(status="unavailable", store="unreachable")
+        return JSONResponse(body.model_dump(), status_code=503)
+    return JSONResponse(HealthOut(status="ok", store="ok").model_dump())
+
+
+@router.get(
+    "/metrics",
+    operation_id="metrics",
+    summary="Prometheus text exposition",
+    response_class=Response,
+    responses={200: {"content": {"text/plain": {}}}},
+)
+async def metrics(runtime: Annotated[Runtime, Depends(get_runtime)]) -> Response:
+    """Requests and latency by route, solve-time histogram, solver outcomes."""
+    return Response(runtime.metrics.render(), media_type=CONTENT_TYPE)

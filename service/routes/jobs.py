@@ -1,0 +1,56 @@
+"""Background solves: ``POST /v1/jobs`` (202 + Location) and ``GET /v1/jobs/{id}``."""
+
+from __future__ import annotations
+
+from typing import Annotated
+
+import anyio.to_thread
+from fastapi import APIRouter, Depends, Path, Response
+
+from service.errors import NotFoundError, ServiceError
+from service.jobs import Runtime, get_runtime
+from service.routes.plans import BUSY, PROBLEM_RESPONSES, _problem
+from service.schemas import JobOut, JobState, PlanRequest
+
+__all__ = ["router"]
+
+router = APIRouter(prefix="/v1/jobs", tags=["jobs"])
+JobId = Annotated[str, Path(min_length=1, max_length=64, description="job id")]
+
+
+@router.post(
+    "",
+    status_code=202,
+    operation_id="create_job",
+    summary="Queue a planning request; poll the job at Location",
+    responses={**PROBLEM_RESPONSES, **BUSY},
+)
+async def create_job(
+    body: PlanRequest, response: Response, runtime: Annotated[Runtime, Depends(get_runtime)]
+) -> JobOut:
+    """202 Accepted with ``Location: /v1/jobs/{id}`` and ``Retry-After`` (s)."""
+    jobs = runtime.jobs
+    if jobs is None:
+        raise ServiceError("the job manager is not running")
+    job = await anyio.to_thread.run_sync(jobs.submit, body)
+    response.headers["Location"] = f"/v1/jobs/{job.id}"
+    response.headers["Retry-After"] = str(runtime.settings.retry_after_s)
+    return job
+
+
+@router.get(
+    "/{job_id}",
+    operation_id="get_job",
+    responses={404: _problem("no job with that id")},
+)
+def get_job(
+    job_id: JobId, response: Response, runtime: Annotated[Runtime, Depends(get_runtime)]
+) -> JobOut:
+    """The job's state and progress; ``plan_id`` and ``plan_url`` once it is done."""
+    record = runtime.store.get_job(job_id)
+    if record is None:
+        raise NotFoundError("job", job_id)
+    response.headers["Cache-Control"] = "no-store"
+    if record.job.state in (JobState.QUEUED, JobState.RUNNING):
+        response.headers["Retry-After"] = str(runtime.settings.retry_after_s)
+    return record.job

@@ -1,0 +1,237 @@
+"""Plans: solve and store (``POST /v1/plans``), read, list, picture, retunes."""
+
+from __future__ import annotations
+
+import math
+import threading
+from typing import Annotated, Any, Literal
+
+import anyio
+from fastapi import APIRouter, Depends, Path, Query, Request, Response
+
+from service.errors import NotFoundError
+from service.jobs import (
+    Runtime,
+    get_runtime,
+    plan_from_wire,
+    prepare,
+    run_solve,
+    store_plan,
+    to_problem,
+)
+from service.schemas import (
+    CarrierOut,
+    DemandIn,
+    PlanOut,
+    PlanPage,
+    PlanRequest,
+    ProblemDocument,
+    RetuneChange,
+    RetuneList,
+    RetuneOut,
+    SettingOut,
+)
+from service.store import StoredPlan
+
+__all__ = ["PROBLEM_RESPONSES", "router"]
+
+router = APIRouter(prefix="/v1/plans", tags=["plans"])
+
+MAX_PAGE = 100
+PlanId = Annotated[str, Path(min_length=1, max_length=64, description="plan id")]
+SAME_CENTER_TOLERANCE_HZ = 1.0  # far below any placement raster; absorbs float round-off
+RELATIVE_TOLERANCE = 1e-9
+
+
+def _problem(description: str) -> dict[str, Any]:
+    return {
+        "model": ProblemDocument,
+        "description": description,
+        "content": {"application/problem+json": {}},
+    }
+
+
+PROBLEM_RESPONSES: dict[int | str, dict[str, Any]] = {
+    413: _problem("request body larger than the limit"),
+    422: _problem("invalid request; `errors` names each bad field"),
+    500: _problem("unexpected failure (logged)"),
+}
+NOT_FOUND: dict[int | str, dict[str, Any]] = {404: _problem("no plan with that id")}
+BUSY: dict[int | str, dict[str, Any]] = {
+    503: _problem("every solver slot is busy; see Retry-After"),
+}
+
+
+async def _cancel_when_client_leaves(request: Request, cancel: threading.Event) -> None:
+    while True:
+        message = await request.receive()
+        if message["type"] == "http.disconnect":
+            cancel.set()
+            return
+
+
+@router.post(
+    "",
+    status_code=201,
+    operation_id="create_plan",
+    summary="Solve a planning request and store the plan",
+    responses={**PROBLEM_RESPONSES, **BUSY},
+)
+async def create_plan(
+    body: PlanRequest,
+    request: Request,
+    response: Response,
+    runtime: Annotated[Runtime, Depends(get_runtime)],
+) -> PlanOut:
+    """An infeasible problem is a successful computation: 201 with status "infeasible"."""
+    cancel = threading.Event()
+
+    def work() -> PlanOut:
+        prepared = prepare(body, runtime.store, runtime.settings)
+        plan = run_solve(runtime, prepared.problem, mode="sync", cancel=cancel)
+        return store_plan(runtime, prepared, plan)
+
+    failure: Exception | None = None
+    async with anyio.create_task_group() as watchers:
+        watchers.start_soon(_cancel_when_client_leaves, request, cancel)
+        try:
+            out = await runtime.gate.run(work)
+        except Exception as exc:  # re-raised below, outside the task group
+            failure = exc
+        finally:
+            watchers.cancel_scope.cancel()
+    if failure is not None:
+        raise failure
+    response.headers["Location"] = f"/v1/plans/{out.id}"
+    return out
+
+
+@router.get("", operation_id="list_plans", summary="List stored plans, newest first")
+def list_plans(
+    runtime: Annotated[Runtime, Depends(get_runtime)],
+    offset: Annotated[int, Query(ge=0, description="plans to skip")] = 0,
+    limit: Annotated[int, Query(ge=1, le=MAX_PAGE, description="page size")] = 20,
+) -> PlanPage:
+    """One page of the stored plans."""
+    items, total = runtime.store.list_plans(offset, limit)
+    return PlanPage(items=items, total=total, offset=offset, limit=limit)
+
+
+def _stored(runtime: Runtime, plan_id: str) -> StoredPlan:
+    stored = runtime.store.get_plan(plan_id)
+    if stored is None:
+        raise NotFoundError("plan", plan_id)
+    return stored
+
+
+@router.get("/{plan_id}", operation_id="get_plan", responses=NOT_FOUND)
+def get_plan(plan_id: PlanId, runtime: Annotated[Runtime, Depends(get_runtime)]) -> PlanOut:
+    """A stored plan."""
+    return _stored(runtime, plan_id).plan
+
+
+def _picture(runtime: Runtime, plan_id: str, fmt: Literal["svg", "png"]) -> bytes:
+    from service.render import render_spectrum
+
+    stored = _stored(runtime, plan_id)
+    problem = to_problem(stored.request)
+    return render_spectrum(plan_from_wire(stored.plan), problem, fmt)
+
+
+@router.get(
+    "/{plan_id}/spectrum.svg",
+    operation_id="get_plan_spectrum_svg",
+    response_class=Response,
+    responses={200: {"content": {"image/svg+xml": {}}}, **NOT_FOUND},
+)
+def get_spectrum_svg(
+    plan_id: PlanId, runtime: Annotated[Runtime, Depends(get_runtime)]
+) -> Response:
+    """The plan's spectrum picture (SVG)."""
+    return Response(_picture(runtime, plan_id, "svg"), media_type="image/svg+xml")
+
+
+@router.get(
+    "/{plan_id}/spectrum.png",
+    operation_id="get_plan_spectrum_png",
+    response_class=Response,
+    responses={200: {"content": {"image/png": {}}}, **NOT_FOUND},
+)
+def get_spectrum_png(
+    plan_id: PlanId, runtime: Annotated[Runtime, Depends(get_runtime)]
+) -> Response:
+    """The plan's spectrum picture (PNG)."""
+    return Response(_picture(runtime, plan_id, "png"), media_type="image/png")
+
+
+@router.get(
+    "/{plan_id}/retunes",
+    operation_id="get_plan_retunes",
+    responses=NOT_FOUND,
+    summary="Carriers that moved or changed relative to the parent plan",
+)
+def get_retunes(plan_id: PlanId, runtime: Annotated[Runtime, Depends(get_runtime)]) -> RetuneList:
+    """Relative to the parent plan; without a parent, to the request's ``current`` settings."""
+    stored = _stored(runtime, plan_id)
+    parent_id = stored.plan.parent_id
+    parent = None if parent_id is None else runtime.store.get_plan(parent_id)
+    if parent is not None:
+        before = {c.demand_id: _setting(c) for c in parent.plan.carriers}
+    else:
+        before = _request_settings(stored.request.demands)
+    after = {c.demand_id: _setting(c) for c in stored.plan.carriers}
+    return RetuneList(plan_id=plan_id, parent_id=parent_id, retunes=compare_settings(before, after))
+
+
+def _setting(carrier: CarrierOut) -> SettingOut:
+    return SettingOut(
+        center_hz=carrier.center_hz,
+        symbol_rate_baud=carrier.symbol_rate_baud,
+        rolloff=carrier.rolloff,
+        modulation=carrier.modulation,
+        code_rate=carrier.code_rate,
+    )
+
+
+def _request_settings(demands: list[DemandIn]) -> dict[str, SettingOut]:
+    return {d.id: SettingOut(**d.current.model_dump()) for d in demands if d.current is not None}
+
+
+def compare_settings(
+    before: dict[str, SettingOut], after: dict[str, SettingOut]
+) -> list[RetuneOut]:
+    """Every demand whose carrier moved, changed configuration, appeared or disappeared."""
+    retunes = []
+    for demand_id in sorted(before.keys() | after.keys()):
+        old, new = before.get(demand_id), after.get(demand_id)
+        change = _change(old, new)
+        if change is None:
+            continue
+        shift = None if old is None or new is None else new.center_hz - old.center_hz
+        retunes.append(
+            RetuneOut(demand_id=demand_id, change=change, shift_hz=shift, previous=old, current=new)
+        )
+    return retunes
+
+
+def _same_configuration(old: SettingOut, new: SettingOut) -> bool:
+    return (
+        old.modulation == new.modulation
+        and old.code_rate == new.code_rate
+        and math.isclose(old.rolloff, new.rolloff, rel_tol=RELATIVE_TOLERANCE)
+        and math.isclose(old.symbol_rate_baud, new.symbol_rate_baud, rel_tol=RELATIVE_TOLERANCE)
+    )
+
+
+def _change(old: SettingOut | None, new: SettingOut | None) -> RetuneChange | None:
+    if old is None:
+        return RetuneChange.ADDED
+    if new is None:
+        return RetuneChange.DROPPED
+    moved = abs(new.center_hz - old.center_hz) > SAME_CENTER_TOLERANCE_HZ
+    reconfigured = not _same_configuration(old, new)
+    if moved and reconfigured:
+        return RetuneChange.MOVED_AND_RECONFIGURED
+    if moved:
+        return RetuneChange.MOVED
+    return RetuneChange.RECONFIGURED if reconfigured else None

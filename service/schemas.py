@@ -1,0 +1,535 @@
+"""The wire contract (v1): Pydantic models of requests and answers, and their conversion.
+
+Field names carry their SI unit (``_hz``, ``_baud``, ``_bps``, ``_db``, ``_dbhz``, ``_s``); every
+field has bounds and a description that reach the OpenAPI document.  Requests forbid unknown
+fields.  Checks that involve several list entries (exclusions inside the block and apart, unique
+demand ids, pinned centres inside the block) are in :meth:`PlanRequest.consistency_issues` so
+that each names its exact path, e.g. ``demands[3].id``.
+"""
+
+from __future__ import annotations
+
+import itertools
+from datetime import datetime
+from enum import StrEnum
+from typing import Annotated, Any
+
+from pydantic import BaseModel, ConfigDict, Field, ValidationInfo, field_validator
+
+from service.errors import FieldIssue
+from solver.model import (
+    AmplifierModel,
+    Modulation,
+    Objective,
+    ProblemError,
+    SolveStatus,
+    UnservedReason,
+    Window,
+    parse_code_rate,
+)
+
+MAX_DEMANDS = 2000
+MAX_EXCLUSIONS = 200
+MAX_ROLLOFFS = 16
+MAX_GAPS = 64
+MAX_TIME_LIMIT_S = 300.0
+MAX_FREQUENCY_HZ = 1e12
+MAX_SYMBOL_RATE_BAUD = 1e10
+MAX_RATE_BPS = 1e12
+CODE_RATE_PATTERN = r"^(uncoded|[1-9][0-9]?/[1-9][0-9]?)$"
+DEMAND_ID_PATTERN = r"^[A-Za-z0-9_.:-]{1,64}$"
+
+
+class WireModel(BaseModel):
+    """Base of every request model: unknown fields are rejected."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+def _check_code_rate(value: str) -> str:
+    try:
+        parse_code_rate(value)
+    except ProblemError as exc:
+        raise ValueError(exc.message) from exc
+    return value
+
+
+def _stop_after_start(value: float, info: ValidationInfo) -> float:
+    start = info.data.get("start_hz")
+    if start is not None and value <= start:
+        raise ValueError(f"stop_hz={value} must be greater than start_hz={start}")
+    return value
+
+
+def _exactly_one_link(value: float | None, info: ValidationInfo) -> float | None:
+    has_cn0 = info.data.get("cn0_dbhz") is not None
+    if has_cn0 == (value is not None):
+        raise ValueError("give exactly one of cn0_dbhz (power-limited link) or esn0_db")
+    return value
+
+
+CodeRateText = Annotated[
+    str,
+    Field(
+        pattern=CODE_RATE_PATTERN,
+        description="FEC code rate as a fraction '3/4', or 'uncoded'",
+        examples=["3/4"],
+    ),
+]
+Cn0 = Annotated[
+    float | None,
+    Field(None, ge=-50.0, le=200.0, description="carrier-to-noise-density ratio C/N0 (dB-Hz)"),
+]
+Esn0 = Annotated[
+    float | None,
+    Field(
+        None,
+        ge=-30.0,
+        le=80.0,
+        validate_default=True,
+        description="Es/N0 (dB) of a link whose Es/N0 does not depend on the symbol rate",
+    ),
+]
+
+
+class ExclusionIn(WireModel):
+    """A part of the block no carrier may use."""
+
+    start_hz: float = Field(ge=0, le=MAX_FREQUENCY_HZ, description="lower edge (Hz)")
+    stop_hz: float = Field(gt=0, le=MAX_FREQUENCY_HZ, description="upper edge (Hz)")
+    note: str = Field("", max_length=200, description="why this part is excluded")
+
+    _stop = field_validator("stop_hz")(_stop_after_start)
+
+
+class BlockIn(WireModel):
+    """The licensed block."""
+
+    start_hz: float = Field(ge=0, le=MAX_FREQUENCY_HZ, description="lower edge (Hz)")
+    stop_hz: float = Field(gt=0, le=MAX_FREQUENCY_HZ, description="upper edge (Hz)")
+    raster_hz: float = Field(1000.0, gt=0, le=1e9, description="carrier placement raster (Hz)")
+    exclusions: list[ExclusionIn] = Field(
+        default_factory=list, max_length=MAX_EXCLUSIONS, description="parts no carrier may use"
+    )
+    edge_leakage_limit_db: float | None = Field(
+        None,
+        ge=0,
+        le=150,
+        description="leakage limit towards the block edges and exclusions (dB); "
+        "null: leakage_limit_db",
+    )
+
+    _stop = field_validator("stop_hz")(_stop_after_start)
+
+
+class AmplifierIn(WireModel):
+    """A memoryless power amplifier at an output back-off."""
+
+    model: AmplifierModel = Field(AmplifierModel.RAPP, description="AM/AM (AM/PM) model")
+    smoothness: float = Field(2.0, gt=0, le=100, description="Rapp smoothness p (dimensionless)")
+    output_backoff_db: float = Field(
+        6.0, ge=0, le=40, description="saturated over mean output power (dB)"
+    )
+
+
+class TransmitterIn(WireModel):
+    """Equipment parameters shared by every carrier."""
+
+    filter_span_symbols: int = Field(
+        12, ge=2, le=256, description="truncated pulse-shaping filter span (symbols)"
+    )
+    rolloffs: list[Annotated[float, Field(gt=0, le=1)]] = Field(
+        default_factory=lambda: [0.05, 0.10, 0.15, 0.20, 0.25, 0.35],
+        min_length=1,
+        max_length=MAX_ROLLOFFS,
+        description="roll-off factors the equipment supports (dimensionless, 0 < α ≤ 1)",
+    )
+    window: Window = Field(Window.NONE, description="window applied to the truncated filter")
+    amplifier: AmplifierIn | None = Field(None, description="amplifier model, or null for linear")
+
+
+class CodingIn(WireModel):
+    """Forward-error-correction assumptions for the coded thresholds."""
+
+    block_length_bits: int = Field(16200, ge=64, le=1_000_000, description="code word n (bits)")
+    target_block_error_rate: float = Field(
+        1e-5, gt=0, lt=0.5, description="code-word error probability"
+    )
+    implementation_loss_db: float = Field(
+        1.0, ge=0, le=20, description="added to every threshold (dB)"
+    )
+    framing_overhead: float = Field(
+        0.02, ge=0, lt=0.5, description="fraction of symbols spent on headers and pilots"
+    )
+    target_bit_error_rate: float = Field(
+        1e-6, gt=0, lt=0.5, description="bit error rate for uncoded entries"
+    )
+
+
+class CurrentSettingIn(WireModel):
+    """How a demand is served today (for a replan)."""
+
+    center_hz: float = Field(ge=0, le=MAX_FREQUENCY_HZ, description="centre frequency (Hz)")
+    symbol_rate_baud: float = Field(gt=0, le=MAX_SYMBOL_RATE_BAUD, description="(baud)")
+    rolloff: float = Field(gt=0, le=1, description="roll-off factor")
+    modulation: Modulation
+    code_rate: CodeRateText
+
+    _rate = field_validator("code_rate")(_check_code_rate)
+
+
+class DemandIn(WireModel):
+    """One user's need for capacity."""
+
+    id: str = Field(pattern=DEMAND_ID_PATTERN, description="unique demand id")
+    min_rate_bps: float = Field(ge=0, le=MAX_RATE_BPS, description="least useful rate (bit/s)")
+    target_rate_bps: float = Field(gt=0, le=MAX_RATE_BPS, description="wanted rate (bit/s)")
+    priority: int = Field(1, ge=1, le=1000, description="higher is served first")
+    cn0_dbhz: Cn0 = None
+    esn0_db: Esn0 = None
+    margin_db: float = Field(3.0, ge=0, le=40, description="link margin to keep (dB)")
+    modulations: list[Modulation] = Field(
+        default_factory=list, max_length=len(Modulation), description="allowed; empty: all"
+    )
+    relative_level_db: float = Field(
+        0.0, ge=-60, le=60, description="PSD level relative to the other carriers (dB)"
+    )
+    pinned_center_hz: float | None = Field(
+        None, ge=0, le=MAX_FREQUENCY_HZ, description="fixed centre frequency (Hz)"
+    )
+    current: CurrentSettingIn | None = Field(None, description="today's setting, for a replan")
+
+    @field_validator("target_rate_bps")
+    @classmethod
+    def _target_at_least_min(cls, value: float, info: ValidationInfo) -> float:
+        least = info.data.get("min_rate_bps")
+        if least is not None and value < least:
+            raise ValueError(f"target_rate_bps={value} must be ≥ min_rate_bps={least}")
+        return value
+
+    _link = field_validator("esn0_db")(_exactly_one_link)
+
+
+class PlanRequest(WireModel):
+    """A planning request: the block, the equipment, the coding assumptions and the demands."""
+
+    name: str = Field("plan", min_length=1, max_length=200, description="label of the plan")
+    block: BlockIn
+    leakage_limit_db: float = Field(
+        30.0, ge=0, le=150, description="least leakage ratio between neighbours (dB)"
+    )
+    transmitter: TransmitterIn = Field(default_factory=TransmitterIn)
+    coding: CodingIn = Field(default_factory=CodingIn)
+    demands: list[DemandIn] = Field(min_length=1, max_length=MAX_DEMANDS)
+    objective: Objective = Field(Objective.MAX_THROUGHPUT, description="what to optimise")
+    retune_penalty: float = Field(
+        1.0, ge=0, le=1e6, description="weight against moving a carrier from its current setting"
+    )
+    previous_plan_id: str | None = Field(
+        None, max_length=64, description="stored plan this replans; fills `current` settings"
+    )
+    time_limit_s: float = Field(
+        10.0, gt=0, le=MAX_TIME_LIMIT_S, description="solver time limit (s)"
+    )
+    seed: int = Field(1, ge=0, le=2**31 - 1, description="solver random seed")
+
+    def consistency_issues(self) -> list[FieldIssue]:
+        """Checks across list entries, each naming its exact field path."""
+        issues = _exclusion_issues(self.block)
+        seen: set[str] = set()
+        for k, demand in enumerate(self.demands):
+            if demand.id in seen:
+                issues.append(FieldIssue(f"demands[{k}].id", f"duplicate demand id {demand.id!r}"))
+            seen.add(demand.id)
+            pinned = demand.pinned_center_hz
+            if pinned is not None and not self.block.start_hz < pinned < self.block.stop_hz:
+                issues.append(
+                    FieldIssue(
+                        f"demands[{k}].pinned_center_hz", f"{pinned} Hz is outside the block"
+                    )
+                )
+        return issues
+
+
+def _exclusion_issues(block: BlockIn) -> list[FieldIssue]:
+    issues = []
+    if block.raster_hz > block.stop_hz - block.start_hz:
+        issues.append(FieldIssue("block.raster_hz", "raster is wider than the block"))
+    for j, x in enumerate(block.exclusions):
+        if x.start_hz < block.start_hz or x.stop_hz > block.stop_hz:
+            issues.append(
+                FieldIssue(
+                    f"block.exclusions[{j}]",
+                    f"[{x.start_hz}, {x.stop_hz}] Hz is not inside the block",
+                )
+            )
+    order = sorted(range(len(block.exclusions)), key=lambda j: block.exclusions[j].start_hz)
+    for a, b in itertools.pairwise(order):
+        if block.exclusions[b].start_hz < block.exclusions[a].stop_hz:
+            issues.append(FieldIssue(f"block.exclusions[{b}]", f"overlaps block.exclusions[{a}]"))
+    return issues
+
+
+class FieldIssueOut(BaseModel):
+    """One invalid input of a problem document."""
+
+    field: str = Field(description="path of the bad field, e.g. demands[3].target_rate_bps")
+    message: str
+
+
+class ProblemDocument(BaseModel):
+    """An RFC 9457 problem details document (media type application/problem+json)."""
+
+    type: str = Field(description="URI reference naming the problem type")
+    title: str
+    status: int
+    detail: str
+    instance: str
+    errors: list[FieldIssueOut] | None = Field(None, description="one entry per bad field")
+
+
+# ----------------------------------------------------------------------------- plans (answers)
+
+
+class LeakageOut(BaseModel):
+    """Leakage ratios into the neighbouring measurement bands (dB); null: nothing adjacent."""
+
+    below: float | None
+    above: float | None
+
+
+class CarrierOut(BaseModel):
+    """A placed carrier."""
+
+    demand_id: str
+    center_hz: float
+    lower_edge_hz: float = Field(description="centre − allocated/2 (Hz)")
+    upper_edge_hz: float = Field(description="centre + allocated/2 (Hz)")
+    symbol_rate_baud: float
+    rolloff: float
+    modulation: Modulation
+    code_rate: str = Field(description="'3/4' or 'uncoded'")
+    bits_per_symbol: int
+    occupied_bandwidth_hz: float = Field(description="99 % power bandwidth (Hz)")
+    allocated_bandwidth_hz: float = Field(description="Rs(1+α) (Hz)")
+    guard_below_hz: float
+    guard_above_hz: float
+    guard_needed_hz: float = Field(description="guard this carrier needs towards carriers (Hz)")
+    edge_guard_needed_hz: float = Field(description="guard it needs towards edges (Hz)")
+    throughput_bps: float
+    esn0_db: float
+    required_esn0_db: float
+    margin_db: float = Field(description="Es/N0 − required Es/N0 (dB)")
+    margin_after_interference_db: float | None = Field(description="null: not computed")
+    leakage_ratio_db: LeakageOut
+    c_over_i_db: float | None = Field(description="carrier to interference (dB); null: none")
+    retuned: bool = Field(description="moved or reconfigured relative to its current setting")
+
+
+class UnservedOut(BaseModel):
+    """A demand without a carrier."""
+
+    demand_id: str
+    reason: UnservedReason
+    detail: str
+
+
+class SummaryOut(BaseModel):
+    """Totals over the plan and the optimiser's figures."""
+
+    used_bandwidth_hz: float
+    free_bandwidth_hz: float
+    largest_free_segment_hz: float
+    total_throughput_bps: float
+    spectral_efficiency_bps_per_hz: float
+    shannon_bound_bps: float
+    efficiency_vs_bound: float
+    objective_value: float | None
+    best_bound: float | None
+    optimality_gap: float | None
+    solve_time_s: float
+    retune_count: int
+
+
+class SolverOut(BaseModel):
+    """Parameters of the optimiser run (for reproducing the plan)."""
+
+    num_workers: int
+    seed: int
+    solver_version: str
+    verification_rounds: int
+
+
+class PlanOut(BaseModel):
+    """A stored, verified frequency plan."""
+
+    id: str | None = Field(description="null only for a plan computed offline by the CLI")
+    name: str
+    created_at: datetime
+    parent_id: str | None
+    status: SolveStatus
+    carriers: list[CarrierOut]
+    unserved: list[UnservedOut]
+    summary: SummaryOut
+    solver: SolverOut
+    notices: list[str] = Field(description="cautions that come with every plan")
+
+
+class PlanListItem(BaseModel):
+    """One line of the plan listing."""
+
+    id: str
+    name: str
+    created_at: datetime
+    parent_id: str | None
+    status: SolveStatus
+
+
+class PlanPage(BaseModel):
+    """A page of plans, newest first."""
+
+    items: list[PlanListItem]
+    total: int
+    offset: int
+    limit: int
+
+
+# ----------------------------------------------------------------------------- retunes
+
+
+class RetuneChange(StrEnum):
+    """How a carrier differs from its previous setting."""
+
+    MOVED = "moved"
+    RECONFIGURED = "reconfigured"
+    MOVED_AND_RECONFIGURED = "moved_and_reconfigured"
+    ADDED = "added"
+    DROPPED = "dropped"
+
+
+class SettingOut(BaseModel):
+    """A carrier's setting (centre and configuration)."""
+
+    center_hz: float
+    symbol_rate_baud: float
+    rolloff: float
+    modulation: Modulation
+    code_rate: str
+
+
+class RetuneOut(BaseModel):
+    """One carrier that changed relative to its previous setting."""
+
+    demand_id: str
+    change: RetuneChange
+    shift_hz: float | None = Field(description="new centre − previous centre (Hz)")
+    previous: SettingOut | None
+    current: SettingOut | None
+
+
+class RetuneList(BaseModel):
+    """Changes of a plan relative to its parent (or, without one, to the request's settings)."""
+
+    plan_id: str
+    parent_id: str | None
+    retunes: list[RetuneOut]
+
+
+# ----------------------------------------------------------------------------- evaluate, modcods
+
+
+class EvaluateRequest(WireModel):
+    """One carrier configuration to evaluate."""
+
+    symbol_rate_baud: float = Field(gt=0, le=MAX_SYMBOL_RATE_BAUD, description="(baud)")
+    rolloff: float = Field(gt=0, le=1, description="roll-off factor α")
+    modulation: Modulation
+    code_rate: CodeRateText
+    filter_span_symbols: int = Field(12, ge=2, le=256, description="filter span (symbols)")
+    window: Window = Field(Window.NONE, description="window on the truncated filter")
+    amplifier: AmplifierIn | None = Field(None, description="amplifier model, null: linear")
+    cn0_dbhz: Cn0 = None
+    esn0_db: Esn0 = None
+    coding: CodingIn = Field(default_factory=CodingIn)
+    margin_db: float = Field(3.0, ge=0, le=40, description="link margin to keep (dB)")
+    gaps_hz: list[Annotated[float, Field(ge=0, le=MAX_FREQUENCY_HZ)]] = Field(
+        default_factory=list, max_length=MAX_GAPS, description="edge-to-edge gaps (Hz)"
+    )
+    leakage_limit_db: float = Field(30.0, ge=0, le=150, description="leakage limit (dB)")
+
+    _rate = field_validator("code_rate")(_check_code_rate)
+    _link = field_validator("esn0_db")(_exactly_one_link)
+
+
+class LeakageAtGap(BaseModel):
+    """Leakage ratio at one gap; null ratio: no measurable leakage."""
+
+    gap_hz: float
+    ratio_db: float | None
+
+
+class EvaluateResponse(BaseModel):
+    """Figures of one carrier configuration."""
+
+    occupied_bandwidth_hz: float = Field(description="99 % power bandwidth (Hz)")
+    allocated_bandwidth_hz: float = Field(description="Rs(1+α) (Hz)")
+    leakage_ratio_db: list[LeakageAtGap]
+    guard_needed_hz: float | None = Field(description="gap for the leakage limit (Hz)")
+    esn0_db: float
+    required_esn0_db: float
+    margin_db: float = Field(description="Es/N0 − required Es/N0 (dB)")
+    link_closes: bool = Field(description="margin_db ≥ the requested margin")
+    bits_per_symbol: int
+    throughput_bps: float
+
+
+class ModcodOut(BaseModel):
+    """One catalogue entry."""
+
+    modulation: Modulation
+    code_rate: str
+    bits_per_symbol: int
+    spectral_efficiency_bps_per_hz: float
+    required_esn0_db: float
+
+
+# ----------------------------------------------------------------------------- jobs, health
+
+
+class JobState(StrEnum):
+    """Life cycle of a background solve."""
+
+    QUEUED = "queued"
+    RUNNING = "running"
+    DONE = "done"
+    FAILED = "failed"
+
+
+class JobProgress(BaseModel):
+    """Latest progress of a running solve."""
+
+    elapsed_s: float
+    objective_value: float | None
+    best_bound: float | None
+    optimality_gap: float | None
+
+
+class JobOut(BaseModel):
+    """A background solve."""
+
+    id: str
+    name: str
+    state: JobState
+    created_at: datetime
+    updated_at: datetime
+    progress: JobProgress | None
+    plan_id: str | None = Field(description="the stored plan once the job is done")
+    plan_url: str | None
+    error: dict[str, Any] | None = Field(description="problem document when the job failed")
+
+
+class HealthOut(BaseModel):
+    """Liveness or readiness."""
+
+    status: str
+    store: str | None = None

@@ -1,0 +1,50 @@
+"""Service settings, read from environment variables prefixed ``BANDWRIGHT_``.
+
+Examples: ``BANDWRIGHT_DATABASE_URL=postgresql+psycopg://user@db/bandwright``,
+``BANDWRIGHT_MAX_CONCURRENT_SOLVES=2``.  :func:`get_settings` is cached; tests pass their own
+:class:`Settings` to :func:`service.app.create_app` instead.
+"""
+
+from __future__ import annotations
+
+from functools import lru_cache
+
+from pydantic import Field
+from pydantic_settings import BaseSettings, SettingsConfigDict
+
+__all__ = ["Settings", "get_settings"]
+
+DEFAULT_DATABASE_URL = "sqlite:///./bandwright.db"
+MEBIBYTE = 1024 * 1024
+
+
+class Settings(BaseSettings):
+    """Every knob of the service, with its environment variable ``BANDWRIGHT_<NAME>``.
+
+    CPU budget: ``max_concurrent_solves × workers_per_solve`` threads for synchronous solves plus
+    ``job_workers × workers_per_solve`` for background jobs; keep the sum at or below the cores.
+    """
+
+    model_config = SettingsConfigDict(env_prefix="BANDWRIGHT_", frozen=True, extra="ignore")
+
+    database_url: str = Field(DEFAULT_DATABASE_URL, description="SQLAlchemy URL of the plan store")
+    max_concurrent_solves: int = Field(2, ge=1, description="synchronous solves running at once")
+    max_queued: int = Field(
+        4, ge=0, description="synchronous solves allowed to wait; beyond this → 503"
+    )
+    workers_per_solve: int = Field(1, ge=1, le=64, description="CP-SAT workers per solve")
+    job_workers: int = Field(1, ge=1, description="background job threads")
+    max_queued_jobs: int = Field(100, ge=1, description="jobs waiting before POST /v1/jobs → 503")
+    retry_after_s: int = Field(2, ge=1, description="Retry-After on 202 and 503 answers (s)")
+    max_body_bytes: int = Field(5 * MEBIBYTE, ge=1024, description="request body limit (bytes)")
+    progress_interval_s: float = Field(
+        0.5, gt=0, description="least time between stored job progress updates (s)"
+    )
+    host: str = Field("127.0.0.1", description="address `bandwright serve` binds")
+    port: int = Field(8000, ge=0, le=65535, description="port `bandwright serve` binds")
+
+
+@lru_cache(maxsize=1)
+def get_settings() -> Settings:
+    """The process-wide settings, read once from the environment."""
+    return Settings()

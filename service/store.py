@@ -1,0 +1,276 @@
+"""Plan and job persistence with SQLAlchemy 2: a SQLite file by default, PostgreSQL by URL.
+
+Plans are immutable: written once, never updated.  A replan is a new plan whose ``parent_id``
+names the old one.  JSON documents are stored as text, which every SQL database holds the same
+way, so the schema stays portable.  Every method opens its own short session, so one
+:class:`Store` may be shared by the event loop's thread pool and the job threads.
+"""
+
+from __future__ import annotations
+
+import json
+import logging
+from collections.abc import Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass
+from datetime import UTC, datetime
+from typing import Any
+
+import sqlalchemy as sa
+from sqlalchemy.engine import Engine
+from sqlalchemy.orm import DeclarativeBase, Mapped, Session, mapped_column, sessionmaker
+
+from service.schemas import JobOut, JobProgress, JobState, PlanListItem, PlanOut, PlanRequest
+
+__all__ = ["JobRecord", "Store", "StoreUnavailableError", "StoredPlan", "utc_now"]
+
+logger = logging.getLogger(__name__)
+
+ID_LENGTH = 32
+NAME_LENGTH = 200
+STATE_LENGTH = 16
+SQLITE_BUSY_TIMEOUT_S = 30
+
+
+class StoreUnavailableError(RuntimeError):
+    """The database cannot be reached."""
+
+
+def utc_now() -> datetime:
+    """The current time, timezone-aware UTC."""
+    return datetime.now(UTC)
+
+
+def _aware(moment: datetime) -> datetime:
+    # SQLite returns naive datetimes; every stored time is UTC.
+    return moment if moment.tzinfo is not None else moment.replace(tzinfo=UTC)
+
+
+class _Base(DeclarativeBase):
+    pass
+
+
+class _PlanRow(_Base):
+    __tablename__ = "plans"
+
+    id: Mapped[str] = mapped_column(sa.String(ID_LENGTH), primary_key=True)
+    created_at: Mapped[datetime] = mapped_column(sa.DateTime(timezone=True), index=True)
+    parent_id: Mapped[str | None] = mapped_column(sa.String(ID_LENGTH), index=True)
+    name: Mapped[str] = mapped_column(sa.String(NAME_LENGTH))
+    status: Mapped[str] = mapped_column(sa.String(STATE_LENGTH))
+    request_json: Mapped[str] = mapped_column(sa.Text)
+    plan_json: Mapped[str] = mapped_column(sa.Text)
+
+
+class _JobRow(_Base):
+    __tablename__ = "jobs"
+
+    id: Mapped[str] = mapped_column(sa.String(ID_LENGTH), primary_key=True)
+    name: Mapped[str] = mapped_column(sa.String(NAME_LENGTH))
+    state: Mapped[str] = mapped_column(sa.String(STATE_LENGTH), index=True)
+    created_at: Mapped[datetime] = mapped_column(sa.DateTime(timezone=True), index=True)
+    updated_at: Mapped[datetime] = mapped_column(sa.DateTime(timezone=True))
+    request_json: Mapped[str] = mapped_column(sa.Text)
+    progress_json: Mapped[str | None] = mapped_column(sa.Text)
+    plan_id: Mapped[str | None] = mapped_column(sa.String(ID_LENGTH))
+    error_json: Mapped[str | None] = mapped_column(sa.Text)
+
+
+@dataclass(frozen=True)
+class StoredPlan:
+    """A plan as stored, with the request that produced it."""
+
+    plan: PlanOut
+    request: PlanRequest
+
+
+@dataclass(frozen=True)
+class JobRecord:
+    """A job as stored, with its request."""
+
+    job: JobOut
+    request: PlanRequest
+
+
+def _make_engine(url: str) -> Engine:
+    if url.startswith("sqlite"):
+        connect_args: dict[str, Any] = {
+            "check_same_thread": False,
+            "timeout": SQLITE_BUSY_TIMEOUT_S,
+        }
+        return sa.create_engine(url, connect_args=connect_args)
+    return sa.create_engine(url, pool_pre_ping=True)
+
+
+class Store:
+    """Plans and jobs in one SQL database named by a SQLAlchemy URL."""
+
+    def __init__(self, url: str) -> None:
+        self.url = url
+        self._engine = _make_engine(url)
+        self._sessions = sessionmaker(self._engine, expire_on_commit=False)
+        self._schema_ready = False
+
+    def ensure_schema(self) -> None:
+        """Create missing tables; raises :class:`StoreUnavailableError` if unreachable."""
+        try:
+            _Base.metadata.create_all(self._engine)
+        except sa.exc.SQLAlchemyError as exc:
+            raise StoreUnavailableError(
+                f"cannot reach the store: {exc.__class__.__name__}"
+            ) from exc
+        self._schema_ready = True
+
+    def ping(self) -> None:
+        """Check the database answers (and has its tables); raises StoreUnavailableError."""
+        if not self._schema_ready:
+            self.ensure_schema()
+        try:
+            with self._engine.connect() as conn:
+                conn.execute(sa.text("SELECT 1"))
+        except sa.exc.SQLAlchemyError as exc:
+            raise StoreUnavailableError(
+                f"cannot reach the store: {exc.__class__.__name__}"
+            ) from exc
+
+    def close(self) -> None:
+        """Release every pooled connection."""
+        self._engine.dispose()
+
+    @contextmanager
+    def _session(self) -> Iterator[Session]:
+        with self._sessions() as session, session.begin():
+            yield session
+
+    # ------------------------------------------------------------------------ plans
+
+    def add_plan(self, plan: PlanOut, request: PlanRequest) -> None:
+        """Store a new plan (its ``id`` must be set)."""
+        if plan.id is None:
+            raise ValueError("plan.id is None; only identified plans are stored")
+        row = _PlanRow(
+            id=plan.id,
+            created_at=plan.created_at,
+            parent_id=plan.parent_id,
+            name=plan.name,
+            status=plan.status.value,
+            request_json=request.model_dump_json(),
+            plan_json=plan.model_dump_json(),
+        )
+        with self._session() as session:
+            session.add(row)
+
+    def get_plan(self, plan_id: str) -> StoredPlan | None:
+        """The stored plan with this id, or ``None``."""
+        with self._session() as session:
+            row = session.get(_PlanRow, plan_id)
+            if row is None:
+                return None
+            return StoredPlan(
+                plan=PlanOut.model_validate_json(row.plan_json),
+                request=PlanRequest.model_validate_json(row.request_json),
+            )
+
+    def list_plans(self, offset: int, limit: int) -> tuple[list[PlanListItem], int]:
+        """A page of plans, newest first, and the total count."""
+        query = (
+            sa.select(
+                _PlanRow.id, _PlanRow.name, _PlanRow.created_at, _PlanRow.parent_id, _PlanRow.status
+            )
+            .order_by(_PlanRow.created_at.desc(), _PlanRow.id)
+            .offset(offset)
+            .limit(limit)
+        )
+        with self._session() as session:
+            total = session.scalar(sa.select(sa.func.count()).select_from(_PlanRow)) or 0
+            items = [
+                PlanListItem(
+                    id=r.id,
+                    name=r.name,
+                    created_at=_aware(r.created_at),
+                    parent_id=r.parent_id,
+                    status=r.status,
+                )
+                for r in session.execute(query)
+            ]
+        return items, total
+
+    # ------------------------------------------------------------------------ jobs
+
+    def add_job(self, job_id: str, request: PlanRequest) -> JobOut:
+        """Store a new queued job."""
+        now = utc_now()
+        row = _JobRow(
+            id=job_id,
+            name=request.name,
+            state=JobState.QUEUED.value,
+            created_at=now,
+            updated_at=now,
+            request_json=request.model_dump_json(),
+            progress_json=None,
+            plan_id=None,
+            error_json=None,
+        )
+        with self._session() as session:
+            session.add(row)
+            return _job_out(row)
+
+    def get_job(self, job_id: str) -> JobRecord | None:
+        """The job with this id, or ``None``."""
+        with self._session() as session:
+            row = session.get(_JobRow, job_id)
+            if row is None:
+                return None
+            return JobRecord(_job_out(row), PlanRequest.model_validate_json(row.request_json))
+
+    def update_job(
+        self,
+        job_id: str,
+        *,
+        state: JobState | None = None,
+        progress: JobProgress | None = None,
+        plan_id: str | None = None,
+        error: dict[str, Any] | None = None,
+    ) -> None:
+        """Change a job's state, progress, plan or error (only the given ones)."""
+        values: dict[str, Any] = {"updated_at": utc_now()}
+        if state is not None:
+            values["state"] = state.value
+        if progress is not None:
+            values["progress_json"] = progress.model_dump_json()
+        if plan_id is not None:
+            values["plan_id"] = plan_id
+        if error is not None:
+            values["error_json"] = json.dumps(error)
+        with self._session() as session:
+            session.execute(sa.update(_JobRow).where(_JobRow.id == job_id).values(**values))
+
+    def unfinished_jobs(self) -> list[str]:
+        """Ids of jobs still queued or running, oldest first (to requeue after a restart)."""
+        states = [JobState.QUEUED.value, JobState.RUNNING.value]
+        query = sa.select(_JobRow.id).where(_JobRow.state.in_(states)).order_by(_JobRow.created_at)
+        with self._session() as session:
+            return list(session.scalars(query))
+
+    def count_jobs(self, state: JobState) -> int:
+        """How many jobs are in ``state``."""
+        query = sa.select(sa.func.count()).select_from(_JobRow).where(_JobRow.state == state.value)
+        with self._session() as session:
+            return int(session.scalar(query) or 0)
+
+
+def _job_out(row: _JobRow) -> JobOut:
+    progress = (
+        None if row.progress_json is None else JobProgress.model_validate_json(row.progress_json)
+    )
+    return JobOut(
+        id=row.id,
+        name=row.name,
+        state=JobState(row.state),
+        created_at=_aware(row.created_at),
+        updated_at=_aware(row.updated_at),
+        progress=progress,
+        plan_id=row.plan_id,
+        plan_url=None if row.plan_id is None else f"/v1/plans/{row.plan_id}",
+        error=None if row.error_json is None else json.loads(row.error_json),
+    )
