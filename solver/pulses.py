@@ -84,6 +84,8 @@ def raised_cosine(t: npt.ArrayLike, rolloff: float) -> FloatArray:
     singular = np.abs(np.abs(tt) - 1.0 / (2.0 * alpha)) < SINGULAR_TOLERANCE
     safe = np.where(singular, 1.0, denominator)
     regular = np.sinc(tt) * np.cos(np.pi * alpha * tt) / safe
+    if not singular.any():  # also avoids evaluating the limit for a subnormal α
+        return np.asarray(regular, dtype=np.float64)
     limit = (np.pi / 4.0) * np.sinc(1.0 / (2.0 * alpha))
     return np.asarray(np.where(singular, limit, regular), dtype=np.float64)
 
@@ -131,12 +133,14 @@ def root_raised_cosine(t: npt.ArrayLike, rolloff: float) -> FloatArray:
     denominator = np.where(singular, 1.0, denominator)
     regular = numerator / denominator
     value_zero = 1.0 - alpha + 4.0 * alpha / np.pi
-    quarter = np.pi / (4.0 * alpha)
-    value_quarter = (alpha / math.sqrt(2.0)) * (
-        (1.0 + 2.0 / np.pi) * np.sin(quarter) + (1.0 - 2.0 / np.pi) * np.cos(quarter)
-    )
-    out = np.where(at_quarter, value_quarter, regular)
-    return np.asarray(np.where(at_zero, value_zero, out), dtype=np.float64)
+    out = np.where(at_zero, value_zero, regular)
+    if at_quarter.any():  # also avoids evaluating the limit for a subnormal α
+        quarter = np.pi / (4.0 * alpha)
+        value_quarter = (alpha / math.sqrt(2.0)) * (
+            (1.0 + 2.0 / np.pi) * np.sin(quarter) + (1.0 - 2.0 / np.pi) * np.cos(quarter)
+        )
+        out = np.where(at_quarter, value_quarter, out)
+    return np.asarray(out, dtype=np.float64)
 
 
 def _window_values(window: Window, length: int) -> FloatArray:
@@ -238,7 +242,9 @@ def raised_cosine_spectrum(f: npt.ArrayLike, rolloff: float) -> FloatArray:
     edge = (1.0 + alpha) / 2.0
     if alpha == 0.0:
         return np.asarray(np.where(af <= edge, 1.0, 0.0), dtype=np.float64)
-    transition = 0.5 * (1.0 + np.cos(np.pi * (af - f1) / (edge - f1)))
+    with np.errstate(over="ignore"):  # a subnormal α overflows the ratio; clip handles it
+        position = np.clip((af - f1) / alpha, 0.0, 1.0)
+    transition = 0.5 * (1.0 + np.cos(np.pi * position))
     out = np.where(af <= f1, 1.0, np.where(af < edge, transition, 0.0))
     return np.asarray(out, dtype=np.float64)
 
