@@ -15,7 +15,7 @@ from importlib.metadata import PackageNotFoundError, version
 
 from fastapi import FastAPI
 
-from service.errors import install_error_handlers
+from service.errors import BodyLimitMiddleware, install_error_handlers
 from service.jobs import JobManager, Runtime, SolveFunction, SolveGate
 from service.metrics import Metrics, MetricsMiddleware
 from service.routes import carriers, health, jobs, modcods, plans
@@ -90,10 +90,10 @@ def create_app(settings: Settings | None = None, *, solve: SolveFunction | None 
         summary="Optimised, verified carrier plans for a licensed spectrum block",
         description=DESCRIPTION,
         lifespan=lifespan,
-        max_body_size=settings.max_body_bytes,
     )
     app.dependency_overrides[get_settings] = lambda: settings
     install_error_handlers(app)
+    app.add_middleware(BodyLimitMiddleware, limit_bytes=settings.max_body_bytes)
     app.add_middleware(MetricsMiddleware, metrics=metrics)
     for module in (plans, jobs, carriers, modcods, health):
         app.include_router(module.router)

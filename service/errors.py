@@ -5,6 +5,7 @@ Exception tree of the service::
     ServiceError
      ├── InvalidInputError     422  the request is well-formed JSON but not a valid problem
      ├── NotFoundError         404  no plan or job with that id
+     ├── BodyTooLargeError     413  the body exceeds the limit
      └── SolverBusyError       503  every solve slot and queue place is taken (with Retry-After)
 
 Also mapped here: :class:`solver.ProblemError` (422, naming its field), FastAPI's
@@ -29,11 +30,14 @@ from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException as StarletteHTTPException
+from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from solver.model import ProblemError
 
 __all__ = [
     "PROBLEM_JSON",
+    "BodyLimitMiddleware",
+    "BodyTooLargeError",
     "FieldIssue",
     "InvalidInputError",
     "NotFoundError",
@@ -80,6 +84,14 @@ class NotFoundError(ServiceError):
         super().__init__(f"no {kind} with id {resource_id!r}")
         self.kind = kind
         self.resource_id = resource_id
+
+
+class BodyTooLargeError(ServiceError):
+    """The request body is larger than the limit (bytes)."""
+
+    def __init__(self, limit_bytes: int) -> None:
+        super().__init__(f"request body larger than {limit_bytes} bytes")
+        self.limit_bytes = limit_bytes
 
 
 class SolverBusyError(ServiceError):
@@ -167,6 +179,8 @@ async def _on_service_error(request: Request, exc: Exception) -> JSONResponse:
         )
     if isinstance(exc, NotFoundError):
         return problem_response(404, slug="not-found", detail=str(exc), instance=path)
+    if isinstance(exc, BodyTooLargeError):
+        return problem_response(413, slug="body-too-large", detail=str(exc), instance=path)
     if isinstance(exc, SolverBusyError):
         headers = {"Retry-After": str(exc.retry_after_s)}
         return problem_response(
@@ -202,6 +216,43 @@ async def _on_unexpected(request: Request, exc: Exception) -> JSONResponse:
         detail="the service failed to answer this request; the error has been logged",
         instance=request.url.path,
     )
+
+
+class BodyLimitMiddleware:
+    """Refuses bodies over ``limit_bytes`` with a 413 problem document.
+
+    A declared ``Content-Length`` over the limit is answered at once; a streamed body is
+    counted as it arrives and :class:`BodyTooLargeError` is raised inside the route.
+    """
+
+    def __init__(self, app: ASGIApp, limit_bytes: int) -> None:
+        self.app = app
+        self.limit_bytes = limit_bytes
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+        declared = dict(scope.get("headers", [])).get(b"content-length")
+        if declared is not None and declared.isdigit() and int(declared) > self.limit_bytes:
+            error = BodyTooLargeError(self.limit_bytes)
+            response = problem_response(
+                413, slug="body-too-large", detail=str(error), instance=scope.get("path", "")
+            )
+            await response(scope, receive, send)
+            return
+        received = 0
+
+        async def counted() -> Message:
+            nonlocal received
+            message = await receive()
+            if message["type"] == "http.request":
+                received += len(message.get("body", b""))
+                if received > self.limit_bytes:
+                    raise BodyTooLargeError(self.limit_bytes)
+            return message
+
+        await self.app(scope, counted, send)
 
 
 def install_error_handlers(app: FastAPI) -> None:

@@ -1,0 +1,75 @@
+"""Helpers of the API tests: the small invented request, an in-process client, a solve double.
+
+Requests are small invented scenarios with short time limits so the whole API suite stays fast.
+"""
+
+from __future__ import annotations
+
+import copy
+import threading
+from collections.abc import AsyncIterator, Callable
+from contextlib import asynccontextmanager
+from typing import Any
+
+import httpx
+from fastapi import FastAPI
+
+from service.jobs import SolveFunction
+from solver.model import Plan, Problem, ProgressEvent
+
+SMALL_REQUEST: dict[str, Any] = {
+    "name": "test: invented two-link block",
+    "block": {"start_hz": 2.40e9, "stop_hz": 2.41e9, "raster_hz": 10e3},
+    "leakage_limit_db": 30.0,
+    "transmitter": {"filter_span_symbols": 16, "rolloffs": [0.2, 0.35]},
+    "coding": {"block_length_bits": 16200, "implementation_loss_db": 1.0},
+    "demands": [
+        {"id": "north", "min_rate_bps": 1e6, "target_rate_bps": 2e6, "esn0_db": 12.0},
+        {"id": "south", "min_rate_bps": 1e6, "target_rate_bps": 3e6, "cn0_dbhz": 78.0},
+    ],
+    "time_limit_s": 3.0,
+}
+
+
+def small_request(**changes: Any) -> dict[str, Any]:
+    """A deep copy of the small request with top-level fields replaced."""
+    request = copy.deepcopy(SMALL_REQUEST)
+    request.update(changes)
+    return request
+
+
+@asynccontextmanager
+async def serving(app: FastAPI) -> AsyncIterator[httpx.AsyncClient]:
+    """Run the app's lifespan and yield a client talking to it in-process."""
+    async with app.router.lifespan_context(app):
+        # The server-error middleware re-raises after answering (so servers log it); the
+        # client must see the answer, as it would over a socket.
+        transport = httpx.ASGITransport(app=app, raise_app_exceptions=False)
+        async with httpx.AsyncClient(transport=transport, base_url="http://testserver") as client:
+            yield client
+
+
+class BlockingSolve:
+    """A test double of ``solver.solve`` that waits until released, then calls the real one.
+
+    Only for tests of the service machinery (slots, 503, probes during a solve, job restart);
+    every plan it returns still comes from the real solver.
+    """
+
+    def __init__(self, real: SolveFunction) -> None:
+        self.real = real
+        self.release = threading.Event()
+        self.entered = threading.Semaphore(0)
+
+    def __call__(
+        self,
+        problem: Problem,
+        *,
+        progress: Callable[[ProgressEvent], None] | None = None,
+        cancel: threading.Event | None = None,
+    ) -> Plan:
+        self.entered.release()
+        while not self.release.wait(0.01):
+            if cancel is not None and cancel.is_set():
+                break
+        return self.real(problem, progress=progress, cancel=cancel)
