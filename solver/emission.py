@@ -49,6 +49,7 @@ __all__ = [
     "occupied_bandwidth_hz",
     "rapp_am_am",
     "saleh",
+    "simulate_amplifier_psd",
 ]
 
 logger = logging.getLogger(__name__)
@@ -275,6 +276,9 @@ class SpectrumProfile:
         Bin edges (one more than ``freq``).
     cumulative : ndarray
         Fraction of the total power below each edge (0 … 1).
+    upper_tail : ndarray
+        Fraction above each edge, summed from the top so that far upper bands keep full
+        relative precision (1 − ``cumulative`` would lose it below about 1e-13).
     nominal_bandwidth : float
         Nominal (allocated) width in multiples of Rs: 1 + α for an RRC carrier.
     """
@@ -283,6 +287,7 @@ class SpectrumProfile:
     psd: FloatArray
     edges: FloatArray
     cumulative: FloatArray
+    upper_tail: FloatArray
     nominal_bandwidth: float
     _table: _LeakageTable = field(repr=False)
     _guard_cache: dict[tuple[float, str], float] = field(default_factory=dict, repr=False)
@@ -319,10 +324,12 @@ class SpectrumProfile:
             raise ValueError(f"{nominal_bandwidth=} must be > 0 and fit in the grid")
         psd = d / (float(d.sum()) * step)
         edges = np.concatenate([f - step / 2, [f[-1] + step / 2]])
-        cumulative = np.concatenate([[0.0], np.cumsum(psd) * step])
-        cumulative /= cumulative[-1]
-        table = _leakage_table(edges, cumulative, float(nominal_bandwidth))
-        return cls(f, psd, edges, cumulative, float(nominal_bandwidth), table)
+        cumulative = np.concatenate([[0.0], np.cumsum(psd)])
+        upper_tail = np.concatenate([np.cumsum(psd[::-1])[::-1], [0.0]])
+        cumulative, upper_tail = cumulative / cumulative[-1], upper_tail / upper_tail[0]
+        width = float(nominal_bandwidth)
+        table = _leakage_table(_Bands(edges, cumulative, upper_tail), width)
+        return cls(f, psd, edges, cumulative, upper_tail, width, table)
 
     @property
     def max_gap(self) -> float:
@@ -338,8 +345,7 @@ class SpectrumProfile:
         """
         if not f_lo <= f_hi:
             raise ValueError(f"{f_lo=} must not exceed {f_hi=}")
-        band = np.interp([f_lo, f_hi], self.edges, self.cumulative)
-        return float(band[1] - band[0])
+        return float(self._bands.power(np.float64(f_lo), np.float64(f_hi)))
 
     def occupied_bandwidth(self, fraction: float = 0.99) -> float:
         """Occupied bandwidth (Rs units): (1 − fraction)/2 of the power below and above.
@@ -376,20 +382,12 @@ class SpectrumProfile:
         where = np.asarray(f, dtype=np.float64)
         return np.asarray(np.interp(where, self.freq, self.psd, left=0.0, right=0.0))
 
+    @property
+    def _bands(self) -> _Bands:
+        return _Bands(self.edges, self.cumulative, self.upper_tail)
+
     def _leak(self, gap: FloatArray, side: str) -> FloatArray:
-        half = self.nominal_bandwidth / 2.0
-        width = self.nominal_bandwidth
-        if side == "above":
-            lo, hi = half + gap, half + gap + width
-        else:
-            lo, hi = -half - gap - width, -half - gap
-        own = np.interp(half, self.edges, self.cumulative) - np.interp(
-            -half, self.edges, self.cumulative
-        )
-        adjacent = np.interp(hi, self.edges, self.cumulative) - np.interp(
-            lo, self.edges, self.cumulative
-        )
-        return np.asarray(np.maximum(adjacent, 0.0) / own, dtype=np.float64)
+        return _adjacent_to_own(self._bands, self.nominal_bandwidth, gap, side)
 
     def _checked_gap(self, gap: npt.ArrayLike, side: str) -> FloatArray:
         if side not in _SIDES:
@@ -491,8 +489,35 @@ class SpectrumProfile:
         return g0 + (l0 - threshold) / (l0 - l1) * (g1 - g0)
 
 
-def _leakage_table(edges: FloatArray, cumulative: FloatArray, width: float) -> _LeakageTable:
+@dataclass(frozen=True, eq=False)
+class _Bands:
+    """Band powers from cumulative sums: the lower sum for bands reaching below 0, the upper
+    sum for bands wholly above 0, so that a far band's power keeps full relative precision."""
+
+    edges: FloatArray
+    below: FloatArray
+    above: FloatArray
+
+    def power(self, lo: npt.ArrayLike, hi: npt.ArrayLike) -> FloatArray:
+        lo_, hi_ = np.asarray(lo, dtype=np.float64), np.asarray(hi, dtype=np.float64)
+        from_below = np.interp(hi_, self.edges, self.below) - np.interp(lo_, self.edges, self.below)
+        from_above = np.interp(lo_, self.edges, self.above) - np.interp(hi_, self.edges, self.above)
+        band = np.where(lo_ >= 0, from_above, from_below)
+        return np.asarray(np.maximum(band, 0.0), dtype=np.float64)
+
+
+def _adjacent_to_own(bands: _Bands, width: float, gap: FloatArray, side: str) -> FloatArray:
+    """Adjacent-band power over own-band power (linear) at edge-to-edge ``gap`` (Rs units)."""
     half = width / 2.0
+    if side == "above":
+        adjacent = bands.power(half + gap, half + gap + width)
+    else:
+        adjacent = bands.power(-half - gap - width, -half - gap)
+    return np.asarray(adjacent / bands.power(-half, half), dtype=np.float64)
+
+
+def _leakage_table(bands: _Bands, width: float) -> _LeakageTable:
+    edges, half = bands.edges, width / 2.0
     max_gap = min(float(edges[-1]) - half - width, -half - width - float(edges[0]))
     if max_gap <= 0:
         raise ValueError(f"the grid (±{edges[-1]:.3f} Rs) is too narrow for width {width}")
@@ -500,15 +525,8 @@ def _leakage_table(edges: FloatArray, cumulative: FloatArray, width: float) -> _
         [edges - half, edges - half - width, -half - edges, -half - width - edges, [0, max_gap]]
     )
     gaps = np.unique(candidates[(candidates >= 0) & (candidates <= max_gap)])
-    own = float(np.diff(np.interp([-half, half], edges, cumulative))[0])
-    leak: dict[str, FloatArray] = {}
-    envelope: dict[str, FloatArray] = {}
-    for side, sign in (("above", 1.0), ("below", -1.0)):
-        near = sign * (half + gaps)
-        far = sign * (half + gaps + width)
-        band = np.abs(np.interp(far, edges, cumulative) - np.interp(near, edges, cumulative))
-        leak[side] = band / own
-        envelope[side] = np.maximum.accumulate(leak[side][::-1])[::-1]
+    leak = {side: _adjacent_to_own(bands, width, gaps, side) for side in ("above", "below")}
+    envelope = {side: np.maximum.accumulate(v[::-1])[::-1] for side, v in leak.items()}
     return _LeakageTable(gaps, leak, envelope)
 
 
