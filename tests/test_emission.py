@@ -6,6 +6,7 @@ tests/reference/test_emission_reference.py.
 
 from __future__ import annotations
 
+import itertools
 import math
 from concurrent.futures import ThreadPoolExecutor
 
@@ -16,6 +17,7 @@ from hypothesis import strategies as st
 
 from solver.emission import (
     EmissionKey,
+    Side,
     SpectrumProfile,
     build_profile,
     get_profile,
@@ -33,7 +35,7 @@ LINEAR_KEYS = [
     for span in (6, 16)
     for window in (Window.NONE, Window.HANN)
 ]
-SIDES = st.sampled_from(["below", "above", "worst"])
+SIDES: st.SearchStrategy[Side] = st.sampled_from(["below", "above", "worst"])
 PROPERTY = settings(max_examples=40, deadline=None)
 
 
@@ -150,7 +152,7 @@ def test_bad_queries_are_named() -> None:
     with pytest.raises(ValueError, match="gap"):
         profile.leakage_ratio_db(profile.max_gap + 1)
     with pytest.raises(ValueError, match="side"):
-        profile.leakage_ratio_db(0.1, "left")  # type: ignore[arg-type]
+        profile.leakage_ratio_db(0.1, "left")  # type: ignore[call-overload]
     with pytest.raises(ValueError, match="fraction"):
         profile.occupied_bandwidth(1.0)
     with pytest.raises(ValueError, match="limit_db"):
@@ -180,13 +182,13 @@ def test_hz_helpers_scale_the_normalised_profile() -> None:
     side=SIDES,
 )
 def test_envelope_never_decreases_and_bounds_the_ratio(
-    key: EmissionKey, gaps: list[float], side: str
+    key: EmissionKey, gaps: list[float], side: Side
 ) -> None:
     profile = get_profile(key)
     ordered = np.sort(np.array(gaps))
-    envelope = profile.leakage_envelope_db(ordered, side)  # type: ignore[arg-type]
+    envelope = profile.leakage_envelope_db(ordered, side)
     assert np.all(np.diff(envelope) >= 0)
-    assert np.all(envelope <= profile.leakage_ratio_db(ordered, side) + 1e-12)  # type: ignore[arg-type]
+    assert np.all(envelope <= profile.leakage_ratio_db(ordered, side) + 1e-12)
 
 
 @PROPERTY
@@ -195,20 +197,22 @@ def test_envelope_never_decreases_and_bounds_the_ratio(
     limits=st.lists(st.floats(10.0, 90.0), min_size=2, max_size=6),
     side=SIDES,
 )
-def test_guard_is_monotone_and_sufficient(key: EmissionKey, limits: list[float], side: str) -> None:
+def test_guard_is_monotone_and_sufficient(
+    key: EmissionKey, limits: list[float], side: Side
+) -> None:
     profile = get_profile(key)
     ordered = sorted(limits)
-    guards = [profile.guard_needed(limit, side) for limit in ordered]  # type: ignore[arg-type]
-    assert all(a <= b for a, b in zip(guards, guards[1:], strict=False))
+    guards = [profile.guard_needed(limit, side) for limit in ordered]
+    assert all(a <= b for a, b in itertools.pairwise(guards))
     for limit, guard in zip(ordered, guards, strict=True):
         if math.isinf(guard):
             continue
         beyond = np.linspace(guard, profile.max_gap, 400)
         # Exact by construction (linear interpolation inside a linear piece): the slack
         # covers only floating-point rounding of 10·log10 near the crossing.
-        assert np.min(profile.leakage_ratio_db(beyond, side)) >= limit - 1e-6  # type: ignore[arg-type]
+        assert np.min(profile.leakage_ratio_db(beyond, side)) >= limit - 1e-6
         if guard > 0:  # and just before the guard the limit is broken somewhere
-            before = profile.leakage_envelope_db(max(guard - 1e-3, 0.0), side)  # type: ignore[arg-type]
+            before = profile.leakage_envelope_db(max(guard - 1e-3, 0.0), side)
             assert before < limit
 
 
