@@ -7,8 +7,9 @@ receiver only sees the in-phase noise), two for the others.
 
 Geometry and labelling, per modulation:
 
-* BPSK, QPSK, 8PSK: points exp(j·2πk/M) (QPSK and 8PSK rotated by π/M), binary-reflected Gray
-  label of k, so neighbouring points differ in one bit.
+* BPSK: ±1 on the real axis (label 0 at −1).
+* QPSK, 8PSK: points exp(j·(2πk/M + π/M)), binary-reflected Gray label of k, so neighbouring
+  points differ in one bit.
 * 4PAM, 8PAM: levels −(M−1), …, −1, 1, …, M−1 (scaled), Gray label of the level index.
 * 16QAM, 64QAM, 256QAM: the product of two √M-PAM axes, each Gray labelled; the in-phase
   label forms the high bits.
@@ -125,8 +126,7 @@ def _unit_energy(points: ComplexArray) -> ComplexArray:
 
 def _psk(order: int) -> tuple[ComplexArray, IntArray]:
     index = np.arange(order)
-    offset = 0.0 if order == 2 else math.pi / order
-    return np.exp(1j * (2 * math.pi * index / order + offset)), gray_code(index)
+    return np.exp(1j * (2 * math.pi * index + math.pi) / order), gray_code(index)
 
 
 def _pam_levels(order: int) -> tuple[FloatArray, IntArray]:
@@ -194,7 +194,7 @@ def _apsk32() -> tuple[ComplexArray, IntArray]:
 
 
 _BUILDERS = {
-    Modulation.BPSK: lambda: _psk(2),
+    Modulation.BPSK: lambda: _pam(2),
     Modulation.QPSK: lambda: _psk(4),
     Modulation.PSK8: lambda: _psk(8),
     Modulation.QAM16: lambda: _square_qam(16),
