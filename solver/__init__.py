@@ -29,6 +29,10 @@ from solver.model import (
     format_code_rate,
     parse_code_rate,
 )
+from solver.planner import solve
+from solver.rules import rule_of_thumb_plan
+from solver.validation import validate_problem
+from solver.verify import Verification, Violation, verify_plan
 
 __all__ = [
     "Amplifier",
@@ -52,7 +56,13 @@ __all__ = [
     "Transmitter",
     "Unserved",
     "UnservedReason",
+    "Verification",
+    "Violation",
     "Window",
     "format_code_rate",
     "parse_code_rate",
+    "rule_of_thumb_plan",
+    "solve",
+    "validate_problem",
+    "verify_plan",
 ]

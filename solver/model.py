@@ -253,7 +253,11 @@ class Demand:
 
 @dataclass(frozen=True)
 class Problem:
-    """A complete planning request."""
+    """A complete planning request.
+
+    ``retune_penalty`` is what moving one carrier costs in a replan, as a fraction of the
+    objective once admission is settled (0.02: a move must gain 2 %).
+    """
 
     block: Block
     demands: tuple[Demand, ...]
@@ -262,7 +266,7 @@ class Problem:
     transmitter: Transmitter = field(default_factory=Transmitter)
     coding: Coding = field(default_factory=Coding)
     objective: Objective = Objective.MAX_THROUGHPUT
-    retune_penalty: float = 1.0
+    retune_penalty: float = 0.02
     time_limit_s: float = 10.0
     num_workers: int = 2
     seed: int = 1

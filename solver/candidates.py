@@ -1,0 +1,448 @@
+"""Feasible carrier configurations for one demand, with dominated ones pruned.
+
+For every catalogue entry (modulation, code rate) and every roll-off of the transmitter, the
+allocated widths between the demand's minimum rate and what its target rate needs (or what the
+link still closes at, whichever is smaller) are laid on a geometric grid with a step of
+:data:`WIDTH_STEP` (1 %), each rounded up to an even number of raster steps so that the carrier
+centre sits on the raster.  The symbol rate then fills the rounded width, unless the link would
+no longer close.  All candidates are computed at once with numpy per demand, then pruned to the
+Pareto front of (spectrum cost, throughput) and thinned to at most ``max_per_demand``.
+
+Spectrum cost is counted in integer raster units, the solver's only grid:
+
+* ``width_units`` — the allocated width Rs(1 + α) rounded up to an even number of raster steps;
+* ``guard_units`` — the guard the carrier needs at the plan's leakage limit;
+* ``edge_units`` — the guard it needs towards a block edge or exclusion (edge limit).
+"""
+
+from __future__ import annotations
+
+import functools
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import NamedTuple
+
+import numpy as np
+from numpy.typing import NDArray
+
+from solver import emission, link, modcod
+from solver.model import (
+    CarrierConfig,
+    CodeRate,
+    Coding,
+    Demand,
+    Modulation,
+    Objective,
+    Problem,
+    Transmitter,
+    format_code_rate,
+)
+from solver.verify import INTERFERENCE_ALLOWANCE_DB
+
+__all__ = [
+    "WIDTH_STEP",
+    "Candidate",
+    "DemandOptions",
+    "build_candidates",
+    "candidate_for",
+    "emission_key",
+]
+
+WIDTH_STEP = 1.01
+"""Ratio between neighbouring widths of the candidate grid (rounding loses under 1 % of width)."""
+
+DEFAULT_MAX_PER_DEMAND = 40
+"""Candidates kept per demand after Pareto pruning (thinned evenly in log-throughput)."""
+
+
+@dataclass(frozen=True)
+class Candidate:
+    """A carrier configuration with its cost on the solver's raster grid."""
+
+    config: CarrierConfig
+    width_units: int
+    guard_units: int
+    edge_units: int
+
+    @property
+    def throughput_bps(self) -> float:
+        return self.config.throughput_bps
+
+
+@dataclass(frozen=True)
+class DemandOptions:
+    """Every kept candidate of one demand, and why there are none when the list is empty."""
+
+    demand: Demand
+    candidates: tuple[Candidate, ...]
+    best_link_detail: str
+
+
+@dataclass(frozen=True)
+class _Combos:
+    """Every (catalogue entry, roll-off) pair allowed for a demand, as parallel arrays."""
+
+    modulation: tuple[Modulation, ...]
+    code_rate: tuple[CodeRate, ...]
+    bits_per_symbol: NDArray[np.int64]
+    net_bits_per_symbol: NDArray[np.float64]
+    required_esn0_db: NDArray[np.float64]
+    rolloff: NDArray[np.float64]
+    occupied_per_baud: NDArray[np.float64]
+    keys: tuple[emission.EmissionKey, ...]
+
+    @property
+    def size(self) -> int:
+        return len(self.modulation)
+
+
+def emission_key(problem: Problem, modulation: Modulation, rolloff: float) -> emission.EmissionKey:
+    """The spectrum-profile key of a carrier of this problem."""
+    return _key(problem.transmitter, modulation, rolloff)
+
+
+def _key(tx: Transmitter, modulation: Modulation, rolloff: float) -> emission.EmissionKey:
+    return emission.EmissionKey(
+        rolloff=rolloff,
+        span_symbols=tx.filter_span_symbols,
+        window=tx.window,
+        amplifier=tx.amplifier,
+        modulation=modulation,
+    )
+
+
+def _undominated(
+    entries: Sequence[modcod.ModcodEntry], across_modulations: bool
+) -> list[modcod.ModcodEntry]:
+    """Entries no other entry beats on both efficiency and required Es/N0.
+
+    Through an amplifier the spectrum depends on the modulation, so entries only compete with
+    entries of the same modulation; with a linear transmitter every entry competes.
+    """
+    finite = [e for e in entries if math.isfinite(e.required_esn0_db)]
+    kept = []
+    for e in finite:
+        beaten = any(
+            (across_modulations or o.modulation == e.modulation)
+            and o.spectral_efficiency_bps_per_hz >= e.spectral_efficiency_bps_per_hz
+            and o.required_esn0_db <= e.required_esn0_db
+            and (
+                o.spectral_efficiency_bps_per_hz > e.spectral_efficiency_bps_per_hz
+                or o.required_esn0_db < e.required_esn0_db
+            )
+            for o in finite
+        )
+        if not beaten:
+            kept.append(e)
+    return kept
+
+
+@functools.lru_cache(maxsize=256)
+def _combos(coding: Coding, tx: Transmitter, modulations: tuple[Modulation, ...]) -> _Combos:
+    """Catalogue × roll-offs, computed once per (coding, transmitter, allowed modulations)."""
+    rows = []
+    for entry in _undominated(modcod.catalogue(coding, modulations or None), tx.amplifier is None):
+        rate = 1.0 if entry.code_rate is None else float(entry.code_rate)
+        net = entry.bits_per_symbol * rate * (1.0 - coding.framing_overhead)
+        for rolloff in tx.rolloffs:
+            key = _key(tx, entry.modulation, rolloff)
+            occupied = emission.get_profile(key).occupied_bandwidth()
+            rows.append((entry, net, rolloff, key, occupied))
+    return _Combos(
+        modulation=tuple(r[0].modulation for r in rows),
+        code_rate=tuple(r[0].code_rate for r in rows),
+        bits_per_symbol=np.array([r[0].bits_per_symbol for r in rows], dtype=np.int64),
+        net_bits_per_symbol=np.array([r[1] for r in rows]),
+        required_esn0_db=np.array([r[0].required_esn0_db for r in rows]),
+        rolloff=np.array([r[2] for r in rows]),
+        occupied_per_baud=np.array([r[4] for r in rows]),
+        keys=tuple(r[3] for r in rows),
+    )
+
+
+def _guard_per_baud(
+    combos: _Combos, combo_index: NDArray[np.int64], limits_db: NDArray[np.float64]
+) -> NDArray[np.float64]:
+    """Guard (Rs units) of each combo at each limit, looked up once per distinct pair."""
+    half_db = np.ceil(limits_db * 2.0 - 1e-9).astype(np.int64)  # rounded up to 0.5 dB: safe side
+    codes = combo_index * 1_000_000 + half_db
+    unique, inverse = np.unique(codes, return_inverse=True)
+    values = np.array(
+        [
+            _profile(combos, int(u // 1_000_000)).guard_needed(float(u % 1_000_000) / 2.0)
+            for u in unique
+        ]
+    )
+    return np.asarray(values[inverse.reshape(-1)], dtype=np.float64)
+
+
+def _profile(combos: _Combos, index: int) -> emission.SpectrumProfile:
+    return emission.get_profile(combos.keys[index])
+
+
+def _max_symbol_rate_baud(
+    demand: Demand, required_esn0_db: NDArray[np.float64]
+) -> NDArray[np.float64]:
+    """Largest symbol rate at which each combo still closes the link with the demand's margin."""
+    if demand.cn0_dbhz is not None:
+        return np.asarray(10.0 ** ((demand.cn0_dbhz - required_esn0_db - demand.margin_db) / 10.0))
+    esn0 = demand.esn0_db if demand.esn0_db is not None else -math.inf
+    return np.where(esn0 - required_esn0_db >= demand.margin_db, np.inf, 0.0)
+
+
+def _esn0_db(demand: Demand, symbol_rate_baud: NDArray[np.float64]) -> NDArray[np.float64]:
+    if demand.cn0_dbhz is not None:
+        return np.asarray(demand.cn0_dbhz - 10.0 * np.log10(symbol_rate_baud))
+    esn0 = demand.esn0_db if demand.esn0_db is not None else -math.inf
+    return np.full_like(symbol_rate_baud, esn0)
+
+
+def _even_units(width_hz: NDArray[np.float64], raster_hz: float) -> NDArray[np.int64]:
+    units = np.ceil(width_hz / raster_hz - 1e-9).astype(np.int64)
+    return np.asarray(units + (units % 2), dtype=np.int64)
+
+
+class _Grid(NamedTuple):
+    combo_index: NDArray[np.int64]
+    width_units: NDArray[np.int64]
+    symbol_rate_baud: NDArray[np.float64]
+
+
+def _width_grid(combos: _Combos, demand: Demand, raster_hz: float, max_width_hz: float) -> _Grid:
+    """All (combo, width) pairs between the minimum rate and min(target, link limit)."""
+    net, alpha = combos.net_bits_per_symbol, combos.rolloff
+    rs_link = _max_symbol_rate_baud(demand, combos.required_esn0_db)
+    rs_min = demand.min_rate_bps / net
+    rs_hi = np.minimum(demand.target_rate_bps / net, rs_link)
+    ok = (rs_hi >= rs_min * (1 - 1e-12)) & (rs_min * (1 + alpha) <= max_width_hz)
+    idx = np.flatnonzero(ok)
+    if idx.size == 0:
+        empty = np.zeros(0, dtype=np.int64)
+        return _Grid(empty, empty, np.zeros(0))
+    lo = _even_units(rs_min[idx] * (1 + alpha[idx]), raster_hz)
+    hi = np.maximum(_even_units(rs_hi[idx] * (1 + alpha[idx]), raster_hz), lo)
+    steps = (np.ceil(np.log(hi / lo) / math.log(WIDTH_STEP)) + 1).astype(np.int64)
+    combo_index = np.repeat(idx, steps)
+    offsets = np.arange(int(steps.sum())) - np.repeat(np.cumsum(steps) - steps, steps)
+    raw = np.repeat(lo, steps) * WIDTH_STEP**offsets
+    width_units = np.minimum(_even_units(raw * raster_hz, raster_hz), np.repeat(hi, steps))
+    keep = np.unique(combo_index * (int(width_units.max()) + 1) + width_units, return_index=True)[1]
+    combo_index, width_units = combo_index[keep], width_units[keep]
+    fill_rate = width_units * raster_hz / (1 + alpha[combo_index])
+    rs = np.minimum(fill_rate, rs_hi[combo_index])
+    return _Grid(combo_index, width_units, np.maximum(rs, rs_min[combo_index]))
+
+
+def _pareto(
+    cost: NDArray[np.int64], value: NDArray[np.float64], tiebreak: NDArray[np.float64]
+) -> NDArray[np.int64]:
+    """Indices on the front: no other point has cost <= and value >= (one strictly better)."""
+    order = np.lexsort((tiebreak, -value, cost))
+    ordered = value[order]
+    best_before = np.concatenate(([-np.inf], np.maximum.accumulate(ordered)[:-1]))
+    return np.asarray(order[ordered > best_before * (1 + 1e-9) + 1e-9], dtype=np.int64)
+
+
+def _thin(indices: NDArray[np.int64], value: NDArray[np.float64], limit: int) -> NDArray[np.int64]:
+    """Keep at most ``limit`` points, evenly spread in log(value), always keeping both ends."""
+    if indices.size <= limit:
+        return indices
+    logs = np.log(value[indices])
+    targets = np.linspace(logs[0], logs[-1], limit)
+    picks = np.unique(np.searchsorted(logs, targets).clip(0, indices.size - 1))
+    return np.asarray(indices[picks], dtype=np.int64)
+
+
+def _immunity_limit_db(
+    esn0_db: NDArray[np.float64],
+    margin_db: NDArray[np.float64],
+    demand: Demand,
+    weakest_gap_db: float,
+) -> NDArray[np.float64]:
+    """Leakage ratio the neighbours must keep so interference costs at most the allowance.
+
+    With margin m above the requirement and the demand asking for m0, interference may lower
+    Es/N0 by Δ = m - m0 + allowance, which needs C/I ≥ Es/N0 - 10·log10(10^(Δ/10) - 1); two
+    neighbours share it (+3 dB), and a carrier below the others' level needs that much more.
+    The result is rounded up to 0.5 dB so the guard search runs for few distinct limits.
+    """
+    allowed = np.maximum(margin_db - demand.margin_db, 0.0) + INTERFERENCE_ALLOWANCE_DB
+    c_over_i = esn0_db - 10.0 * np.log10(10.0 ** (allowed / 10.0) - 1.0)
+    needed = c_over_i + 10.0 * math.log10(2.0) + weakest_gap_db
+    return np.ceil(needed * 2.0) / 2.0
+
+
+def build_candidates(
+    problem: Problem,
+    demand: Demand,
+    *,
+    max_per_demand: int = DEFAULT_MAX_PER_DEMAND,
+    max_width_hz: float | None = None,
+) -> DemandOptions:
+    """Every useful configuration of ``demand``: closes its link, meets its minimum rate.
+
+    A candidate's guard is the larger of the gap that keeps its own leakage ratio at the plan's
+    limit and the gap that keeps interference from its neighbours within the allowance (see
+    :func:`_immunity_limit_db`); its edge guard keeps the edge limit.
+
+    Parameters
+    ----------
+    problem : Problem
+        Supplies the catalogue's coding parameters, the roll-offs and the leakage limits.
+    demand : Demand
+        The demand to serve.
+    max_per_demand : int
+        Upper bound on the number of candidates kept after Pareto pruning.
+    max_width_hz : float, optional
+        Widest allocation worth considering (the largest free segment); defaults to the block.
+
+    Returns
+    -------
+    DemandOptions
+        Candidates sorted by increasing throughput; empty with a reason when none closes.
+    """
+    raster = problem.block.raster_hz
+    combos = _combos(problem.coding, problem.transmitter, tuple(demand.modulations))
+    widest = problem.block.width_hz if max_width_hz is None else max_width_hz
+    grid = _width_grid(combos, demand, raster, widest)
+    if grid.width_units.size == 0:
+        return DemandOptions(demand, (), _no_link_detail(problem, demand, combos))
+    idx, rs = grid.combo_index, grid.symbol_rate_baud
+    throughput = rs * combos.net_bits_per_symbol[idx]
+    esn0 = _esn0_db(demand, rs)
+    margin = esn0 - combos.required_esn0_db[idx]
+    weakest = max(d.relative_level_db for d in problem.demands) - demand.relative_level_db
+    limit = np.maximum(problem.leakage_limit_db, _immunity_limit_db(esn0, margin, demand, weakest))
+    guard = _guard_per_baud(combos, idx, limit) * rs
+    edge = _guard_per_baud(combos, idx, np.full(idx.size, problem.edge_limit_db)) * rs
+    usable = np.isfinite(guard) & np.isfinite(edge)
+    guard_units = np.ceil(np.where(usable, guard, 0.0) / raster - 1e-9).astype(np.int64)
+    edge_units = np.ceil(np.where(usable, edge, 0.0) / raster - 1e-9).astype(np.int64)
+    capped = np.minimum(throughput, demand.target_rate_bps)
+    cost = grid.width_units + guard_units
+    kept = _front(problem.objective, cost, capped, margin, edge_units, usable)
+    kept = _thin(kept[np.argsort(capped[kept], kind="stable")], capped, max_per_demand)
+    out = []
+    for i in kept:
+        c = int(idx[i])
+        config = CarrierConfig(
+            demand_id=demand.id,
+            modulation=combos.modulation[c],
+            code_rate=combos.code_rate[c],
+            rolloff=float(combos.rolloff[c]),
+            symbol_rate_baud=float(rs[i]),
+            bits_per_symbol=int(combos.bits_per_symbol[c]),
+            allocated_bandwidth_hz=float(rs[i] * (1 + combos.rolloff[c])),
+            occupied_bandwidth_hz=float(rs[i] * combos.occupied_per_baud[c]),
+            guard_hz=float(guard[i]),
+            edge_guard_hz=float(edge[i]),
+            throughput_bps=float(throughput[i]),
+            esn0_db=float(esn0[i]),
+            required_esn0_db=float(combos.required_esn0_db[c]),
+        )
+        out.append(
+            Candidate(config, int(grid.width_units[i]), int(guard_units[i]), int(edge_units[i]))
+        )
+    return DemandOptions(demand, tuple(out), "")
+
+
+def _front(
+    objective: Objective,
+    cost: NDArray[np.int64],
+    capped: NDArray[np.float64],
+    margin: NDArray[np.float64],
+    edge_units: NDArray[np.int64],
+    usable: NDArray[np.bool_],
+) -> NDArray[np.int64]:
+    """Pareto front for the objective: (cost, throughput), and (cost, margin) for max_margin."""
+    pool = np.flatnonzero(usable)
+    if pool.size == 0:
+        return pool
+    front = pool[_pareto(cost[pool], capped[pool], edge_units[pool].astype(float))]
+    if objective is Objective.MAX_MARGIN:
+        by_margin = pool[_pareto(cost[pool], margin[pool], -capped[pool])]
+        front = np.union1d(front, by_margin)
+    return np.asarray(front, dtype=np.int64)
+
+
+def _no_link_detail(problem: Problem, demand: Demand, combos: _Combos) -> str:
+    """Words for a demand that no configuration can serve."""
+    if combos.size == 0:
+        return "no modulation of the catalogue is allowed for this demand"
+    easiest = int(np.argmin(combos.required_esn0_db))
+    net = float(combos.net_bits_per_symbol[easiest])
+    rs_min = demand.min_rate_bps / net
+    name = f"{combos.modulation[easiest]} {format_code_rate(combos.code_rate[easiest])}"
+    if demand.cn0_dbhz is not None:
+        esn0 = link.esn0_from_cn0_db(demand.cn0_dbhz, rs_min)
+        where = f"C/N0 {demand.cn0_dbhz:.1f} dBHz gives Es/N0 {esn0:.1f} dB at {rs_min:,.0f} Bd"
+    else:
+        esn0 = demand.esn0_db if demand.esn0_db is not None else -math.inf
+        where = f"Es/N0 is {esn0:.1f} dB"
+    needed = float(combos.required_esn0_db[easiest]) + demand.margin_db
+    if needed > esn0:
+        return (
+            f"no modulation closes the link even at the minimum rate: {where}, but the most "
+            f"robust entry ({name}) needs {needed:.1f} dB including the {demand.margin_db:.1f} dB "
+            "margin"
+        )
+    width = rs_min * (1 + float(combos.rolloff[easiest]))
+    return (
+        f"the minimum rate needs at least {width:,.0f} Hz of allocated width, more than the "
+        f"{problem.block.width_hz:,.0f} Hz block allows"
+    )
+
+
+def candidate_for(
+    problem: Problem,
+    demand: Demand,
+    modulation: Modulation,
+    code_rate: CodeRate,
+    rolloff: float,
+    symbol_rate_baud: float,
+) -> Candidate | None:
+    """The candidate for one exact configuration, or None when it no longer serves the demand.
+
+    Used for replans: a carrier may stay as it is only if its link still closes with the
+    demand's margin and it still carries the minimum rate.
+    """
+    entry = modcod.required_esn0_db(modulation, code_rate, problem.coding)
+    if not math.isfinite(entry):
+        return None
+    bits = modcod.constellation(modulation).bits_per_symbol
+    throughput = link.throughput_bps(
+        symbol_rate_baud, bits, code_rate, problem.coding.framing_overhead
+    )
+    esn0 = float(_esn0_db(demand, np.array([symbol_rate_baud]))[0])
+    if throughput < demand.min_rate_bps * (1 - 1e-9) or esn0 - entry < demand.margin_db:
+        return None
+    profile = emission.get_profile(emission_key(problem, modulation, rolloff))
+    weakest = max(d.relative_level_db for d in problem.demands) - demand.relative_level_db
+    immunity = _immunity_limit_db(np.array([esn0]), np.array([esn0 - entry]), demand, weakest)
+    limit = max(problem.leakage_limit_db, float(immunity[0]))
+    guard = profile.guard_needed(limit) * symbol_rate_baud
+    edge = profile.guard_needed(problem.edge_limit_db) * symbol_rate_baud
+    if not (math.isfinite(guard) and math.isfinite(edge)):
+        return None
+    raster = problem.block.raster_hz
+    allocated = symbol_rate_baud * (1 + rolloff)
+    config = CarrierConfig(
+        demand_id=demand.id,
+        modulation=modulation,
+        code_rate=code_rate,
+        rolloff=rolloff,
+        symbol_rate_baud=symbol_rate_baud,
+        bits_per_symbol=bits,
+        allocated_bandwidth_hz=allocated,
+        occupied_bandwidth_hz=symbol_rate_baud * profile.occupied_bandwidth(),
+        guard_hz=guard,
+        edge_guard_hz=edge,
+        throughput_bps=throughput,
+        esn0_db=esn0,
+        required_esn0_db=entry,
+    )
+    width = int(_even_units(np.array([allocated]), raster)[0])
+    return Candidate(
+        config, width, math.ceil(guard / raster - 1e-9), math.ceil(edge / raster - 1e-9)
+    )

@@ -1,0 +1,572 @@
+"""The planning entry point: a :class:`Problem` in, a verified :class:`Plan` out.
+
+Flow: validate → pinned carriers fixed → free segments → candidates per demand → CP-SAT
+packing → positions by sorting → independent verification.  A plan that fails verification is
+never returned: the carriers to blame get a larger guard (a cut) and the packing is solved
+again; after :data:`MAX_REPAIR_ROUNDS` the carriers still to blame are left out, with the reason.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import threading
+import time
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, replace
+
+from solver import bounds
+from solver.candidates import Candidate, DemandOptions, build_candidates, candidate_for
+from solver.model import (
+    Carrier,
+    Objective,
+    Plan,
+    PlanSummary,
+    Problem,
+    ProgressEvent,
+    SolveStats,
+    SolveStatus,
+    Unserved,
+    UnservedReason,
+)
+from solver.packing import (
+    Boundary,
+    PackingInput,
+    PackingResult,
+    Segment,
+    admission_weights,
+    place_segment,
+    solve_packing,
+)
+from solver.validation import validate_problem
+from solver.verify import Verification, verify_plan
+
+__all__ = ["CAUTIONS", "MAX_REPAIR_ROUNDS", "solve", "summarise", "with_guards"]
+
+log = logging.getLogger(__name__)
+
+MAX_REPAIR_ROUNDS = 6
+"""Re-solves allowed after a failed verification before blamed carriers are left out."""
+
+CAUTIONS = (
+    "This plan is an engineering estimate from models of the pulse shaping, amplifier and link. "
+    "Measure real equipment before any carrier goes on air.",
+    "Licence conditions, the regulator's emission limits and coordination with neighbouring "
+    "licensees decide what may be transmitted, not this tool.",
+)
+
+
+@dataclass(frozen=True)
+class _Placed:
+    carriers: tuple[Carrier, ...]
+    result: PackingResult
+
+
+# ---------------------------------------------------------------- raster and segments
+
+
+def _units(problem: Problem, freq_hz: float, *, up: bool) -> int:
+    """Offset from the block start in raster units, rounded outwards."""
+    value = (freq_hz - problem.block.start_hz) / problem.block.raster_hz
+    return math.ceil(value - 1e-9) if up else math.floor(value + 1e-9)
+
+
+def _segments(problem: Problem, pinned: Sequence[tuple[Carrier, Candidate]]) -> list[Segment]:
+    """Free stretches between the block edges, exclusions and pinned carriers."""
+    total = _units(problem, problem.block.stop_hz, up=False)
+    walls: list[tuple[int, int, Boundary, int]] = [
+        (
+            _units(problem, x.start_hz, up=False),
+            _units(problem, x.stop_hz, up=True),
+            Boundary.EDGE,
+            0,
+        )
+        for x in problem.block.exclusions
+    ]
+    for carrier, cand in pinned:
+        lo = _units(problem, carrier.lower_edge_hz, up=False)
+        hi = max(_units(problem, carrier.upper_edge_hz, up=True), lo + 1)
+        walls.append((lo, hi, Boundary.CARRIER, cand.guard_units))
+    walls.sort()
+    segments: list[Segment] = []
+    cursor, left, left_guard = 0, Boundary.EDGE, 0
+    for start, stop, kind, guard in [*walls, (total, total, Boundary.EDGE, 0)]:
+        if start > cursor:
+            segments.append(Segment(cursor, start, left, kind, left_guard, guard))
+        if stop >= cursor:
+            cursor, left, left_guard = stop, kind, guard
+    return segments
+
+
+# ---------------------------------------------------------------- pinned carriers
+
+
+def _fix_pinned(
+    problem: Problem, options: dict[str, DemandOptions]
+) -> tuple[list[tuple[Carrier, Candidate]], list[Unserved]]:
+    """Give each pinned demand its best candidate that fits at its centre, first come first."""
+    placed: list[tuple[Carrier, Candidate]] = []
+    unserved: list[Unserved] = []
+    for demand in sorted(
+        (d for d in problem.demands if d.pinned_center_hz is not None),
+        key=lambda d: (-d.priority, d.id),
+    ):
+        center = demand.pinned_center_hz
+        assert center is not None
+        fitting = [
+            c for c in options[demand.id].candidates if _pinned_fits(problem, center, c, placed)
+        ]
+        if not fitting:
+            reason = (
+                UnservedReason.NO_LINK
+                if not options[demand.id].candidates
+                else UnservedReason.NO_SPECTRUM
+            )
+            detail = options[demand.id].best_link_detail or (
+                f"no configuration fits at the pinned centre {center:,.0f} Hz with its guards"
+            )
+            unserved.append(Unserved(demand.id, reason, detail))
+            continue
+        best = max(
+            fitting, key=lambda c: (min(c.throughput_bps, demand.target_rate_bps), -c.width_units)
+        )
+        placed.append((Carrier(best.config, center, 0.0, 0.0), best))
+    return placed, unserved
+
+
+def _pinned_fits(
+    problem: Problem, center: float, cand: Candidate, placed: Sequence[tuple[Carrier, Candidate]]
+) -> bool:
+    half = cand.config.allocated_bandwidth_hz / 2
+    lo, hi = center - half, center + half
+    edge = cand.config.edge_guard_hz
+    block = problem.block
+    if lo - edge < block.start_hz or hi + edge > block.stop_hz:
+        return False
+    for x in block.exclusions:
+        if lo - edge < x.stop_hz and hi + edge > x.start_hz:
+            return False
+    for other, other_cand in placed:
+        gap = max(cand.config.guard_hz, other_cand.config.guard_hz)
+        if lo - gap < other.upper_edge_hz and hi + gap > other.lower_edge_hz:
+            return False
+    return True
+
+
+# ---------------------------------------------------------------- admission and hints
+
+
+def _hints(options: Sequence[DemandOptions]) -> dict[str, int]:
+    """Index of the candidate closest to each demand's current setting (replans)."""
+    hints: dict[str, int] = {}
+    for opts in options:
+        cur = opts.demand.current
+        if cur is None:
+            continue
+        same = [
+            (abs(c.config.symbol_rate_baud - cur.symbol_rate_baud), k)
+            for k, c in enumerate(opts.candidates)
+            if c.config.modulation == cur.modulation
+            and c.config.code_rate == cur.code_rate
+            and math.isclose(c.config.rolloff, cur.rolloff)
+        ]
+        if same:
+            hints[opts.demand.id] = min(same)[1]
+    return hints
+
+
+# ---------------------------------------------------------------- solve and repair
+
+
+def _place(problem: Problem, data: PackingInput, result: PackingResult) -> tuple[Carrier, ...]:
+    raster = problem.block.raster_hz
+    pack_low = problem.objective is Objective.MIN_BANDWIDTH
+    carriers: list[Carrier] = []
+    for s, picks in sorted(result.chosen.items()):
+        seg = data.segments[s]
+        picks = sorted(picks, key=lambda dk: data.options[dk[0]].demand.id)
+        cands = [data.options[d].candidates[k] for d, k in picks]
+        for cand, low in zip(cands, place_segment(seg, cands, pack_low=pack_low), strict=True):
+            center = problem.block.start_hz + (low + cand.width_units / 2) * raster
+            carriers.append(Carrier(cand.config, center, 0.0, 0.0))
+    return tuple(carriers)
+
+
+def _bump(options: list[DemandOptions], blamed: set[str], round_no: int) -> list[DemandOptions]:
+    """Cut: blamed demands need more guard (a quarter of their width, growing each round)."""
+    out = []
+    for opts in options:
+        if opts.demand.id in blamed:
+            bumped = tuple(
+                replace(
+                    c,
+                    guard_units=c.guard_units + max(1, c.width_units * round_no // 4),
+                    edge_units=c.edge_units + max(1, c.width_units * round_no // 4),
+                )
+                for c in opts.candidates
+            )
+            opts = replace(opts, candidates=bumped)
+        out.append(opts)
+    return out
+
+
+def _solve_and_verify(
+    problem: Problem,
+    data: PackingInput,
+    pinned: Sequence[Carrier],
+    progress: Callable[[ProgressEvent], None] | None,
+    cancel: threading.Event | None,
+) -> tuple[Verification, PackingResult, int, list[Unserved]]:
+    """Solve, place, verify; cut and re-solve on failure; never return a failing plan."""
+    options = list(data.options)
+    pinned_ids = {p.demand_id for p in pinned}
+    round_no = 0
+    while True:
+        round_no += 1
+        attempt = replace(data, options=options)
+        result = solve_packing(attempt, progress=progress, cancel=cancel)
+        check = verify_plan(problem, [*pinned, *_place(problem, attempt, result)])
+        if check.passed:
+            return check, result, round_no, []
+        blamed = {v.demand_id for v in check.violations} - pinned_ids
+        log.info("verification round %d failed for %s", round_no, sorted(blamed))
+        if round_no > MAX_REPAIR_ROUNDS or not blamed or (cancel is not None and cancel.is_set()):
+            check, dropped = _drop_until_passing(problem, check)
+            return check, result, round_no, dropped
+        options = _bump(options, blamed, round_no)
+
+
+def _drop_until_passing(
+    problem: Problem, check: Verification
+) -> tuple[Verification, list[Unserved]]:
+    """Last resort: leave out the carriers still to blame until the rest passes."""
+    dropped: list[Unserved] = []
+    while not check.passed:
+        blamed = {v.demand_id: v.detail for v in check.violations}
+        dropped += [
+            Unserved(d, UnservedReason.NO_SPECTRUM, f"left out after verification: {why}")
+            for d, why in sorted(blamed.items())
+        ]
+        check = verify_plan(problem, [c for c in check.carriers if c.demand_id not in blamed])
+    return check, dropped
+
+
+# ---------------------------------------------------------------- explanations and summary
+
+
+def _explain_unserved(
+    problem: Problem,
+    options: Sequence[DemandOptions],
+    served: set[str],
+    segments: Sequence[Segment],
+) -> list[Unserved]:
+    """Words for every demand without a carrier."""
+    raster = problem.block.raster_hz
+    largest = max((s.length for s in segments), default=0)
+    need_units = {
+        o.demand.id: min(c.width_units + c.guard_units + c.edge_units for c in o.candidates)
+        for o in options
+        if o.candidates
+    }
+    shortfall_hz = (sum(need_units.values()) - sum(s.length for s in segments)) * raster
+    out: list[Unserved] = []
+    for opts in options:
+        demand_id = opts.demand.id
+        if demand_id in served:
+            continue
+        if not opts.candidates:
+            out.append(Unserved(demand_id, UnservedReason.NO_LINK, opts.best_link_detail))
+        elif not any(seg.fits_alone(c) for c in opts.candidates for seg in segments):
+            need = need_units[demand_id] * raster
+            out.append(
+                Unserved(
+                    demand_id,
+                    UnservedReason.NO_SPECTRUM,
+                    f"the minimum rate needs {need:,.0f} Hz with its guards, more than the largest "
+                    f"free segment ({largest * raster:,.0f} Hz)",
+                )
+            )
+        else:
+            detail = (
+                f"left out for higher-priority demands: the minimum rates together need "
+                f"{shortfall_hz:,.0f} Hz more than the free spectrum"
+                if shortfall_hz > 0
+                else "left out for higher-priority demands: the free spectrum is too fragmented"
+            )
+            out.append(Unserved(demand_id, UnservedReason.NOT_ADMITTED, detail))
+    return out
+
+
+def with_guards(problem: Problem, carriers: Sequence[Carrier]) -> list[Carrier]:
+    """Fill in each carrier's guards: the larger guard of a pair, or its own edge guard."""
+    ordered = sorted(carriers, key=lambda c: c.center_hz)
+    out = []
+    for i, c in enumerate(ordered):
+        below = ordered[i - 1] if i else None
+        above = ordered[i + 1] if i + 1 < len(ordered) else None
+        out.append(
+            replace(
+                c,
+                guard_below_hz=_pair_guard(problem, c, below, "below"),
+                guard_above_hz=_pair_guard(problem, c, above, "above"),
+            )
+        )
+    return out
+
+
+def _pair_guard(problem: Problem, c: Carrier, other: Carrier | None, side: str) -> float:
+    edge = c.config.edge_guard_hz
+    if other is None:
+        return edge
+    gap = (
+        other.lower_edge_hz - c.upper_edge_hz
+        if side == "above"
+        else c.lower_edge_hz - other.upper_edge_hz
+    )
+    pair = max(c.config.guard_hz, other.config.guard_hz)
+    # A neighbour farther away than an edge or exclusion means the edge is what this side faces.
+    return pair if gap <= pair + edge else edge
+
+
+def _free_segments_hz(problem: Problem, carriers: Sequence[Carrier]) -> list[float]:
+    """Widths of the free stretches left between exclusions, carriers and their guards."""
+    block = problem.block
+    taken = [(x.start_hz, x.stop_hz) for x in block.exclusions]
+    taken += [
+        (c.lower_edge_hz - c.guard_below_hz, c.upper_edge_hz + c.guard_above_hz) for c in carriers
+    ]
+    taken.sort()
+    free, cursor = [], block.start_hz
+    for start, stop in taken:
+        if start > cursor:
+            free.append(start - cursor)
+        cursor = max(cursor, stop)
+    if block.stop_hz > cursor:
+        free.append(block.stop_hz - cursor)
+    return free
+
+
+def summarise(problem: Problem, carriers: Sequence[Carrier], retunes: int) -> PlanSummary:
+    free = _free_segments_hz(problem, carriers)
+    usable = problem.block.usable_width_hz
+    total = sum(c.config.throughput_bps for c in carriers)
+    bound = bounds.shannon_nyquist_bound(usable, problem.demands).total_bps
+    return PlanSummary(
+        used_bandwidth_hz=usable - sum(free),
+        free_bandwidth_hz=sum(free),
+        largest_free_segment_hz=max(free, default=0.0),
+        total_throughput_bps=total,
+        spectral_efficiency_bps_per_hz=total / usable if usable > 0 else 0.0,
+        shannon_bound_bps=bound,
+        efficiency_vs_bound=total / bound if bound > 0 else 0.0,
+        retune_count=retunes,
+    )
+
+
+def _mark_retunes(problem: Problem, carriers: Sequence[Carrier]) -> list[Carrier]:
+    current = {d.id: d.current for d in problem.demands if d.current is not None}
+    out = []
+    for c in carriers:
+        cur = current.get(c.demand_id)
+        moved = cur is not None and not (
+            math.isclose(c.center_hz, cur.center_hz, abs_tol=problem.block.raster_hz / 2)
+            and math.isclose(c.config.symbol_rate_baud, cur.symbol_rate_baud, rel_tol=1e-6)
+            and math.isclose(c.config.rolloff, cur.rolloff)
+            and c.config.modulation == cur.modulation
+            and c.config.code_rate == cur.code_rate
+        )
+        out.append(replace(c, retuned=moved))
+    return out
+
+
+# ---------------------------------------------------------------- replans
+
+
+def _staying(
+    problem: Problem,
+    options: dict[str, DemandOptions],
+    fixed: Sequence[tuple[Carrier, Candidate]],
+) -> list[tuple[Carrier, Candidate]]:
+    """Current carriers that can stay exactly as they are (highest priority first)."""
+    keep: list[tuple[Carrier, Candidate]] = []
+    for demand in sorted(problem.demands, key=lambda d: (-d.priority, d.id)):
+        cur = demand.current
+        if cur is None or demand.pinned_center_hz is not None:
+            continue
+        cand = candidate_for(
+            problem, demand, cur.modulation, cur.code_rate, cur.rolloff, cur.symbol_rate_baud
+        )
+        if cand is None or not _pinned_fits(problem, cur.center_hz, cand, [*fixed, *keep]):
+            continue
+        keep.append((Carrier(cand.config, cur.center_hz, 0.0, 0.0), cand))
+    return keep
+
+
+def _secondary(problem: Problem, plan_carriers: Sequence[Carrier], free_hz: float) -> float:
+    """What the objective values once admission is settled (higher is better)."""
+    if problem.objective is Objective.MIN_BANDWIDTH:
+        return free_hz
+    targets = {d.id: d for d in problem.demands}
+    if problem.objective is Objective.MAX_MARGIN:
+        margins = [
+            c.margin_after_interference_db - targets[c.demand_id].margin_db for c in plan_carriers
+        ]
+        return min(margins, default=0.0)
+    return sum(
+        targets[c.demand_id].priority
+        * min(c.config.throughput_bps, targets[c.demand_id].target_rate_bps)
+        for c in plan_carriers
+    )
+
+
+# ---------------------------------------------------------------- entry point
+
+
+@dataclass(frozen=True)
+class _Outcome:
+    carriers: tuple[Carrier, ...]
+    unserved: tuple[Unserved, ...]
+    result: PackingResult
+    rounds: int
+
+
+def _run(
+    problem: Problem,
+    options: dict[str, DemandOptions],
+    fixed: Sequence[tuple[Carrier, Candidate]],
+    early_unserved: Sequence[Unserved],
+    progress: Callable[[ProgressEvent], None] | None,
+    cancel: threading.Event | None,
+) -> _Outcome:
+    fixed_ids = {c.demand_id for c, _ in fixed} | {u.demand_id for u in early_unserved}
+    free = [options[d.id] for d in problem.demands if d.id not in fixed_ids]
+    segments = _segments(problem, fixed)
+    data = PackingInput(
+        options=free,
+        segments=segments,
+        objective=problem.objective,
+        admission_weights=admission_weights([o.demand for o in free]),
+        priorities=[o.demand.priority for o in free],
+        time_limit_s=problem.time_limit_s,
+        num_workers=problem.num_workers,
+        seed=problem.seed,
+        hints=_hints(free),
+    )
+    check, result, rounds, dropped = _solve_and_verify(
+        problem, data, [c for c, _ in fixed], progress, cancel
+    )
+    served = {c.demand_id for c in check.carriers}
+    dropped_ids = {u.demand_id for u in dropped}
+    explained = _explain_unserved(problem, free, served | dropped_ids, segments)
+    unserved = (*early_unserved, *dropped, *explained)
+    return _Outcome(
+        check.carriers, tuple(sorted(unserved, key=lambda u: u.demand_id)), result, rounds
+    )
+
+
+def _score(problem: Problem, outcome: _Outcome) -> tuple[int, float]:
+    weights = dict(
+        zip((d.id for d in problem.demands), admission_weights(problem.demands), strict=True)
+    )
+    admitted = sum(weights[c.demand_id] for c in outcome.carriers)
+    carriers = with_guards(problem, outcome.carriers)
+    free = sum(_free_segments_hz(problem, carriers))
+    return admitted, _secondary(problem, carriers, free)
+
+
+def _pick_replan(problem: Problem, moved: _Outcome, stayed: _Outcome) -> _Outcome:
+    """Keep carriers in place unless moving them gains more than the retune penalty."""
+    a_moved, s_moved = _score(problem, moved)
+    a_stayed, s_stayed = _score(problem, stayed)
+    if a_moved != a_stayed:
+        return moved if a_moved > a_stayed else stayed
+    scale = max(abs(s_moved), abs(s_stayed), 1e-12)
+    r_moved = sum(c.retuned for c in _mark_retunes(problem, moved.carriers))
+    r_stayed = sum(c.retuned for c in _mark_retunes(problem, stayed.carriers))
+    penalty = problem.retune_penalty * scale
+    return moved if s_moved - penalty * r_moved > s_stayed - penalty * r_stayed else stayed
+
+
+def solve(
+    problem: Problem,
+    *,
+    progress: Callable[[ProgressEvent], None] | None = None,
+    cancel: threading.Event | None = None,
+) -> Plan:
+    """Plan the block: choose, place and verify a carrier for as many demands as fit.
+
+    Parameters
+    ----------
+    problem : Problem
+        Block, demands, equipment, coding assumptions, objective and solver settings.
+    progress : callable, optional
+        Receives a :class:`ProgressEvent` on every improving solution.
+    cancel : threading.Event, optional
+        Set to stop the search early; the best verified plan so far is returned.
+
+    Returns
+    -------
+    Plan
+        Carriers sorted by frequency, unserved demands with reasons, summary, solver figures
+        and notices (always including :data:`CAUTIONS`).
+
+    Raises
+    ------
+    ProblemError
+        When the problem is not valid; its ``field`` names the offending input.
+    """
+    validate_problem(problem)
+    started = time.perf_counter()
+    options = {d.id: build_candidates(problem, d) for d in problem.demands}
+    pinned, pinned_unserved = _fix_pinned(problem, options)
+    outcome = _run(problem, options, pinned, pinned_unserved, progress, cancel)
+    if problem.retune_penalty > 0 and any(d.current is not None for d in problem.demands):
+        staying = _staying(problem, options, pinned)
+        if staying:
+            kept = _run(problem, options, [*pinned, *staying], pinned_unserved, progress, cancel)
+            outcome = _pick_replan(problem, outcome, kept)
+    return _finish(problem, outcome, time.perf_counter() - started)
+
+
+def _finish(problem: Problem, outcome: _Outcome, elapsed_s: float) -> Plan:
+    carriers = _mark_retunes(problem, with_guards(problem, outcome.carriers))
+    retunes = sum(c.retuned for c in carriers)
+    result = outcome.result
+    status: SolveStatus
+    if carriers:
+        status = (
+            result.status if result.status is not SolveStatus.INFEASIBLE else SolveStatus.FEASIBLE
+        )
+    else:
+        status = SolveStatus.INFEASIBLE if problem.demands else SolveStatus.OPTIMAL
+    stats = SolveStats(
+        status=status,
+        objective_value=result.objective_value,
+        best_bound=result.best_bound,
+        optimality_gap=result.optimality_gap,
+        solve_time_s=elapsed_s,
+        num_workers=problem.num_workers,
+        seed=problem.seed,
+        solver_version=result.solver_version,
+        verification_rounds=outcome.rounds,
+    )
+    notices = list(CAUTIONS)
+    if outcome.rounds > 1:
+        notices.append(
+            f"Verification needed {outcome.rounds} rounds: guards were widened where "
+            "interference was found."
+        )
+    if status is SolveStatus.FEASIBLE:
+        notices.append(
+            "The solver stopped at its time limit; the plan is within "
+            f"{result.optimality_gap:.2%} of its bound."
+        )
+    return Plan(
+        name=problem.name,
+        status=status,
+        carriers=tuple(carriers),
+        unserved=outcome.unserved,
+        summary=summarise(problem, carriers, retunes),
+        stats=stats,
+        notices=tuple(notices),
+    )

@@ -1,0 +1,262 @@
+"""Independent check of a finished plan, from the carriers' own spectra.
+
+The packer works with integer guard needs on a raster and a segment-capacity formula.  This
+module ignores all of that and looks at the placed carriers only:
+
+* every carrier lies inside the block and outside every exclusion, and no two overlap;
+* every carrier's leakage ratio towards its actual neighbour (or the block edge / exclusion) at
+  the actual gap meets the limit (edge limit towards edges and exclusions);
+* every carrier's margin after the aggregate interference of all others, each at its relative
+  level, integrated through the victim's matched receive filter, stays within
+  :data:`INTERFERENCE_ALLOWANCE_DB` of the margin the demand asked for.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass, replace
+from enum import StrEnum
+from typing import Literal
+
+import numpy as np
+from numpy.typing import NDArray
+
+from solver import emission
+from solver.model import Carrier, Problem
+
+__all__ = [
+    "INTERFERENCE_ALLOWANCE_DB",
+    "Verification",
+    "Violation",
+    "ViolationKind",
+    "verify_plan",
+]
+
+INTERFERENCE_ALLOWANCE_DB = 0.5
+"""How much of a demand's requested margin interference may use (common practice: a fraction
+of a dB of the link budget is set aside for adjacent-channel interference; value from memory)."""
+
+Side = Literal["below", "above"]
+
+_LEAKAGE_TOLERANCE_DB = 0.05
+"""Numerical slack on leakage ratios (profile interpolation)."""
+
+
+class ViolationKind(StrEnum):
+    OUTSIDE_BLOCK = "outside_block"
+    IN_EXCLUSION = "in_exclusion"
+    OVERLAP = "overlap"
+    LEAKAGE = "leakage"
+    EDGE_LEAKAGE = "edge_leakage"
+    INTERFERENCE = "interference"
+
+
+@dataclass(frozen=True)
+class Violation:
+    """One failed check; ``demand_id`` is the carrier to blame (the leaker or the victim)."""
+
+    demand_id: str
+    kind: ViolationKind
+    detail: str
+
+
+@dataclass(frozen=True)
+class Verification:
+    """The carriers with their measured figures filled in, and every violation found."""
+
+    carriers: tuple[Carrier, ...]
+    violations: tuple[Violation, ...]
+
+    @property
+    def passed(self) -> bool:
+        return not self.violations
+
+
+def _key(problem: Problem, carrier: Carrier, *, linear: bool = False) -> emission.EmissionKey:
+    tx = problem.transmitter
+    cfg = carrier.config
+    return emission.EmissionKey(
+        rolloff=cfg.rolloff,
+        span_symbols=tx.filter_span_symbols,
+        window=tx.window,
+        amplifier=None if linear else tx.amplifier,
+        modulation=None if linear else cfg.modulation,
+    )
+
+
+def _obstacles(problem: Problem) -> list[tuple[float, float]]:
+    """Block outside and exclusions as (start, stop) intervals, sorted."""
+    block = problem.block
+    spans = [(-math.inf, block.start_hz), (block.stop_hz, math.inf)]
+    spans += [(x.start_hz, x.stop_hz) for x in block.exclusions]
+    return sorted(spans)
+
+
+def _placement_violations(problem: Problem, carriers: Sequence[Carrier]) -> list[Violation]:
+    found: list[Violation] = []
+    block = problem.block
+    for c in carriers:
+        if c.lower_edge_hz < block.start_hz - 1e-6 or c.upper_edge_hz > block.stop_hz + 1e-6:
+            found.append(
+                Violation(c.demand_id, ViolationKind.OUTSIDE_BLOCK, "carrier leaves the block")
+            )
+        for x in block.exclusions:
+            if c.lower_edge_hz < x.stop_hz - 1e-6 and c.upper_edge_hz > x.start_hz + 1e-6:
+                note = f" ({x.note})" if x.note else ""
+                found.append(
+                    Violation(
+                        c.demand_id, ViolationKind.IN_EXCLUSION, f"carrier enters exclusion{note}"
+                    )
+                )
+    for a, b in itertools.pairwise(carriers):
+        if b.lower_edge_hz < a.upper_edge_hz - 1e-6:
+            found.append(Violation(b.demand_id, ViolationKind.OVERLAP, f"overlaps {a.demand_id}"))
+    return found
+
+
+def _gap_to_obstacle(problem: Problem, c: Carrier, side: Side) -> float:
+    if side == "below":
+        stops = [stop for _, stop in _obstacles(problem) if stop <= c.lower_edge_hz + 1e-6]
+        return c.lower_edge_hz - max(stops)
+    starts = [start for start, _ in _obstacles(problem) if start >= c.upper_edge_hz - 1e-6]
+    return min(starts) - c.upper_edge_hz
+
+
+def _side_ratio(problem: Problem, c: Carrier, gap_hz: float, side: Side) -> float:
+    key = _key(problem, c)
+    rs = c.config.symbol_rate_baud
+    # Beyond the profile's reach the leakage is taken at its farthest gap (conservative).
+    gap = min(max(gap_hz, 0.0), emission.get_profile(key).max_gap * rs)
+    return float(emission.leakage_ratio_db_at(key, rs, gap, side))
+
+
+def _leakage(problem: Problem, carriers: list[Carrier]) -> tuple[list[Carrier], list[Violation]]:
+    """Leakage ratio of each carrier towards whatever is nearest on each side."""
+    found: list[Violation] = []
+    out: list[Carrier] = []
+    for i, c in enumerate(carriers):
+        ratios = {}
+        sides: tuple[tuple[Side, Carrier | None], ...] = (
+            ("below", carriers[i - 1] if i else None),
+            ("above", carriers[i + 1] if i + 1 < len(carriers) else None),
+        )
+        for side, neighbour in sides:
+            edge_gap = _gap_to_obstacle(problem, c, side)
+            limit, kind, gap, what = (
+                problem.edge_limit_db,
+                ViolationKind.EDGE_LEAKAGE,
+                edge_gap,
+                "block edge or exclusion",
+            )
+            if neighbour is not None:
+                n_gap = (
+                    neighbour.lower_edge_hz - c.upper_edge_hz
+                    if side == "above"
+                    else c.lower_edge_hz - neighbour.upper_edge_hz
+                )
+                if n_gap < edge_gap:
+                    limit, kind, gap, what = (
+                        problem.leakage_limit_db,
+                        ViolationKind.LEAKAGE,
+                        n_gap,
+                        neighbour.demand_id,
+                    )
+            ratio = _side_ratio(problem, c, gap, side)
+            ratios[side] = ratio
+            if ratio < limit - _LEAKAGE_TOLERANCE_DB:
+                found.append(
+                    Violation(
+                        c.demand_id,
+                        kind,
+                        f"leakage ratio {ratio:.1f} dB towards {what} ({side}) is below "
+                        f"the {limit:.1f} dB limit",
+                    )
+                )
+        out.append(
+            replace(
+                c, leakage_ratio_below_db=ratios["below"], leakage_ratio_above_db=ratios["above"]
+            )
+        )
+    return out, found
+
+
+def _density(
+    problem: Problem, c: Carrier, level: float, freq_hz: NDArray[np.float64]
+) -> NDArray[np.float64]:
+    """Power spectral density of carrier ``c`` (linear, relative units) at ``freq_hz``."""
+    rs = c.config.symbol_rate_baud
+    profile = emission.get_profile(_key(problem, c))
+    return level * profile.psd_at((freq_hz - c.center_hz) / rs)
+
+
+def _interference(
+    problem: Problem, carriers: list[Carrier]
+) -> tuple[list[Carrier], list[Violation]]:
+    """C/I through each victim's matched filter and the margin that is left."""
+    levels = {d.id: 10.0 ** (d.relative_level_db / 10.0) for d in problem.demands}
+    margins = {d.id: d.margin_db for d in problem.demands}
+    found: list[Violation] = []
+    out: list[Carrier] = []
+    for v in carriers:
+        rs = v.config.symbol_rate_baud
+        matched = emission.get_profile(_key(problem, v, linear=True))
+        freq = v.center_hz + matched.freq * rs
+        response = matched.psd / float(matched.psd_at(np.zeros(1))[0])
+        signal = float(
+            np.trapezoid(_density(problem, v, levels[v.demand_id], freq) * response, freq)
+        )
+        reach = float(np.max(np.abs(matched.freq))) * rs
+        interference = 0.0
+        for other in carriers:
+            if other is v:
+                continue
+            other_reach = 8.0 * other.config.symbol_rate_baud * (1 + other.config.rolloff)
+            if abs(other.center_hz - v.center_hz) > reach + other_reach:
+                continue
+            interference += float(
+                np.trapezoid(
+                    _density(problem, other, levels[other.demand_id], freq) * response, freq
+                )
+            )
+        c_over_i = math.inf if interference <= 0 else 10.0 * math.log10(signal / interference)
+        esn0_lin = 10.0 ** (v.config.esn0_db / 10.0)
+        ci_lin = math.inf if interference <= 0 else signal / interference
+        effective_db = 10.0 * math.log10(1.0 / (1.0 / esn0_lin + 1.0 / ci_lin))
+        margin_after = effective_db - v.config.required_esn0_db
+        floor = margins[v.demand_id] - INTERFERENCE_ALLOWANCE_DB
+        if margin_after < floor:
+            found.append(
+                Violation(
+                    v.demand_id,
+                    ViolationKind.INTERFERENCE,
+                    f"margin after interference {margin_after:.2f} dB is below {floor:.2f} dB "
+                    f"(C/I {c_over_i:.1f} dB)",
+                )
+            )
+        out.append(replace(v, c_over_i_db=c_over_i, margin_after_interference_db=margin_after))
+    return out, found
+
+
+def verify_plan(problem: Problem, carriers: Sequence[Carrier]) -> Verification:
+    """Check placed carriers against the block, the leakage limits and interference.
+
+    Parameters
+    ----------
+    problem : Problem
+        The request (block, exclusions, limits, demands with their relative levels).
+    carriers : sequence of Carrier
+        Placed carriers, in any order.
+
+    Returns
+    -------
+    Verification
+        Carriers sorted by frequency with leakage ratios, C/I and margin after interference
+        filled in, plus every violation (empty when the plan passes).
+    """
+    ordered = sorted(carriers, key=lambda c: c.center_hz)
+    violations = _placement_violations(problem, ordered)
+    ordered, leak = _leakage(problem, ordered)
+    ordered, interf = _interference(problem, ordered)
+    return Verification(tuple(ordered), tuple(violations + leak + interf))
