@@ -66,18 +66,18 @@ def create_app(settings: Settings | None = None, *, solve: SolveFunction | None 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
         store = Store(settings.database_url)
+        reachable = True
         try:
             store.ensure_schema()
         except StoreUnavailableError as exc:  # /readyz reports it until the store answers
-            logger.error("store not reachable at start-up: %s", exc)
+            logger.error("store not reachable at start-up; jobs not requeued: %s", exc)
+            reachable = False
         solve_fn = _default_solve() if solve is None else solve
         runtime = Runtime(settings, store, metrics, solve_fn, SolveGate(settings, metrics))
         runtime.jobs = JobManager(runtime)
         app.state.runtime = runtime
-        try:
+        if reachable:
             runtime.jobs.start()
-        except StoreUnavailableError as exc:
-            logger.error("jobs not requeued: %s", exc)
         try:
             yield
         finally:

@@ -1,0 +1,142 @@
+"""Service machinery: solve slots and 503, probes during a long solve, jobs across a restart,
+metrics and readiness.
+
+Sources: RFC 9110 §15.6.4 (503 Service Unavailable) with §10.2.3 (Retry-After, delay in seconds)
+and §15.3.3 (202 Accepted); Prometheus text exposition format 0.0.4 (``# TYPE`` lines, counter
+samples ending in ``_total``, histogram ``_bucket``/``_count``/``_sum`` samples).
+"""
+
+from __future__ import annotations
+
+import time
+from pathlib import Path
+
+import anyio
+import httpx
+import pytest
+from api_support import BlockingSolve, serving, small_request
+
+from service.app import create_app
+from service.jobs import SolveFunction
+from service.schemas import JobState
+from service.settings import Settings
+from service.store import Store
+
+pytestmark = pytest.mark.anyio
+
+HEALTH_LATENCY_BOUND_S = 0.5  # generous for 2 cores; the solve itself is held for seconds
+JOB_TIMEOUT_S = 60.0
+
+
+async def _wait_entered(double: BlockingSolve, count: int) -> None:
+    for _ in range(count):
+        acquired = await anyio.to_thread.run_sync(double.entered.acquire, True, 30.0)
+        assert acquired, "the solve never started"
+
+
+async def test_past_the_bound_is_503_with_retry_after(
+    settings: Settings, real_solve: SolveFunction
+) -> None:
+    # settings: 2 running + 1 waiting; the 4th concurrent request must be refused.
+    double = BlockingSolve(real_solve)
+    async with (
+        serving(create_app(settings, solve=double)) as client,
+        anyio.create_task_group() as tg,
+    ):
+        answers: list[httpx.Response] = []
+
+        async def post() -> None:
+            answers.append(await client.post("/v1/plans", json=small_request(time_limit_s=1.0)))
+
+        for _ in range(3):
+            tg.start_soon(post)
+        await _wait_entered(double, 2)
+        await anyio.sleep(0.2)  # the third is now waiting for a slot
+        started = time.perf_counter()
+        health = await client.get("/healthz")
+        health_latency_s = time.perf_counter() - started
+        refused = await client.post("/v1/plans", json=small_request())
+        double.release.set()
+    assert health.status_code == 200
+    assert health_latency_s < HEALTH_LATENCY_BOUND_S
+    assert refused.status_code == 503
+    assert refused.headers["content-type"].startswith("application/problem+json")
+    assert refused.headers["retry-after"] == str(settings.retry_after_s)
+    assert sorted(a.status_code for a in answers) == [201, 201, 201]
+
+
+async def _wait_job(client: httpx.AsyncClient, location: str, state: str) -> dict[str, object]:
+    deadline = time.monotonic() + JOB_TIMEOUT_S
+    while time.monotonic() < deadline:
+        job: dict[str, object] = (await client.get(location)).json()
+        if job["state"] == state:
+            return job
+        assert job["state"] != "failed", job
+        await anyio.sleep(0.05)
+    raise AssertionError(f"job {location} never reached {state}")
+
+
+async def test_job_lifecycle(settings: Settings, real_solve: SolveFunction) -> None:
+    async with serving(create_app(settings, solve=real_solve)) as client:
+        accepted = await client.post("/v1/jobs", json=small_request(time_limit_s=1.0))
+        assert accepted.status_code == 202
+        assert accepted.headers["retry-after"] == str(settings.retry_after_s)
+        location = accepted.headers["location"]
+        assert location == f"/v1/jobs/{accepted.json()['id']}"
+        assert accepted.json()["state"] in {"queued", "running"}
+        done = await _wait_job(client, location, "done")
+        plan = await client.get(str(done["plan_url"]))
+        invalid = await client.post("/v1/jobs", json=small_request(time_limit_s=0))
+    assert plan.status_code == 200
+    assert plan.json()["id"] == done["plan_id"]
+    assert invalid.status_code == 422
+
+
+async def test_jobs_survive_a_restart(settings: Settings, real_solve: SolveFunction) -> None:
+    double = BlockingSolve(real_solve)
+    async with serving(create_app(settings, solve=double)) as client:
+        first = (await client.post("/v1/jobs", json=small_request(name="first"))).headers
+        second = (await client.post("/v1/jobs", json=small_request(name="second"))).headers
+        await _wait_entered(double, 1)
+        assert (await client.get(second["location"])).json()["state"] == "queued"
+        # Leaving the block shuts the app down while "first" runs and "second" waits.
+    store = Store(settings.database_url)
+    for headers in (first, second):
+        record = store.get_job(headers["location"].rsplit("/", 1)[-1])
+        assert record is not None
+        assert record.job.state is JobState.QUEUED
+    store.close()
+    async with serving(create_app(settings, solve=real_solve)) as client:
+        for headers in (first, second):
+            job = await _wait_job(client, headers["location"], "done")
+            assert (await client.get(str(job["plan_url"]))).status_code == 200
+
+
+async def test_metrics_count_routes_and_solves(
+    settings: Settings, real_solve: SolveFunction
+) -> None:
+    async with serving(create_app(settings, solve=real_solve)) as client:
+        created = await client.post("/v1/plans", json=small_request(time_limit_s=1.0))
+        await client.get(f"/v1/plans/{created.json()['id']}")
+        text = (await client.get("/metrics")).text
+    assert "# TYPE bandwright_http_requests_total counter" in text
+    assert 'route="/v1/plans/{plan_id}"' in text
+    assert (
+        'bandwright_http_requests_total{method="POST",route="/v1/plans",status="201"} 1.0' in text
+    )
+    assert 'bandwright_solve_duration_seconds_count{mode="sync"} 1.0' in text
+    status = created.json()["status"]
+    assert f'bandwright_solves_total{{status="{status}"}} 1.0' in text
+
+
+async def test_readyz_fails_while_the_store_is_unreachable(tmp_path: Path) -> None:
+    missing = tmp_path / "not-yet"
+    settings = Settings(database_url=f"sqlite:///{missing / 'plans.db'}")
+    async with serving(create_app(settings)) as client:
+        down = await client.get("/readyz")
+        alive = await client.get("/healthz")
+        missing.mkdir()
+        up = await client.get("/readyz")
+    assert (down.status_code, down.json()["store"]) == (503, "unreachable")
+    assert alive.status_code == 200
+    assert (up.status_code, up.json()["store"]) == (200, "ok")
