@@ -115,7 +115,8 @@ def _objective(widths: np.ndarray, demands: list[Demand]) -> float:
             power = 10 ** ((demand.cn0_dbhz - demand.margin_db) / 10)
             rate = width * math.log2(1 + power / width)
         else:
-            rate = width * math.log2(1 + 10 ** ((float(demand.esn0_db) - demand.margin_db) / 10))
+            esn0_db = 0.0 if demand.esn0_db is None else demand.esn0_db
+            rate = width * math.log2(1 + 10 ** ((esn0_db - demand.margin_db) / 10))
         total += min(rate, demand.target_rate_bps)
     return total
 

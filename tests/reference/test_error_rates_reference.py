@@ -138,7 +138,9 @@ def test_nearest_neighbour_approximation_agrees_at_high_snr() -> None:
     assert symbol_error_rate("8PSK", 15.0) == pytest.approx(approx, rel=1e-6)
 
 
-def _simulate(modem: PSKModem | QAMModem, esn0_db: float, symbols: int, seed: int):
+def _simulate(
+    modem: PSKModem | QAMModem, esn0_db: float, symbols: int, seed: int
+) -> tuple[int, int, int, int]:
     """Error counts of scikit-commpy's Gray modem through our own seeded AWGN channel."""
     rng = np.random.default_rng(seed)
     bits_per_symbol = int(modem.num_bits_symbol)
