@@ -82,7 +82,7 @@ class _Style:
     width: float = 0.915
     psd_bottom: float = 0.20
     psd_height: float = 0.45
-    strip_height: float = 0.23
+    strip_height: float = 0.21
     view_margin: float = 0.02
     headroom_db: float = 6.0
     below_limit_db: float = 25.0
@@ -91,6 +91,7 @@ class _Style:
     carrier_samples: int = 801
     carrier_view_rs: float = 3.0
     label_font_pt: float = 8.5
+    max_title_chars: int = 110
     min_rotated_font_pt: float = 6.0
     font_step_pt: float = 0.5
     label_gap_px: float = 6.0
@@ -527,19 +528,25 @@ def _spread(
 
 
 def _draw_texts(figure: Figure, plan: Plan, problem: Problem, scale_hz: float, unit: str) -> None:
-    """Title (name, status, throughput, efficiency), subtitle (block, usage, unserved), footer."""
+    """Title (name), headline (status, throughput, efficiency), block and usage line, footer."""
     summary = plan.summary
     efficiency = summary.efficiency_vs_bound
     bound = f"{efficiency:.0%} of the physical bound" if math.isfinite(efficiency) else "no bound"
-    title = (
-        f"{plan.name}  —  {plan.status.value}  —  "
-        f"{summary.total_throughput_bps / _MBPS:.4g} Mb/s total  —  {bound}"
+    name = (
+        plan.name
+        if len(plan.name) <= STYLE.max_title_chars
+        else plan.name[: STYLE.max_title_chars - 1] + "…"
     )
-    figure.text(STYLE.left, 0.955, title, fontsize=14, fontweight="bold", va="center")
+    figure.text(STYLE.left, 0.967, name, fontsize=14, fontweight="bold", va="center")
+    headline = (
+        f"Status: {plan.status.value}   ·   "
+        f"{summary.total_throughput_bps / _MBPS:.4g} Mb/s total   ·   {bound}   ·   "
+        f"{len(plan.carriers)} carriers"
+    )
+    figure.text(STYLE.left, 0.93, headline, fontsize=11.5, va="center")
     block = problem.block
     parts = [
         f"Block {block.start_hz / scale_hz:.6g}–{block.stop_hz / scale_hz:.6g} {unit}",
-        f"{len(plan.carriers)} carriers",
         f"used {summary.used_bandwidth_hz / scale_hz:.4g} {unit}",
         f"largest free segment {summary.largest_free_segment_hz / scale_hz:.4g} {unit}",
     ]
@@ -547,7 +554,7 @@ def _draw_texts(figure: Figure, plan: Plan, problem: Problem, scale_hz: float, u
         names = ", ".join(f"{u.demand_id} ({u.reason.value})" for u in plan.unserved[:4])
         more = f" and {len(plan.unserved) - 4} more" if len(plan.unserved) > 4 else ""
         parts.append(f"unserved: {names}{more}")
-    figure.text(STYLE.left, 0.915, "   ·   ".join(parts), fontsize=9.5, va="center")
+    figure.text(STYLE.left, 0.897, "   ·   ".join(parts), fontsize=9.5, va="center")
     figure.text(
         STYLE.left, 0.012, CAUTION, fontsize=8.5, style="italic", color="#444444", linespacing=1.3
     )
