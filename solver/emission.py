@@ -1,23 +1,14 @@
 """Carrier emission: power spectral density, occupied bandwidth, leakage and guard needs.
 
-Every spectrum is computed once per :class:`EmissionKey` (roll-off, filter span, window,
-amplifier, constellation) *normalised to a symbol rate of 1* and cached.  A carrier at symbol
-rate Rs has the same profile with frequencies multiplied by Rs, so every query in Hz divides by
-Rs, asks the profile, and multiplies back.
-
-Without an amplifier the power spectral density of i.i.d. zero-mean symbols is |P(f)|² of the
-truncated (optionally windowed) root-raised-cosine taps, evaluated by a zero-padded FFT.  The
-truncation is what makes the leakage finite and guard bands necessary.  With an amplifier,
-random symbols of the constellation are shaped, driven through the memoryless amplifier model
-at the requested mean output back-off and the spectrum is a Welch estimate; spectral regrowth
-then depends on the constellation's peak-to-average ratio.
-
-Leakage follows the adjacent-channel leakage ratio convention (3GPP TS 38.104 §6.6.3): the
-power in the carrier's own nominal band divided by the power in an adjacent band of the same
-width, in positive dB (larger is better).  Band powers come from the cumulative power at the
-bin edges, interpolated linearly, so the ratio is an exact function of the gap for the
-piecewise-constant density, and the guard needed for a limit is found on a precomputed
-monotone envelope without scanning.
+Spectra are computed once per :class:`EmissionKey` *normalised to symbol rate 1* and cached; a
+carrier at Rs is the same profile with frequencies × Rs.  Linear transmitter: |P(f)|² of the
+truncated, optionally windowed RRC taps (zero-padded FFT) — truncation makes leakage finite.
+With an amplifier: random constellation symbols, shaped, amplified at the requested mean
+output back-off, Welch estimate — regrowth then depends on the peak-to-average ratio.
+Leakage follows the ACLR convention (3GPP TS 38.104 §6.6.3): own nominal band power over the
+power in an adjacent band of the same width, positive dB.  Band powers interpolate cumulative
+sums linearly, so the ratio is exact for the piecewise-constant density and the guard for a
+limit is found on a precomputed monotone envelope without scanning.
 """
 
 from __future__ import annotations
@@ -27,7 +18,7 @@ import logging
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import Final, Literal, overload
+from typing import ClassVar, Final, Literal, overload
 
 import numpy as np
 import numpy.typing as npt
@@ -59,25 +50,22 @@ ComplexArray = npt.NDArray[np.complex128]
 Side = Literal["below", "above", "worst"]
 _SIDES: Final = ("below", "above", "worst")
 
+# Linear PSD: 32 samples/symbol puts the grid at ±16 Rs (≥ ±8 Rs needed; aliasing of the
+# truncation side lobes only touches the outer few Rs); the FFT size gives a step of Rs/1024,
+# 51 bins across an α = 0.05 roll-off and far below the 1/span ripple of any allowed span.
 LINEAR_SAMPLES_PER_SYMBOL: Final = 32
-"""Oversampling of the taps for the linear PSD: the grid spans ±16 Rs (at least ±8 Rs is
-needed for leakage at several bandwidths of gap) and aliasing of the truncation side lobes
-only touches the outermost few Rs."""
 LINEAR_FFT_SIZE: Final = 32_768
-"""Zero-padded FFT length: frequency step Rs/1024, i.e. 51 bins across the α = 0.05 roll-off
-region and well below the 1/span ripple period of any span up to :data:`MAX_SPAN_SYMBOLS`."""
 MAX_SPAN_SYMBOLS: Final = 512
+# Amplifier: 16 samples/symbol (±8 Rs, far beyond 5th-order regrowth), 2^19 samples, Welch
+# segments of 16384 (step Rs/1024, 63 half-overlapping averages) with a Blackman-Harris window
+# whose −92 dB side lobes keep the estimator's own leakage far below 60 dB.
 AMPLIFIER_SAMPLES_PER_SYMBOL: Final = 16
-"""Oversampling of the amplifier simulation: grid ±8 Rs, far beyond the 5th-order regrowth
-(±2.5·(1+α)/2)."""
 AMPLIFIER_SYMBOLS: Final = 32_768
 AMPLIFIER_SEGMENT: Final = 16_384
-"""Welch segment length (samples): frequency step Rs/1024, 63 half-overlapping segments."""
 WELCH_WINDOW: Final = "blackmanharris"
-"""Estimator window: −92 dB side lobes keep the estimator's own leakage far below 60 dB."""
 DEFAULT_SEED: Final = 20_011
+# Drive bracketing: coarse grid of RMS input (dB re saturation input) on every 16th sample.
 DRIVE_GRID_DB: Final = (-60.0, 40.0, 26)
-"""Coarse grid of RMS input level (dB re saturation input) used to bracket the drive."""
 BRACKET_DECIMATION: Final = 16
 
 SALEH_ALPHA_A: Final = 2.1587
@@ -253,13 +241,24 @@ def _check_amplifier(amplifier: Amplifier) -> None:
 class _LeakageTable:
     """Adjacent-to-own power ratios (linear) at every breakpoint of the band-power functions.
 
-    Between consecutive ``gaps`` both band powers are linear in the gap, so the ratio is
-    monotone there and the running maximum from the right (``envelope``) is exact.
+    Between consecutive gaps both band powers are linear in the gap, so the ratio is monotone
+    there and its running maximum from the right (the envelope) is exact.  One (6, G) array
+    holds, per breakpoint: gap, leak below, leak above, and −envelope below, above and worst
+    (ascending, ready for a binary search); one column slice gives a lookup all it needs.
     """
 
-    gaps: FloatArray
-    leak: dict[str, FloatArray]
-    envelope: dict[str, FloatArray]
+    rows: FloatArray
+
+    GAP: ClassVar[int] = 0
+    LEAK: ClassVar[dict[str, int]] = {"below": 1, "above": 2}
+    RISING: ClassVar[dict[str, int]] = {"below": 3, "above": 4, "worst": 5}
+
+    @property
+    def gaps(self) -> FloatArray:
+        return np.asarray(self.rows[self.GAP])
+
+    def envelope(self, side: str) -> FloatArray:
+        return np.asarray(-self.rows[self.RISING[side]])
 
 
 @dataclass(frozen=True, eq=False)
@@ -443,7 +442,7 @@ class SpectrumProfile:
         index = np.searchsorted(table.gaps, g, side="right")
         worst = np.zeros(g.shape)
         for s in sides:
-            beyond = table.envelope[s][np.minimum(index, table.gaps.size - 1)]
+            beyond = table.envelope(s)[np.minimum(index, table.gaps.size - 1)]
             beyond = np.where(index < table.gaps.size, beyond, 0.0)
             worst = np.maximum(worst, np.maximum(self._leak(g, s), beyond))
         with np.errstate(divide="ignore"):
@@ -469,24 +468,25 @@ class SpectrumProfile:
             raise ValueError(f"{limit_db=} must be finite")
         if side not in _SIDES:
             raise ValueError(f"{side=} must be one of {_SIDES}")
-        sides = ("below", "above") if side == "worst" else (side,)
-        threshold = 10.0 ** (-limit_db / 10.0)
-        result = max(self._guard_one_side(threshold, s) for s in sides)
+        threshold = math.pow(10.0, -limit_db / 10.0)
+        table = self._table
+        # First breakpoint from which the envelope stays within the threshold; for "worst"
+        # the larger of the two sides' guards lies in the same interval of the merged one.
+        i = int(table.rows[table.RISING[side]].searchsorted(-threshold))
+        if i == 0:
+            result = 0.0
+        elif i == table.rows.shape[1]:
+            result = math.inf
+        else:
+            column: list[list[float]] = table.rows[:, i - 1 : i + 1].tolist()
+            (g0, g1) = column[table.GAP]
+            result = 0.0
+            for s in ("below", "above") if side == "worst" else (side,):
+                if -column[table.RISING[s]][0] > threshold:  # this side binds here
+                    l0, l1 = column[table.LEAK[s]]
+                    result = max(result, g0 + (l0 - threshold) / (l0 - l1) * (g1 - g0))
         self._guard_cache[(limit_db, side)] = result
         return result
-
-    def _guard_one_side(self, threshold: float, side: str) -> float:
-        table = self._table
-        envelope = table.envelope[side]
-        i = int(np.searchsorted(-envelope, -threshold, side="left"))
-        if i == 0:
-            return 0.0
-        if i == envelope.size:
-            return math.inf
-        leak = table.leak[side]
-        g0, g1 = float(table.gaps[i - 1]), float(table.gaps[i])
-        l0, l1 = float(leak[i - 1]), float(leak[i])
-        return g0 + (l0 - threshold) / (l0 - l1) * (g1 - g0)
 
 
 @dataclass(frozen=True, eq=False)
@@ -525,9 +525,15 @@ def _leakage_table(bands: _Bands, width: float) -> _LeakageTable:
         [edges - half, edges - half - width, -half - edges, -half - width - edges, [0, max_gap]]
     )
     gaps = np.unique(candidates[(candidates >= 0) & (candidates <= max_gap)])
-    leak = {side: _adjacent_to_own(bands, width, gaps, side) for side in ("above", "below")}
-    envelope = {side: np.maximum.accumulate(v[::-1])[::-1] for side, v in leak.items()}
-    return _LeakageTable(gaps, leak, envelope)
+    rows = np.empty((6, gaps.size))
+    rows[_LeakageTable.GAP] = gaps
+    for side in ("below", "above"):
+        leak = _adjacent_to_own(bands, width, gaps, side)
+        rows[_LeakageTable.LEAK[side]] = leak
+        rows[_LeakageTable.RISING[side]] = -np.maximum.accumulate(leak[::-1])[::-1]
+    rising = _LeakageTable.RISING
+    rows[rising["worst"]] = np.minimum(rows[rising["below"]], rows[rising["above"]])
+    return _LeakageTable(rows)
 
 
 def _linear_profile(key: EmissionKey) -> SpectrumProfile:
@@ -657,7 +663,7 @@ def build_profile(key: EmissionKey, seed: int = DEFAULT_SEED) -> SpectrumProfile
     return SpectrumProfile.from_density(freq, density, 1.0 + key.rolloff)
 
 
-@functools.lru_cache(maxsize=512)
+@functools.lru_cache(maxsize=256)
 def get_profile(key: EmissionKey) -> SpectrumProfile:
     """Cached :func:`build_profile` with the default seed (thread-safe ``lru_cache``).
 
@@ -674,7 +680,10 @@ def _check_rate(symbol_rate_baud: float) -> float:
 
 
 def occupied_bandwidth_hz(key: EmissionKey, symbol_rate_baud: float) -> float:
-    """99 % occupied bandwidth (Hz) of a carrier at ``symbol_rate_baud`` (ITU RR No. 1.153).
+    """99 % occupied bandwidth (Hz) of a carrier at ``symbol_rate_baud`` (baud).
+
+    The profile's :meth:`~SpectrumProfile.occupied_bandwidth` (Rs units) times the symbol
+    rate.  References: ITU Radio Regulations No. 1.153 (β/2 = 0.5 %).
 
     >>> round(occupied_bandwidth_hz(EmissionKey(0.2, 32), 1e6) / 1e3)
     1073
@@ -684,6 +693,10 @@ def occupied_bandwidth_hz(key: EmissionKey, symbol_rate_baud: float) -> float:
 
 def guard_needed_hz(key: EmissionKey, symbol_rate_baud: float, limit_db: float) -> float:
     """Guard (Hz) beyond the nominal edge after which the leakage ratio stays ≥ ``limit_db``.
+
+    ``symbol_rate_baud`` in baud, ``limit_db`` in dB (positive, ACLR convention); ``math.inf``
+    when the limit is never met on the profile's grid.  References: 3GPP TS 38.104 §6.6.3
+    (ratio definition); :meth:`SpectrumProfile.guard_needed`.
 
     >>> guard_needed_hz(EmissionKey(0.2, 16), 1e6, 10.0)
     0.0
@@ -695,6 +708,9 @@ def leakage_ratio_db_at(
     key: EmissionKey, symbol_rate_baud: float, gap_hz: float, side: Side = "worst"
 ) -> float:
     """Leakage ratio (dB) into an adjacent band of the same nominal width, ``gap_hz`` away.
+
+    ``gap_hz`` (Hz) is the edge-to-edge gap from the nominal edge; ``side`` is ``"below"``,
+    ``"above"`` or ``"worst"``.  References: 3GPP TS 38.104 §6.6.3 (ratio definition).
 
     >>> bool(leakage_ratio_db_at(EmissionKey(0.2, 16), 1e6, 0.0) > 20)
     True
