@@ -44,7 +44,7 @@ def _package_version() -> str:
 
 
 def _default_solve() -> SolveFunction:
-    from solver import solve  # type: ignore[attr-defined,unused-ignore]
+    from solver import solve
 
     solve_fn: SolveFunction = solve
     return solve_fn

@@ -186,7 +186,7 @@ def exit_code_for(plan: PlanOut) -> ExitCode:
 
 
 def _solve_here(request: PlanRequest, previous: PlanOut | None) -> tuple[PlanOut, bytes | None]:
-    from solver import solve  # type: ignore[attr-defined,unused-ignore]
+    from solver import solve
 
     if request.previous_plan_id is not None and previous is None:
         raise _invalid([FieldIssue("previous_plan_id", "needs --server, or use --previous")])

@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 from api_support import serving
 from fastapi import FastAPI
-from hypothesis import given, settings
+from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 from scipy import integrate, optimize
 
@@ -59,11 +59,11 @@ def _raised_cosine_99_percent_bandwidth(rolloff: float) -> float:
         return 0.0
 
     def power(half_width: float) -> float:
-        return 2 * integrate.quad(spectrum, 0, half_width, points=[low, high], limit=200)[0]
+        return 2 * float(integrate.quad(spectrum, 0, half_width, points=[low, high], limit=200)[0])
 
     total = power(high)
     half = optimize.brentq(lambda b: power(b) - 0.99 * total, 1e-6, high)
-    return 2 * half
+    return 2 * float(half)
 
 
 async def test_evaluate_against_textbook_values(app: FastAPI) -> None:
@@ -143,26 +143,34 @@ async def test_guard_needed_meets_the_limit(app: FastAPI) -> None:
     assert at_guard["leakage_ratio_db"][0]["ratio_db"] >= 45.0 - 0.05
 
 
-# Property: moving the neighbour further away never lets more power leak in (common practice:
-# ACLR improves with offset for a band-limited emission; checked over random gaps).
+# Property (DESIGN.md definition of the guard): at every gap beyond the guard needed for a limit,
+# the leakage ratio stays at or above that limit.  Not a monotonic law: a truncated filter's
+# sidelobes ripple, so the ratio may dip slightly as the gap grows (seen at the 1e-7 dB level).
+# Tolerance 0.05 dB for interpolation of the tabulated curve.
 @settings(max_examples=40, deadline=None)
 @given(
     st.sampled_from([0.1, 0.2, 0.35]),
-    st.lists(st.floats(min_value=0, max_value=5e5), min_size=2, max_size=6),
+    st.floats(min_value=20.0, max_value=60.0),
+    st.lists(st.floats(min_value=0, max_value=5e5), min_size=1, max_size=6),
 )
-def test_leakage_ratio_does_not_fall_with_gap(rolloff: float, gaps_hz: list[float]) -> None:
-    ordered = sorted(gaps_hz)
-    result = evaluate_carrier(
-        symbol_rate_baud=1e6,
-        rolloff=rolloff,
-        modulation=Modulation.QPSK,
-        code_rate=None,
-        filter_span_symbols=12,
-        esn0_db=10.0,
-        gaps_hz=ordered,
-    )
+def test_leakage_stays_within_limit_beyond_the_guard(
+    rolloff: float, limit_db: float, extra_gaps_hz: list[float]
+) -> None:
+    common: dict[str, Any] = {
+        "symbol_rate_baud": 1e6,
+        "rolloff": rolloff,
+        "modulation": Modulation.QPSK,
+        "code_rate": None,
+        "filter_span_symbols": 12,
+        "esn0_db": 10.0,
+        "leakage_limit_db": limit_db,
+    }
+    guard_hz = evaluate_carrier(**common).guard_needed_hz
+    assume(math.isfinite(guard_hz))
+    gaps = [guard_hz + extra for extra in extra_gaps_hz]
+    result = evaluate_carrier(**common, gaps_hz=gaps)
     ratios = np.array([item.ratio_db for item in result.leakage_ratio_db])
-    assert np.all(np.diff(ratios) >= -1e-9)
+    assert np.all(ratios >= limit_db - 0.05)
 
 
 # EN 302 307-1 (DVB-S2) Table 13 ideal Es/N0, normal FECFRAME 64 800 bits, PER 1e-7 (via

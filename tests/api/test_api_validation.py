@@ -36,7 +36,7 @@ def _set(doc: dict[str, Any], path: tuple[Any, ...], value: Any) -> dict[str, An
 
 
 def _demand(**changes: Any) -> dict[str, Any]:
-    demand = copy.deepcopy(SMALL_REQUEST["demands"][0])
+    demand: dict[str, Any] = copy.deepcopy(SMALL_REQUEST["demands"][0])
     demand.update(changes)
     return demand
 

@@ -1,0 +1,194 @@
+"""Service benchmark on loopback (127.0.0.1 only), bounded: fixed request counts.
+
+Starts ``bandwright serve`` in a child process on a free loopback port with a temporary SQLite
+store, then measures
+
+* ``POST /v1/carriers/evaluate``: requests per second and p50/p99 latency with N concurrent
+  clients (httpx.AsyncClient), after a warm-up;
+* ``POST /v1/plans`` latency for the demo request, against the same solve run in this process
+  (``to_problem`` + ``solver.solve``), both warm; the ratio is the service's overhead.
+
+Targets on 2 cores: ≥ 500 evaluate req/s with p99 < 50 ms; overhead < 10 % of the solve time.
+Run: ``.venv/bin/python bench/service.py``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import asyncio
+import json
+import logging
+import os
+import socket
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+from typing import Any
+
+import httpx
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+
+from service.cli import FALLBACK_DEMO_REQUEST  # noqa: E402
+from service.jobs import to_problem  # noqa: E402
+from service.schemas import PlanRequest  # noqa: E402
+
+logger = logging.getLogger("bench.service")
+
+LOOPBACK = "127.0.0.1"
+START_TIMEOUT_S = 60.0
+MS = 1e3
+PERCENT = 100.0
+EVALUATE_BODY: dict[str, Any] = {
+    "symbol_rate_baud": 2e6,
+    "rolloff": 0.2,
+    "modulation": "16APSK",
+    "code_rate": "3/4",
+    "filter_span_symbols": 16,
+    "cn0_dbhz": 82.0,
+    "gaps_hz": [0.0, 5e4, 2e5],
+    "leakage_limit_db": 40.0,
+}
+
+
+def _free_port() -> int:
+    with socket.socket() as sock:
+        sock.bind((LOOPBACK, 0))
+        return int(sock.getsockname()[1])
+
+
+def _start_server(db_dir: Path) -> tuple[subprocess.Popen[bytes], str]:
+    port = _free_port()
+    env = dict(os.environ, BANDWRIGHT_DATABASE_URL=f"sqlite:///{db_dir / 'bench.db'}")
+    env["PYTHONPATH"] = str(ROOT)
+    command = [
+        sys.executable,
+        "-m",
+        "service.cli",
+        "serve",
+        "--host",
+        LOOPBACK,
+        "--port",
+        str(port),
+    ]
+    server = subprocess.Popen(
+        command, env=env, cwd=db_dir, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL
+    )
+    base = f"http://{LOOPBACK}:{port}"
+    deadline = time.monotonic() + START_TIMEOUT_S
+    while time.monotonic() < deadline:
+        try:
+            if httpx.get(f"{base}/healthz", timeout=1.0).status_code == httpx.codes.OK:
+                return server, base
+        except httpx.TransportError:
+            time.sleep(0.1)
+    server.kill()
+    raise RuntimeError("the service did not start")
+
+
+def _percentile(values: list[float], q: float) -> float:
+    ordered = sorted(values)
+    index = min(len(ordered) - 1, round(q / PERCENT * (len(ordered) - 1)))
+    return ordered[index]
+
+
+async def _evaluate_load(base: str, total: int, concurrency: int) -> dict[str, float]:
+    latencies: list[float] = []
+    queue: asyncio.Queue[int] = asyncio.Queue()
+    for k in range(total):
+        queue.put_nowait(k)
+    limits = httpx.Limits(max_connections=concurrency, max_keepalive_connections=concurrency)
+    async with httpx.AsyncClient(base_url=base, limits=limits, timeout=30.0) as client:
+        for _ in range(50):  # warm-up: profile and catalogue caches, connections
+            (await client.post("/v1/carriers/evaluate", json=EVALUATE_BODY)).raise_for_status()
+
+        async def worker() -> None:
+            while not queue.empty():
+                queue.get_nowait()
+                started = time.perf_counter()
+                response = await client.post("/v1/carriers/evaluate", json=EVALUATE_BODY)
+                latencies.append(time.perf_counter() - started)
+                response.raise_for_status()
+
+        started = time.perf_counter()
+        await asyncio.gather(*(worker() for _ in range(concurrency)))
+        wall_s = time.perf_counter() - started
+    return {
+        "requests": float(total),
+        "per_second": total / wall_s,
+        "p50_ms": _percentile(latencies, 50) * MS,
+        "p99_ms": _percentile(latencies, 99) * MS,
+    }
+
+
+def _plan_rounds(base: str, request: dict[str, Any], repeats: int) -> dict[str, list[float]]:
+    """Interleave HTTP plans and in-process solves so machine load hits both alike."""
+    from solver import solve
+
+    rounds: dict[str, list[float]] = {"http_s": [], "server_solve_s": [], "local_s": []}
+    with httpx.Client(base_url=base, timeout=600.0) as client:
+        client.post("/v1/plans", json=request).raise_for_status()  # warm-up, both sides
+        solve(to_problem(PlanRequest.model_validate(request)))
+        for _ in range(repeats):
+            started = time.perf_counter()
+            response = client.post("/v1/plans", json=request)
+            rounds["http_s"].append(time.perf_counter() - started)
+            response.raise_for_status()
+            rounds["server_solve_s"].append(float(response.json()["summary"]["solve_time_s"]))
+            started = time.perf_counter()
+            solve(to_problem(PlanRequest.model_validate(request)))
+            rounds["local_s"].append(time.perf_counter() - started)
+    return rounds
+
+
+def _demo_request() -> dict[str, Any]:
+    path = ROOT / "examples" / "demo-request.json"
+    if path.exists():
+        request: dict[str, Any] = json.loads(path.read_text(encoding="utf-8"))
+        return request
+    return dict(FALLBACK_DEMO_REQUEST)
+
+
+def main() -> int:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    parser.add_argument("--requests", type=int, default=3000, help="evaluate requests")
+    parser.add_argument("--concurrency", type=int, default=16, help="concurrent clients")
+    parser.add_argument("--plan-repeats", type=int, default=5, help="timed plan requests")
+    args = parser.parse_args()
+    request = _demo_request()
+    with tempfile.TemporaryDirectory(prefix="bandwright-bench-") as tmp:
+        server, base = _start_server(Path(tmp))
+        try:
+            load = asyncio.run(_evaluate_load(base, args.requests, args.concurrency))
+            rounds = _plan_rounds(base, request, args.plan_repeats)
+        finally:
+            server.terminate()
+            server.wait(timeout=30)
+    http_median = statistics.median(rounds["http_s"])
+    local_median = statistics.median(rounds["local_s"])
+    solve_median = statistics.median(rounds["server_solve_s"])
+    overhead = (http_median - local_median) / local_median
+    wrapping = (http_median - solve_median) / solve_median
+    rows = [
+        ("evaluate requests", f"{load['requests']:.0f} at {args.concurrency} clients"),
+        ("evaluate throughput", f"{load['per_second']:.0f} req/s   (target ≥ 500)"),
+        ("evaluate p50 / p99", f"{load['p50_ms']:.1f} / {load['p99_ms']:.1f} ms   (p99 < 50)"),
+        ("demo plan over HTTP", f"median {http_median:.3f} s of {args.plan_repeats}"),
+        ("demo solve in process", f"median {local_median:.3f} s of {args.plan_repeats}"),
+        ("  overhead vs in process", f"{overhead * PERCENT:+.1f} %   (target < 10 %)"),
+        ("server-reported solve", f"median {solve_median:.3f} s"),
+        ("  HTTP + store around it", f"{wrapping * PERCENT:+.1f} % of the solve"),
+        ("demo request", str(request.get("name"))),
+        ("load average (1 min)", f"{os.getloadavg()[0]:.2f} on {os.cpu_count()} cores"),
+    ]
+    width = max(len(name) for name, _ in rows)
+    sys.stdout.write("".join(f"{name:<{width}}  {value}\n" for name, value in rows))
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
