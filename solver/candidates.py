@@ -20,7 +20,7 @@ from __future__ import annotations
 import functools
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import NamedTuple
 
 import numpy as np
@@ -44,6 +44,7 @@ __all__ = [
     "WIDTH_STEP",
     "Candidate",
     "DemandOptions",
+    "Family",
     "build_candidates",
     "candidate_for",
     "emission_key",
@@ -71,11 +72,78 @@ class Candidate:
 
 
 @dataclass(frozen=True)
+class Family:
+    """One (modulation, code rate, roll-off) over a range of widths.
+
+    The allocated width is ``2·h`` raster steps for an integer ``h`` in ``[lo_half, hi_half]``
+    (even, so the centre sits on the raster) and the symbol rate fills it, so width, guard and
+    throughput all grow linearly with ``h``: the packer chooses ``h`` as an integer variable.
+    ``top`` is the candidate at ``hi_half``.  A family with ``lo_half == hi_half`` is a single
+    candidate (its symbol rate may then sit below what fills the width).
+    """
+
+    top: Candidate
+    lo_half: int
+    hi_half: int
+    power_limited: bool
+    raster_hz: float
+
+    @classmethod
+    def single(cls, cand: Candidate, raster_hz: float = 1.0) -> Family:
+        half = cand.width_units // 2
+        return cls(cand, half, half, False, raster_hz)
+
+    @property
+    def guard_per_half(self) -> float:
+        """Guard (raster units) per half-width unit, before rounding up."""
+        return self.top.config.guard_hz / self.raster_hz / self.hi_half
+
+    @property
+    def edge_per_half(self) -> float:
+        return self.top.config.edge_guard_hz / self.raster_hz / self.hi_half
+
+    @property
+    def throughput_per_half_bps(self) -> float:
+        return self.top.config.throughput_bps / self.hi_half
+
+    @property
+    def config(self) -> CarrierConfig:
+        return self.top.config
+
+    def at(self, half: int) -> Candidate:
+        """The candidate ``half`` half-width units wide (guards scale with the symbol rate)."""
+        if half == self.hi_half:
+            return self.top
+        if not self.lo_half <= half <= self.hi_half:
+            raise ValueError(f"{half=} lies outside [{self.lo_half}, {self.hi_half}]")
+        top = self.top.config
+        scale = half / self.hi_half
+        rs = top.symbol_rate_baud * scale
+        esn0 = top.esn0_db - 10.0 * math.log10(scale) if self.power_limited else top.esn0_db
+        config = replace(
+            top,
+            symbol_rate_baud=rs,
+            allocated_bandwidth_hz=top.allocated_bandwidth_hz * scale,
+            occupied_bandwidth_hz=top.occupied_bandwidth_hz * scale,
+            guard_hz=top.guard_hz * scale,
+            edge_guard_hz=top.edge_guard_hz * scale,
+            throughput_bps=top.throughput_bps * scale,
+            esn0_db=esn0,
+        )
+        return Candidate(
+            config,
+            2 * half,
+            math.ceil(config.guard_hz / self.raster_hz - 1e-9),
+            math.ceil(config.edge_guard_hz / self.raster_hz - 1e-9),
+        )
+
+
+@dataclass(frozen=True)
 class DemandOptions:
-    """Every kept candidate of one demand, and why there are none when the list is empty."""
+    """Every kept family of one demand, and why there are none when the list is empty."""
 
     demand: Demand
-    candidates: tuple[Candidate, ...]
+    candidates: tuple[Family, ...]
     best_link_detail: str
 
 
@@ -273,14 +341,15 @@ def _immunity_limit_db(
     return np.ceil(needed * 2.0) / 2.0
 
 
-def build_candidates(
+def _discrete_candidates(
     problem: Problem,
     demand: Demand,
     *,
     max_per_demand: int = DEFAULT_MAX_PER_DEMAND,
     max_width_hz: float | None = None,
+    min_limit_db: float = 0.0,
 ) -> DemandOptions:
-    """Every useful configuration of ``demand``: closes its link, meets its minimum rate.
+    """Every useful single configuration of ``demand`` (used for ``max_margin``).
 
     A candidate's guard is the larger of the gap that keeps its own leakage ratio at the plan's
     limit and the gap that keeps interference from its neighbours within the allowance (see
@@ -296,6 +365,9 @@ def build_candidates(
         Upper bound on the number of candidates kept after Pareto pruning.
     max_width_hz : float, optional
         Widest allocation worth considering (the largest free segment); defaults to the block.
+    min_limit_db : float
+        A floor on the leakage ratio the guard must keep (dB), raised by verification when
+        this demand's emissions disturb a more sensitive neighbour.
 
     Returns
     -------
@@ -313,7 +385,8 @@ def build_candidates(
     esn0 = _esn0_db(demand, rs)
     margin = esn0 - combos.required_esn0_db[idx]
     weakest = max(d.relative_level_db for d in problem.demands) - demand.relative_level_db
-    limit = np.maximum(problem.leakage_limit_db, _immunity_limit_db(esn0, margin, demand, weakest))
+    floor = max(problem.leakage_limit_db, min_limit_db)
+    limit = np.maximum(floor, _immunity_limit_db(esn0, margin, demand, weakest))
     guard = _guard_per_baud(combos, idx, limit) * rs
     edge = _guard_per_baud(combos, idx, np.full(idx.size, problem.edge_limit_db)) * rs
     usable = np.isfinite(guard) & np.isfinite(edge)
@@ -344,7 +417,145 @@ def build_candidates(
         out.append(
             Candidate(config, int(grid.width_units[i]), int(guard_units[i]), int(edge_units[i]))
         )
-    return DemandOptions(demand, tuple(out), "")
+    return DemandOptions(demand, tuple(Family.single(c, raster) for c in out), "")
+
+
+def build_candidates(
+    problem: Problem,
+    demand: Demand,
+    *,
+    max_width_hz: float | None = None,
+    min_limit_db: float = 0.0,
+) -> DemandOptions:
+    """Every useful configuration family of ``demand``: closes its link, meets its minimum rate.
+
+    For ``max_throughput`` and ``min_bandwidth`` each (catalogue entry, roll-off) becomes one
+    :class:`Family` whose width runs from what the minimum rate needs to what the target rate
+    (or the link) allows, on the raster's even steps; families beaten on spectral cost per bit
+    over the whole of their throughput range are pruned.  For ``max_margin`` the margin varies
+    along a power-limited family, so single candidates on a 1 % width grid are used instead.
+
+    A guard is the larger of the gap that keeps the carrier's own leakage ratio at the plan's
+    limit (or ``min_limit_db`` when verification raised it) and the gap that keeps the
+    interference it receives within the allowance (:func:`_immunity_limit_db`, taken at the
+    widest point of the family, where the margin is smallest); the edge guard keeps the edge
+    limit.
+
+    Parameters
+    ----------
+    problem : Problem
+        Supplies the catalogue's coding parameters, the roll-offs and the leakage limits.
+    demand : Demand
+        The demand to serve.
+    max_width_hz : float, optional
+        Widest allocation worth considering; defaults to the block width.
+    min_limit_db : float
+        A floor on the leakage ratio the guard must keep (dB).
+
+    Returns
+    -------
+    DemandOptions
+        Families sorted by increasing top throughput; empty with a reason when none closes.
+    """
+    if problem.objective is Objective.MAX_MARGIN:
+        return _discrete_candidates(
+            problem, demand, max_width_hz=max_width_hz, min_limit_db=min_limit_db
+        )
+    raster = problem.block.raster_hz
+    combos = _combos(problem.coding, problem.transmitter, tuple(demand.modulations))
+    widest = problem.block.width_hz if max_width_hz is None else max_width_hz
+    span = _family_span(combos, demand, raster, widest)
+    if span.combo_index.size == 0:
+        return DemandOptions(demand, (), _no_link_detail(problem, demand, combos))
+    idx, rs = span.combo_index, span.top_rate_baud
+    esn0 = _esn0_db(demand, rs)
+    margin = esn0 - combos.required_esn0_db[idx]
+    weakest = max(d.relative_level_db for d in problem.demands) - demand.relative_level_db
+    floor = max(problem.leakage_limit_db, min_limit_db)
+    limit = np.maximum(floor, _immunity_limit_db(esn0, margin, demand, weakest))
+    guard = _guard_per_baud(combos, idx, limit) * rs
+    edge = _guard_per_baud(combos, idx, np.full(idx.size, problem.edge_limit_db)) * rs
+    usable = np.isfinite(guard) & np.isfinite(edge)
+    throughput = rs * combos.net_bits_per_symbol[idx]
+    per_half_cost = 2.0 + np.where(usable, guard, 0.0) / raster / span.hi_half
+    ratio = throughput / span.hi_half / per_half_cost
+    low_throughput = throughput * span.lo_half / span.hi_half
+    kept = [i for i in _family_front(ratio, low_throughput, throughput) if usable[i]]
+    families = []
+    for i in sorted(kept, key=lambda i: (throughput[i], -ratio[i])):
+        c = int(idx[i])
+        config = CarrierConfig(
+            demand_id=demand.id,
+            modulation=combos.modulation[c],
+            code_rate=combos.code_rate[c],
+            rolloff=float(combos.rolloff[c]),
+            symbol_rate_baud=float(rs[i]),
+            bits_per_symbol=int(combos.bits_per_symbol[c]),
+            allocated_bandwidth_hz=float(rs[i] * (1 + combos.rolloff[c])),
+            occupied_bandwidth_hz=float(rs[i] * combos.occupied_per_baud[c]),
+            guard_hz=float(guard[i]),
+            edge_guard_hz=float(edge[i]),
+            throughput_bps=float(throughput[i]),
+            esn0_db=float(esn0[i]),
+            required_esn0_db=float(combos.required_esn0_db[c]),
+        )
+        hi = int(span.hi_half[i])
+        top = Candidate(
+            config,
+            2 * hi,
+            math.ceil(guard[i] / raster - 1e-9),
+            math.ceil(edge[i] / raster - 1e-9),
+        )
+        families.append(Family(top, int(span.lo_half[i]), hi, demand.cn0_dbhz is not None, raster))
+    return DemandOptions(demand, tuple(families), "")
+
+
+class _Span(NamedTuple):
+    combo_index: NDArray[np.int64]
+    lo_half: NDArray[np.int64]
+    hi_half: NDArray[np.int64]
+    top_rate_baud: NDArray[np.float64]
+
+
+def _family_span(combos: _Combos, demand: Demand, raster_hz: float, max_width_hz: float) -> _Span:
+    """Half-width range of each combo: from the minimum rate to min(target, link limit).
+
+    When the whole range falls inside one even raster step, the family is a single point whose
+    symbol rate stays at the upper limit (below what fills the width).
+    """
+    net, alpha = combos.net_bits_per_symbol, combos.rolloff
+    rs_min = demand.min_rate_bps / net
+    rs_hi = np.minimum(
+        demand.target_rate_bps / net, _max_symbol_rate_baud(demand, combos.required_esn0_db)
+    )
+    step = 2.0 * raster_hz / (1 + alpha)  # symbol rate per half-width unit
+    lo = np.ceil(rs_min / step - 1e-9).astype(np.int64)
+    hi = np.floor(rs_hi / step + 1e-9).astype(np.int64)
+    ok = (rs_hi >= rs_min * (1 - 1e-12)) & (np.maximum(lo, 1) * 2 * raster_hz <= max_width_hz)
+    single = ok & (hi < lo)
+    hi = np.where(single, lo, hi)
+    top = np.where(single, rs_hi, hi * step)
+    idx = np.flatnonzero(ok & (lo >= 1))
+    return _Span(idx, lo[idx], hi[idx], top[idx])
+
+
+def _family_front(
+    ratio: NDArray[np.float64], low: NDArray[np.float64], high: NDArray[np.float64]
+) -> list[int]:
+    """Families not beaten by one that is cheaper per bit over their whole throughput range.
+
+    Family j beats i when it reaches at least i's top throughput and costs no more at i's
+    lowest throughput: above j's own minimum its cost per bit (1/ratio) is lower everywhere.
+    """
+    kept: list[int] = []
+    for i in np.argsort(-ratio, kind="stable"):
+        covered = any(
+            high[j] >= high[i] * (1 - 1e-9) and low[j] / ratio[j] <= low[i] / ratio[i] * (1 + 1e-9)
+            for j in kept
+        )
+        if not covered:
+            kept.append(int(i))
+    return kept
 
 
 def _front(

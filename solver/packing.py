@@ -30,15 +30,18 @@ from enum import StrEnum
 import ortools
 from ortools.sat.python import cp_model
 
-from solver.candidates import Candidate, DemandOptions
+from solver.candidates import Candidate, DemandOptions, Family
 from solver.model import Demand, Objective, ProgressEvent, SolveStatus
 
 __all__ = [
+    "GAP_TOLERANCE",
     "Boundary",
+    "ItemCoefficients",
     "PackingInput",
     "PackingResult",
     "Segment",
     "admission_weights",
+    "item_coefficients",
     "place_segment",
     "solve_packing",
 ]
@@ -51,6 +54,10 @@ _INT_HEADROOM = 2**60
 _THROUGHPUT_LEVELS = 1_000_000
 """Finest resolution of the throughput term: the largest target maps to this many units (fewer
 when the admission weights leave less integer headroom)."""
+
+GAP_TOLERANCE = 1e-4
+"""A solve stops as optimal once the proven gap is below this fraction of the range of the
+objective's last term (throughput, spectrum or margin): 0.01 %."""
 
 _MARGIN_STEP_DB = 0.1
 """Resolution of the margin term of ``max_margin``."""
@@ -107,7 +114,7 @@ class PackingInput:
     num_workers: int
     seed: int
     forbidden: frozenset[tuple[str, int]] = frozenset()
-    hints: dict[str, int] = field(default_factory=dict)
+    hints: dict[str, tuple[int, int]] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -115,7 +122,7 @@ class PackingResult:
     """The solver's choice: per segment, the (demand index, candidate index) pairs it holds."""
 
     status: SolveStatus
-    chosen: dict[int, list[tuple[int, int]]]
+    chosen: dict[int, list[tuple[int, int, int]]]
     objective_value: float
     best_bound: float
     optimality_gap: float
@@ -123,9 +130,14 @@ class PackingResult:
     solver_version: str
 
 
+_SCALE = 1000
+"""Capacity rows are scaled by this so that guard-per-width coefficients stay integers."""
+
+
 @dataclass
 class _Vars:
     x: dict[tuple[int, int, int], cp_model.IntVar]
+    half: dict[tuple[int, int, int], cp_model.LinearExpr]
     served: dict[int, cp_model.LinearExpr]
 
 
@@ -144,20 +156,33 @@ def admission_weights(demands: Sequence[Demand]) -> list[int]:
 
 
 def _make_choice_vars(model: cp_model.CpModel, data: PackingInput) -> _Vars:
-    """One boolean per (demand, candidate, segment) where the candidate fits the segment alone."""
+    """Per (demand, family, segment) where its narrowest member fits alone: a boolean x and
+    the half-width h (an integer in [lo, hi] when x, else 0; a constant for single points)."""
     x: dict[tuple[int, int, int], cp_model.IntVar] = {}
-    served: dict[int, cp_model.LinearExpr] = {}
+    half: dict[tuple[int, int, int], cp_model.LinearExpr] = {}
     for d, opts in enumerate(data.options):
-        for k, cand in enumerate(opts.candidates):
+        for k, fam in enumerate(opts.candidates):
             if (opts.demand.id, k) in data.forbidden:
                 continue
+            narrowest = fam.at(fam.lo_half)
             for s, seg in enumerate(data.segments):
-                if seg.fits_alone(cand):
-                    x[d, k, s] = model.new_bool_var(f"x_{d}_{k}_{s}")
+                if not seg.fits_alone(narrowest):
+                    continue
+                var = model.new_bool_var(f"x_{d}_{k}_{s}")
+                x[d, k, s] = var
+                if fam.lo_half == fam.hi_half:
+                    half[d, k, s] = cp_model.LinearExpr.term(var, fam.hi_half)
+                    continue
+                h = model.new_int_var(0, fam.hi_half, f"h_{d}_{k}_{s}")
+                model.add(h >= fam.lo_half * var)
+                model.add(h <= fam.hi_half * var)
+                half[d, k, s] = h
+    served: dict[int, cp_model.LinearExpr] = {}
+    for d in range(len(data.options)):
         choices = [v for (dd, _, _), v in x.items() if dd == d]
         if choices:
             served[d] = cp_model.LinearExpr.sum(choices)
-    return _Vars(x, served)
+    return _Vars(x, half, served)
 
 
 # ---------------------------------------------------------------- constraints
@@ -172,30 +197,83 @@ def _at_most_one_carrier_per_demand(model: cp_model.CpModel, v: _Vars) -> None:
         model.add_at_most_one(choices)
 
 
+def _up(value: float) -> int:
+    return math.ceil(value * _SCALE - 1e-6)
+
+
+@dataclass(frozen=True)
+class ItemCoefficients:
+    """Scaled, linear upper bounds of one item's needs: ``a·h + b·x`` each.
+
+    ``body`` is width plus guard, ``delta`` the extra guard towards the left boundary and
+    ``right`` the guard towards the right boundary; ``*_top`` are their largest values.
+    Single points are exact; a family's rounded-up guards cost at most one unit more.
+    """
+
+    body_h: int
+    body_x: int
+    delta_h: int
+    delta_x: int
+    right_h: int
+    right_x: int
+
+    def top(self, hi_half: int) -> tuple[int, int]:
+        return self.delta_h * hi_half + self.delta_x, self.right_h * hi_half + self.right_x
+
+
+def _lin(terms: Sequence[tuple[cp_model.LinearExpr, int]]) -> cp_model.LinearExpr:
+    kept = [(t, c) for t, c in terms if c]
+    return cp_model.LinearExpr.weighted_sum([t for t, _ in kept], [c for _, c in kept])
+
+
+def item_coefficients(seg: Segment, fam: Family) -> ItemCoefficients:
+    """Capacity-row coefficients of family ``fam`` in segment ``seg`` (see the module notes)."""
+    if fam.lo_half == fam.hi_half:
+        c = fam.top
+        delta = max(seg.left_need(c) - c.guard_units, 0) * _SCALE
+        return ItemCoefficients(
+            0, (c.width_units + c.guard_units) * _SCALE, 0, delta, 0, seg.right_need(c) * _SCALE
+        )
+    g, e = fam.guard_per_half, fam.edge_per_half
+    if seg.left is Boundary.EDGE:
+        delta_h, delta_x = _up(max(e - g, 0.0)), _SCALE
+    else:
+        delta_h, delta_x = 0, seg.left_guard * _SCALE
+    per_half = e if seg.right is Boundary.EDGE else g
+    extra = 0 if seg.right is Boundary.EDGE else seg.right_guard * _SCALE
+    return ItemCoefficients(
+        2 * _SCALE + _up(g), _SCALE, delta_h, delta_x, _up(per_half), _SCALE + extra
+    )
+
+
 def _segment_capacity(
     model: cp_model.CpModel, data: PackingInput, v: _Vars
 ) -> dict[int, cp_model.LinearExprT]:
-    """Hard: Σ(w + g) + max δ + max hR fits in every segment (see the module docstring)."""
+    """Hard: Σ(w + g) + max δ + max hR fits in every segment (see the module docstring).
+
+    The maxima are integer variables bounded below by each item's (linear) need, so the LP
+    relaxation sees them.  Rows are scaled by :data:`_SCALE`.
+    """
     used: dict[int, cp_model.LinearExprT] = {}
     for s, seg in enumerate(data.segments):
-        items = [(d, k, var) for (d, k, ss), var in v.x.items() if ss == s]
-        if not items:
+        keys = [key for key in v.x if key[2] == s]
+        if not keys:
             continue
-        cands = [data.options[d].candidates[k] for d, k, _ in items]
-        deltas = [max(seg.left_need(c) - c.guard_units, 0) for c in cands]
-        rights = [seg.right_need(c) for c in cands]
-        delta_max = model.new_int_var(0, max(deltas), f"delta_{s}")
-        right_max = model.new_int_var(0, max(rights), f"right_{s}")
-        for (_, _, var), delta, right in zip(items, deltas, rights, strict=True):
-            if delta:
-                model.add(delta_max >= delta).only_enforce_if(var)
-            if right:
-                model.add(right_max >= right).only_enforce_if(var)
-        body = sum(
-            (c.width_units + c.guard_units) * var
-            for c, (_, _, var) in zip(cands, items, strict=True)
-        )
-        model.add(body + delta_max + right_max <= seg.length)
+        coefs = [item_coefficients(seg, data.options[d].candidates[k]) for d, k, _ in keys]
+        tops = [
+            c.top(data.options[d].candidates[k].hi_half)
+            for c, (d, k, _) in zip(coefs, keys, strict=True)
+        ]
+        delta_max = model.new_int_var(0, max(t[0] for t in tops), f"delta_{s}")
+        right_max = model.new_int_var(0, max(t[1] for t in tops), f"right_{s}")
+        body_terms: list[tuple[cp_model.LinearExpr, int]] = []
+        for c, key in zip(coefs, keys, strict=True):
+            h, x = v.half[key], v.x[key]
+            model.add(delta_max >= _lin([(h, c.delta_h), (x, c.delta_x)]))
+            model.add(right_max >= _lin([(h, c.right_h), (x, c.right_x)]))
+            body_terms += [(h, c.body_h), (x, c.body_x)]
+        body = _lin(body_terms)
+        model.add(body + delta_max + right_max <= seg.length * _SCALE)
         used[s] = body + delta_max + right_max
     return used
 
@@ -225,15 +303,20 @@ def _throughput_unit_bps(data: PackingInput, v: _Vars, headroom: int) -> float:
 
 
 def _throughput_term(data: PackingInput, v: _Vars, headroom: int) -> _Term:
-    """Soft: priority-weighted throughput, each demand capped at its target rate."""
+    """Soft: priority-weighted throughput, each demand capped at its target rate.
+
+    Throughput grows linearly with the half-width inside a family (rounded down to whole
+    units, so the objective never credits more than the carrier carries).
+    """
     unit = _throughput_unit_bps(data, v, headroom)
     terms, upper = [], 0
-    for (d, k, _), var in v.x.items():
+    for (d, k, _), h in v.half.items():
         opts = data.options[d]
-        capped = min(opts.candidates[k].throughput_bps, opts.demand.target_rate_bps)
-        terms.append(data.priorities[d] * round(capped / unit) * var)
+        fam = opts.candidates[k]
+        per_half = min(fam.throughput_per_half_bps, opts.demand.target_rate_bps / fam.hi_half)
+        terms.append(data.priorities[d] * math.floor(per_half / unit) * h)
     for d in v.served:
-        upper += data.priorities[d] * round(data.options[d].demand.target_rate_bps / unit)
+        upper += data.priorities[d] * math.ceil(data.options[d].demand.target_rate_bps / unit)
     return _Term(sum(terms), upper)
 
 
@@ -245,7 +328,7 @@ def _spectrum_term(data: PackingInput, used: dict[int, cp_model.LinearExprT]) ->
     """
     n = len(data.segments)
     cost = sum((n + s) * u for s, u in used.items())
-    upper = sum((n + s) * data.segments[s].length for s in used)
+    upper = sum((n + s) * data.segments[s].length * _SCALE for s in used)
     return _Term(upper - cost, upper)
 
 
@@ -264,17 +347,22 @@ def _margin_term(model: cp_model.CpModel, data: PackingInput, v: _Vars) -> _Term
     return _Term(floor_var, top)
 
 
-def _lexicographic(model: cp_model.CpModel, terms: Sequence[_Term]) -> None:
-    """Maximise the terms in order: each weight exceeds the whole range of the terms after it."""
+def _lexicographic(model: cp_model.CpModel, terms: Sequence[_Term]) -> int:
+    """Maximise the terms in order: each weight exceeds the whole range of the terms after it.
+
+    Returns the weight of the first term (admission), for reporting the gap without it.
+    """
     weight, total = 1, 0
     weighted: list[cp_model.LinearExprT] = []
     for term in reversed(terms):
         weighted.append(weight * term.expr)
         total += weight * term.upper
+        first_weight = weight
         weight = weight * (term.upper + 1)
     if total > _INT_HEADROOM:
         raise OverflowError(f"objective range {total} exceeds the solver's integer headroom")
     model.maximize(sum(weighted))
+    return first_weight
 
 
 def _objective_terms(
@@ -324,8 +412,9 @@ def _gap(objective: float, bound: float) -> float:
     return abs(bound - objective) / max(1.0, abs(objective))
 
 
-def _configure(solver: cp_model.CpSolver, data: PackingInput) -> None:
+def _configure(solver: cp_model.CpSolver, data: PackingInput, gap_units: float) -> None:
     params = solver.parameters
+    params.absolute_gap_limit = max(gap_units, 1e-4)
     params.max_time_in_seconds = max(0.05, data.time_limit_s)
     params.num_workers = max(1, data.num_workers)
     params.random_seed = data.seed
@@ -344,10 +433,15 @@ def _watch_cancel(
 
 
 def _add_hints(model: cp_model.CpModel, data: PackingInput, v: _Vars) -> None:
-    for (d, k, _), var in v.x.items():
+    """Hint the decisions only (family and half-width), as the CP-SAT notes advise."""
+    for (d, k, s), var in v.x.items():
         wanted = data.hints.get(data.options[d].demand.id)
-        if wanted is not None:
-            model.add_hint(var, 1 if wanted == k else 0)
+        if wanted is None:
+            continue
+        model.add_hint(var, 1 if wanted[0] == k else 0)
+        h = v.half[d, k, s]
+        if wanted[0] == k and isinstance(h, cp_model.IntVar):
+            model.add_hint(h, wanted[1])
 
 
 def solve_packing(
@@ -376,11 +470,14 @@ def solve_packing(
     v = _make_choice_vars(model, data)
     _at_most_one_carrier_per_demand(model, v)
     used = _segment_capacity(model, data, v)
-    _lexicographic(model, _objective_terms(model, data, v, used))
+    terms = _objective_terms(model, data, v, used)
+    admission_weight = _lexicographic(model, terms)
     _add_hints(model, data, v)
 
     solver = cp_model.CpSolver()
-    _configure(solver, data)
+    # Stop once the proven gap is below GAP_TOLERANCE of the last term's range (which is then
+    # reported as "optimal" together with the gap actually reached).
+    _configure(solver, data, GAP_TOLERANCE * terms[-1].upper)
     done = threading.Event()
     if cancel is not None:
         threading.Thread(target=_watch_cancel, args=(solver, cancel, done), daemon=True).start()
@@ -390,23 +487,32 @@ def solve_packing(
     finally:
         done.set()
     elapsed = time.perf_counter() - started
-    return _extract(solver, status, v, elapsed)
+    admission = _Term(terms[0].expr, admission_weight)
+    return _extract(solver, status, v, elapsed, admission)
 
 
 def _extract(
-    solver: cp_model.CpSolver, status: cp_model.CpSolverStatus, v: _Vars, elapsed: float
+    solver: cp_model.CpSolver,
+    status: cp_model.CpSolverStatus,
+    v: _Vars,
+    elapsed: float,
+    admission: _Term,
 ) -> PackingResult:
+    """Read the choice; the gap is reported relative to the objective less its admission part,
+    so it speaks of throughput (or spectrum, or margin) rather than vanish behind admission."""
     version = str(getattr(ortools, "__version__", "unknown"))
     if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
         # No solution at all (UNKNOWN when the time ran out first): nothing is served.
         return PackingResult(SolveStatus.INFEASIBLE, {}, 0.0, 0.0, 0.0, elapsed, version)
-    chosen: dict[int, list[tuple[int, int]]] = {}
+    chosen: dict[int, list[tuple[int, int, int]]] = {}
     for (d, k, s), var in v.x.items():
         if solver.boolean_value(var):
-            chosen.setdefault(s, []).append((d, k))
+            chosen.setdefault(s, []).append((d, k, int(solver.value(v.half[d, k, s]))))
     obj, bound = solver.objective_value, solver.best_objective_bound
+    rest = obj - admission.upper * solver.value(admission.expr)
+    gap = abs(bound - obj) / max(1.0, abs(rest))
     state = SolveStatus.OPTIMAL if status == cp_model.OPTIMAL else SolveStatus.FEASIBLE
-    return PackingResult(state, chosen, obj, bound, _gap(obj, bound), elapsed, version)
+    return PackingResult(state, chosen, obj, bound, gap, elapsed, version)
 
 
 # ---------------------------------------------------------------- placement

@@ -16,7 +16,13 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 
 from solver import bounds
-from solver.candidates import Candidate, DemandOptions, build_candidates, candidate_for
+from solver.candidates import (
+    Candidate,
+    DemandOptions,
+    Family,
+    build_candidates,
+    candidate_for,
+)
 from solver.model import (
     Carrier,
     Objective,
@@ -114,7 +120,9 @@ def _fix_pinned(
         center = demand.pinned_center_hz
         assert center is not None
         fitting = [
-            c for c in options[demand.id].candidates if _pinned_fits(problem, center, c, placed)
+            c
+            for fam in options[demand.id].candidates
+            if (c := _widest_fitting(problem, center, fam, placed)) is not None
         ]
         if not fitting:
             reason = (
@@ -132,6 +140,19 @@ def _fix_pinned(
         )
         placed.append((Carrier(best.config, center, 0.0, 0.0), best))
     return placed, unserved
+
+
+def _widest_fitting(
+    problem: Problem, center: float, fam: Family, placed: Sequence[tuple[Carrier, Candidate]]
+) -> Candidate | None:
+    """The widest member of ``fam`` (in steps of about 2 %) that fits at ``center``."""
+    half = fam.hi_half
+    while half >= fam.lo_half:
+        cand = fam.at(half)
+        if _pinned_fits(problem, center, cand, placed):
+            return cand
+        half = min(half - 1, math.floor(half / 1.02))
+    return None
 
 
 def _pinned_fits(
@@ -156,9 +177,9 @@ def _pinned_fits(
 # ---------------------------------------------------------------- admission and hints
 
 
-def _hints(options: Sequence[DemandOptions]) -> dict[str, int]:
-    """Index of the candidate closest to each demand's current setting (replans)."""
-    hints: dict[str, int] = {}
+def _hints(options: Sequence[DemandOptions]) -> dict[str, tuple[int, int]]:
+    """Family and half-width closest to each demand's current setting (replans)."""
+    hints: dict[str, tuple[int, int]] = {}
     for opts in options:
         cur = opts.demand.current
         if cur is None:
@@ -171,7 +192,10 @@ def _hints(options: Sequence[DemandOptions]) -> dict[str, int]:
             and math.isclose(c.config.rolloff, cur.rolloff)
         ]
         if same:
-            hints[opts.demand.id] = min(same)[1]
+            k = min(same)[1]
+            fam = opts.candidates[k]
+            width = cur.symbol_rate_baud * (1 + cur.rolloff) / fam.raster_hz / 2
+            hints[opts.demand.id] = (k, min(max(round(width), fam.lo_half), fam.hi_half))
     return hints
 
 
@@ -184,30 +208,55 @@ def _place(problem: Problem, data: PackingInput, result: PackingResult) -> tuple
     carriers: list[Carrier] = []
     for s, picks in sorted(result.chosen.items()):
         seg = data.segments[s]
-        picks = sorted(picks, key=lambda dk: data.options[dk[0]].demand.id)
-        cands = [data.options[d].candidates[k] for d, k in picks]
+        picks = sorted(picks, key=lambda dkh: data.options[dkh[0]].demand.id)
+        cands = [data.options[d].candidates[k].at(h) for d, k, h in picks]
         for cand, low in zip(cands, place_segment(seg, cands, pack_low=pack_low), strict=True):
             center = problem.block.start_hz + (low + cand.width_units / 2) * raster
             carriers.append(Carrier(cand.config, center, 0.0, 0.0))
     return tuple(carriers)
 
 
-def _bump(options: list[DemandOptions], blamed: set[str], round_no: int) -> list[DemandOptions]:
-    """Cut: blamed demands need more guard (a quarter of their width, growing each round)."""
-    out = []
-    for opts in options:
-        if opts.demand.id in blamed:
-            bumped = tuple(
-                replace(
-                    c,
-                    guard_units=c.guard_units + max(1, c.width_units * round_no // 4),
-                    edge_units=c.edge_units + max(1, c.width_units * round_no // 4),
+def _raise_floors(check: Verification, floors: dict[str, float], fixed: set[str]) -> set[str]:
+    """Cut: each carrier to blame must keep its leakage below what its victim needs.
+
+    For interference the culprit is the victim's strongest interferer; the victim shares its
+    need between two neighbours (+3 dB).  A leaker that misses a limit gets 1 dB above it.
+    Returns the demands whose floor rose.
+    """
+    raised: set[str] = set()
+    for v in check.violations:
+        if v.culprit is None or v.culprit in fixed or not math.isfinite(v.needed_db):
+            continue
+        extra = 1.0 if v.culprit == v.demand_id else 10.0 * math.log10(2.0)
+        wanted = math.ceil((v.needed_db + extra) * 2.0) / 2.0
+        if wanted > floors.get(v.culprit, 0.0):
+            floors[v.culprit] = wanted
+            raised.add(v.culprit)
+    return raised
+
+
+def _solution_hints(
+    attempt: PackingInput, result: PackingResult, options: Sequence[DemandOptions]
+) -> dict[str, tuple[int, int]]:
+    """The last round's choice, mapped onto the (possibly rebuilt) families of the next one."""
+    hints: dict[str, tuple[int, int]] = {}
+    for picks in result.chosen.values():
+        for d, k, h in picks:
+            chosen = attempt.options[d].candidates[k].config
+            new = options[d].candidates
+            same = [
+                j
+                for j, fam in enumerate(new)
+                if (fam.config.modulation, fam.config.code_rate, fam.config.rolloff)
+                == (chosen.modulation, chosen.code_rate, chosen.rolloff)
+            ]
+            if same:
+                fam = new[same[0]]
+                hints[attempt.options[d].demand.id] = (
+                    same[0],
+                    min(max(h, fam.lo_half), fam.hi_half),
                 )
-                for c in opts.candidates
-            )
-            opts = replace(opts, candidates=bumped)
-        out.append(opts)
-    return out
+    return hints
 
 
 def _solve_and_verify(
@@ -217,23 +266,44 @@ def _solve_and_verify(
     progress: Callable[[ProgressEvent], None] | None,
     cancel: threading.Event | None,
 ) -> tuple[Verification, PackingResult, int, list[Unserved]]:
-    """Solve, place, verify; cut and re-solve on failure; never return a failing plan."""
+    """Solve, place, verify; cut and re-solve on failure; never return a failing plan.
+
+    The first solve gets half of the time limit, each repair round half of what is left and
+    the previous round's choice as a hint.  A round that finds nothing in its time falls back
+    to the previous round's plan less the carriers to blame.
+    """
+    deadline = time.perf_counter() + problem.time_limit_s
     options = list(data.options)
-    pinned_ids = {p.demand_id for p in pinned}
+    fixed = {p.demand_id for p in pinned}
+    floors: dict[str, float] = {}
+    budget, hints = problem.time_limit_s * 0.5, data.hints
+    previous: tuple[Verification, PackingResult] | None = None
     round_no = 0
     while True:
         round_no += 1
-        attempt = replace(data, options=options)
+        attempt = replace(data, options=options, time_limit_s=max(budget, 0.2), hints=hints)
         result = solve_packing(attempt, progress=progress, cancel=cancel)
+        if not result.chosen and previous is not None:
+            check, dropped = _drop_until_passing(problem, previous[0])
+            return check, previous[1], round_no, dropped
         check = verify_plan(problem, [*pinned, *_place(problem, attempt, result)])
         if check.passed:
             return check, result, round_no, []
-        blamed = {v.demand_id for v in check.violations} - pinned_ids
-        log.info("verification round %d failed for %s", round_no, sorted(blamed))
-        if round_no > MAX_REPAIR_ROUNDS or not blamed or (cancel is not None and cancel.is_set()):
+        raised = _raise_floors(check, floors, fixed)
+        log.info("verification round %d failed; stricter emission for %s", round_no, sorted(raised))
+        left = deadline - time.perf_counter()
+        stop = cancel is not None and cancel.is_set()
+        if round_no > MAX_REPAIR_ROUNDS or not raised or left <= 0.2 or stop:
             check, dropped = _drop_until_passing(problem, check)
             return check, result, round_no, dropped
-        options = _bump(options, blamed, round_no)
+        options = [
+            build_candidates(problem, o.demand, min_limit_db=floors[o.demand.id])
+            if o.demand.id in raised
+            else o
+            for o in options
+        ]
+        previous, hints = (check, result), _solution_hints(attempt, result, options)
+        budget = left / 2
 
 
 def _drop_until_passing(
@@ -263,10 +333,11 @@ def _explain_unserved(
     """Words for every demand without a carrier."""
     raster = problem.block.raster_hz
     largest = max((s.length for s in segments), default=0)
+    narrowest = {o.demand.id: [f.at(f.lo_half) for f in o.candidates] for o in options}
     need_units = {
-        o.demand.id: min(c.width_units + c.guard_units + c.edge_units for c in o.candidates)
-        for o in options
-        if o.candidates
+        d: min(c.width_units + c.guard_units + c.edge_units for c in cands)
+        for d, cands in narrowest.items()
+        if cands
     }
     shortfall_hz = (sum(need_units.values()) - sum(s.length for s in segments)) * raster
     out: list[Unserved] = []
@@ -276,7 +347,7 @@ def _explain_unserved(
             continue
         if not opts.candidates:
             out.append(Unserved(demand_id, UnservedReason.NO_LINK, opts.best_link_detail))
-        elif not any(seg.fits_alone(c) for c in opts.candidates for seg in segments):
+        elif not any(seg.fits_alone(c) for c in narrowest[demand_id] for seg in segments):
             need = need_units[demand_id] * raster
             out.append(
                 Unserved(

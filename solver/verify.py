@@ -60,6 +60,8 @@ class Violation:
     demand_id: str
     kind: ViolationKind
     detail: str
+    culprit: str | None = None
+    needed_db: float = math.nan
 
 
 @dataclass(frozen=True)
@@ -128,7 +130,7 @@ def _side_ratio(problem: Problem, c: Carrier, gap_hz: float, side: Side) -> floa
     key = _key(problem, c)
     rs = c.config.symbol_rate_baud
     # Beyond the profile's reach the leakage is taken at its farthest gap (conservative).
-    gap = min(max(gap_hz, 0.0), emission.get_profile(key).max_gap * rs)
+    gap = min(max(gap_hz, 0.0), emission.get_profile(key).max_gap * rs * (1 - 1e-9))
     return float(emission.leakage_ratio_db_at(key, rs, gap, side))
 
 
@@ -172,6 +174,8 @@ def _leakage(problem: Problem, carriers: list[Carrier]) -> tuple[list[Carrier], 
                         kind,
                         f"leakage ratio {ratio:.1f} dB towards {what} ({side}) is below "
                         f"the {limit:.1f} dB limit",
+                        culprit=c.demand_id,
+                        needed_db=limit,
                     )
                 )
         out.append(
@@ -191,6 +195,36 @@ def _density(
     return level * profile.psd_at((freq_hz - c.center_hz) / rs)
 
 
+def _received(
+    problem: Problem, victim: Carrier, carriers: Sequence[Carrier], levels: dict[str, float]
+) -> tuple[float, dict[str, float]]:
+    """Signal power and each other carrier's power through the victim's matched filter."""
+    rs = victim.config.symbol_rate_baud
+    matched = emission.get_profile(_key(problem, victim, linear=True))
+    freq = victim.center_hz + matched.freq * rs
+    response = matched.psd / float(matched.psd_at(np.zeros(1))[0])
+    own = _density(problem, victim, levels[victim.demand_id], freq)
+    signal = float(np.trapezoid(own * response, freq))
+    reach = float(np.max(np.abs(matched.freq))) * rs
+    powers: dict[str, float] = {}
+    for other in carriers:
+        if other is victim:
+            continue
+        profile = emission.get_profile(_key(problem, other))
+        other_reach = float(np.max(np.abs(profile.freq))) * other.config.symbol_rate_baud
+        if abs(other.center_hz - victim.center_hz) > reach + other_reach:
+            continue
+        density = _density(problem, other, levels[other.demand_id], freq)
+        powers[other.demand_id] = float(np.trapezoid(density * response, freq))
+    return signal, powers
+
+
+def _needed_c_over_i_db(esn0_db: float, required_db: float, floor_db: float) -> float:
+    """C/I that leaves exactly ``floor_db`` of margin: 1/(1/Es/N0 + 1/(C/I)) = req + floor."""
+    target = 10.0 ** (-(required_db + floor_db) / 10.0) - 10.0 ** (-esn0_db / 10.0)
+    return math.inf if target <= 0 else -10.0 * math.log10(target)
+
+
 def _interference(
     problem: Problem, carriers: list[Carrier]
 ) -> tuple[list[Carrier], list[Violation]]:
@@ -200,39 +234,25 @@ def _interference(
     found: list[Violation] = []
     out: list[Carrier] = []
     for v in carriers:
-        rs = v.config.symbol_rate_baud
-        matched = emission.get_profile(_key(problem, v, linear=True))
-        freq = v.center_hz + matched.freq * rs
-        response = matched.psd / float(matched.psd_at(np.zeros(1))[0])
-        signal = float(
-            np.trapezoid(_density(problem, v, levels[v.demand_id], freq) * response, freq)
-        )
-        reach = float(np.max(np.abs(matched.freq))) * rs
-        interference = 0.0
-        for other in carriers:
-            if other is v:
-                continue
-            other_reach = 8.0 * other.config.symbol_rate_baud * (1 + other.config.rolloff)
-            if abs(other.center_hz - v.center_hz) > reach + other_reach:
-                continue
-            interference += float(
-                np.trapezoid(
-                    _density(problem, other, levels[other.demand_id], freq) * response, freq
-                )
-            )
-        c_over_i = math.inf if interference <= 0 else 10.0 * math.log10(signal / interference)
-        esn0_lin = 10.0 ** (v.config.esn0_db / 10.0)
+        signal, powers = _received(problem, v, carriers, levels)
+        interference = sum(powers.values())
         ci_lin = math.inf if interference <= 0 else signal / interference
+        c_over_i = 10.0 * math.log10(ci_lin)
+        esn0_lin = 10.0 ** (v.config.esn0_db / 10.0)
         effective_db = 10.0 * math.log10(1.0 / (1.0 / esn0_lin + 1.0 / ci_lin))
         margin_after = effective_db - v.config.required_esn0_db
         floor = margins[v.demand_id] - INTERFERENCE_ALLOWANCE_DB
         if margin_after < floor:
+            culprit = max(powers, key=lambda d: powers[d])
+            needed = _needed_c_over_i_db(v.config.esn0_db, v.config.required_esn0_db, floor)
             found.append(
                 Violation(
                     v.demand_id,
                     ViolationKind.INTERFERENCE,
                     f"margin after interference {margin_after:.2f} dB is below {floor:.2f} dB "
-                    f"(C/I {c_over_i:.1f} dB)",
+                    f"(C/I {c_over_i:.1f} dB, {needed:.1f} dB needed; most from {culprit})",
+                    culprit=culprit,
+                    needed_db=needed,
                 )
             )
         out.append(replace(v, c_over_i_db=c_over_i, margin_after_interference_db=margin_after))

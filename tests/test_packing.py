@@ -12,7 +12,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from solver.candidates import Candidate, DemandOptions
+from solver.candidates import Candidate, DemandOptions, Family
 from solver.model import CarrierConfig, Demand, Modulation, Objective, SolveStatus
 from solver.packing import (
     Boundary,
@@ -49,7 +49,7 @@ def _options(
     demand: str, *cands: Candidate, priority: int = 1, target: float = 100.0
 ) -> DemandOptions:
     d = Demand(id=demand, min_rate_bps=1.0, target_rate_bps=target, priority=priority, esn0_db=20.0)
-    return DemandOptions(d, cands, "")
+    return DemandOptions(d, tuple(Family.single(c) for c in cands), "")
 
 
 def _input(
@@ -70,7 +70,7 @@ def _input(
 
 
 def _served(result, data) -> dict[str, int]:
-    return {data.options[d].demand.id: k for picks in result.chosen.values() for d, k in picks}
+    return {data.options[d].demand.id: k for picks in result.chosen.values() for d, k, _ in picks}
 
 
 @pytest.mark.parametrize(("length", "all_fit"), [(78, True), (77, False)])
@@ -194,7 +194,7 @@ def test_solution_always_places_without_conflict(
     data = _input(options, [seg])
     result = solve_packing(data)
     picks = result.chosen.get(0, [])
-    cands = [data.options[d].candidates[k] for d, k in picks]
+    cands = [data.options[d].candidates[k].at(h) for d, k, h in picks]
     if not cands:
         return
     lows = place_segment(seg, cands, pack_low=False)
