@@ -130,16 +130,18 @@ class ProgressLine:
         self._last = -PROGRESS_AFTER_S
 
     def __call__(self, event: ProgressEvent) -> None:
-        self.show(event.elapsed_s, event.objective_value, event.optimality_gap)
+        self.show(event.objective_value, event.optimality_gap)
 
-    def show(self, elapsed_s: float, objective: float | None, gap: float | None) -> None:
+    def show(self, objective: float | None, gap: float | None) -> None:
         now = time.monotonic() - self._started
         if now < PROGRESS_AFTER_S or now - self._last < PROGRESS_AFTER_S:
             return
         self._last = now
         best = "—" if objective is None else f"{objective:.6g}"
         gap_text = "—" if gap is None else f"{gap * PERCENT:.2f} %"
-        _err(f"solving: elapsed {elapsed_s:6.1f} s  best objective {best}  gap {gap_text}")
+        # Wall time since the command started waiting: the solver's own clock restarts with
+        # each verification round.
+        _err(f"solving: elapsed {now:6.1f} s  best objective {best}  gap {gap_text}")
 
 
 # ----------------------------------------------------------------------------- summary
@@ -147,8 +149,9 @@ class ProgressLine:
 
 def summary_table(plan: PlanOut) -> str:
     """A readable table of the plan: one line per carrier, then unserved demands and totals."""
+    width = max([len("demand"), *(len(c.demand_id) for c in plan.carriers)]) + 2
     head = (
-        f"{'demand':<14}{'centre MHz':>14}{'Rs Mbaud':>10}{'α':>6}  {'MODCOD':<16}"
+        f"{'demand':<{width}}{'centre MHz':>14}{'Rs Mbaud':>10}{'α':>6}  {'MODCOD':<16}"
         f"{'Mbit/s':>9}{'margin dB':>10}{'guard kHz':>16}"
     )
     lines = [f"plan {plan.id or '(not stored)'}  {plan.name!r}  status {plan.status.value}", head]
@@ -157,7 +160,7 @@ def summary_table(plan: PlanOut) -> str:
         modcod = f"{c.modulation.value} {c.code_rate}"
         guards = f"{c.guard_below_hz / KHZ:.1f}/{c.guard_above_hz / KHZ:.1f}"
         lines.append(
-            f"{c.demand_id:<14}{c.center_hz / MHZ:>14.4f}{c.symbol_rate_baud / MHZ:>10.4f}"
+            f"{c.demand_id:<{width}}{c.center_hz / MHZ:>14.4f}{c.symbol_rate_baud / MHZ:>10.4f}"
             f"{c.rolloff:>6.2f}  {modcod:<16}{c.throughput_bps / MHZ:>9.3f}{c.margin_db:>10.2f}"
             f"{guards:>16}"
         )
@@ -253,7 +256,7 @@ def _wait_for_job(client: httpx.Client, location: str) -> str:
             raise CliError(ExitCode.FAILED, f"job failed: {error.get('detail', 'unknown')}")
         if job.get("progress"):
             p = job["progress"]
-            progress.show(p["elapsed_s"], p["objective_value"], p["optimality_gap"])
+            progress.show(p["objective_value"], p["optimality_gap"])
         time.sleep(POLL_INTERVAL_S)
 
 
