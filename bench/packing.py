@@ -26,7 +26,7 @@ from scipy import optimize, sparse
 from solver import Block, Coding, Demand, Exclusion, Objective, Problem, Transmitter, solve
 from solver.candidates import build_candidates
 from solver.packing import PackingInput, admission_weights, item_coefficients
-from solver.planner import _fix_pinned, _segments
+from solver.planner import _fix_pinned, _segments, protection_levels
 from solver.rules import rule_of_thumb_plan
 
 WIDTH_PER_DEMAND_HZ = 1.6e6
@@ -97,75 +97,110 @@ def packing_input(problem: Problem) -> PackingInput:
         time_limit_s=problem.time_limit_s,
         num_workers=problem.num_workers,
         seed=problem.seed,
+        levels=protection_levels(free),
     )
+
+
+class _Milp:
+    """A sparse MILP under construction: columns with bounds and integrality, rows, costs."""
+
+    def __init__(self) -> None:
+        self.lower: list[float] = []
+        self.upper: list[float] = []
+        self.integer: list[bool] = []
+        self.cost: list[float] = []
+        self.row_lo: list[float] = []
+        self.row_hi: list[float] = []
+        self.triplets: list[tuple[int, int, float]] = []
+
+    def column(self, upper: float, integer: bool, cost: float = 0.0) -> int:
+        self.lower.append(0.0)
+        self.upper.append(upper)
+        self.integer.append(integer)
+        self.cost.append(cost)
+        return len(self.cost) - 1
+
+    def row(self, entries: list[tuple[int, float]], lower: float, upper: float) -> None:
+        r = len(self.row_lo)
+        self.triplets.extend((r, c, v) for c, v in entries if v)
+        self.row_lo.append(lower)
+        self.row_hi.append(upper)
+
+    def solve(self, time_limit_s: float) -> optimize.OptimizeResult:
+        rows, cols, vals = zip(*self.triplets, strict=True)
+        matrix = sparse.csr_array((vals, (rows, cols)), shape=(len(self.row_lo), len(self.cost)))
+        return optimize.milp(
+            np.array(self.cost),
+            constraints=optimize.LinearConstraint(matrix, self.row_lo, self.row_hi),
+            integrality=np.array(self.integer, dtype=int),
+            bounds=optimize.Bounds(np.array(self.lower), np.array(self.upper)),
+            options={"time_limit": time_limit_s, "disp": False},
+        )
 
 
 def solve_with_highs(data: PackingInput, time_limit_s: float) -> HighsResult:
-    """The same segment model as a MILP: per item x (binary) and h (integer half-width), per
-    segment δ and hR maxima, the same scaled coefficients (solver.packing.item_coefficients)
-    and the same objective order (admission, then priority-weighted capped throughput)."""
-    items: list[tuple[int, int, int]] = []
+    """The same segment model as a MILP, built from the same coefficients
+    (solver.packing.item_coefficients): per item x (binary) and h (integer half-width), per
+    segment one binary per protection level and per-level capacity rows (big-M), the same
+    objective order (admission first, then priority-weighted capped throughput)."""
+    m = _Milp()
+    target_total = sum(o.demand.priority * o.demand.target_rate_bps for o in data.options) / 1e6
+    items: dict[tuple[int, int, int], tuple[int, int]] = {}
     for d, opts in enumerate(data.options):
         for k, fam in enumerate(opts.candidates):
+            allowed = data.allowed_levels(fam)
+            if not allowed:
+                continue
+            narrowest = fam.at(fam.lo_half, data.level(allowed[0]))
+            per_half = min(fam.throughput_per_half_bps, opts.demand.target_rate_bps / fam.hi_half)
             for s, seg in enumerate(data.segments):
-                if seg.fits_alone(fam.at(fam.lo_half)):
-                    items.append((d, k, s))
-    n_items, n_seg = len(items), len(data.segments)
-    n = 2 * n_items + 2 * n_seg  # x, h, then δ_s, hR_s
-    target_total = sum(o.demand.priority * o.demand.target_rate_bps for o in data.options) / 1e6
-    cost = np.zeros(n)
-    lo: list[float] = []
-    hi: list[float] = []
-    triplets: list[tuple[int, int, float]] = []
-
-    def add_row(entries: list[tuple[int, float]], lower: float, upper: float) -> None:
-        row = len(lo)
-        triplets.extend((row, col, val) for col, val in entries if val)
-        lo.append(lower)
-        hi.append(upper)
-
-    upper_bounds = np.zeros(n)
-    body: dict[int, list[tuple[int, float]]] = {s: [] for s in range(n_seg)}
-    for j, (d, k, s) in enumerate(items):
-        opts = data.options[d]
-        fam = opts.candidates[k]
-        xj, hj = j, n_items + j
-        per_half = min(fam.throughput_per_half_bps, opts.demand.target_rate_bps / fam.hi_half)
-        cost[xj] = -data.admission_weights[d] * (target_total + 1)
-        cost[hj] = -data.priorities[d] * per_half / 1e6
-        upper_bounds[xj], upper_bounds[hj] = 1, fam.hi_half
-        add_row([(hj, 1.0), (xj, -float(fam.lo_half))], 0, np.inf)
-        add_row([(hj, 1.0), (xj, -float(fam.hi_half))], -np.inf, 0)
-        c = item_coefficients(data.segments[s], fam)
-        delta_col, right_col = 2 * n_items + s, 2 * n_items + n_seg + s
-        add_row([(delta_col, 1.0), (hj, -float(c.delta_h)), (xj, -float(c.delta_x))], 0, np.inf)
-        add_row([(right_col, 1.0), (hj, -float(c.right_h)), (xj, -float(c.right_x))], 0, np.inf)
-        body[s] += [(hj, float(c.body_h)), (xj, float(c.body_x))]
+                if not seg.fits_alone(narrowest):
+                    continue
+                x = m.column(1, True, -data.admission_weights[d] * (target_total + 1))
+                h = m.column(fam.hi_half, True, -data.priorities[d] * per_half / 1e6)
+                m.row([(h, 1.0), (x, -float(fam.lo_half))], 0, np.inf)
+                m.row([(h, 1.0), (x, -float(fam.hi_half))], -np.inf, 0)
+                items[d, k, s] = (x, h)
     for d in range(len(data.options)):
-        add_row([(j, 1.0) for j, it in enumerate(items) if it[0] == d], 0, 1)
+        m.row([(xh[0], 1.0) for key, xh in items.items() if key[0] == d], 0, 1)
+    levels = range(len(data.levels)) if data.levels else [0]
     for s, seg in enumerate(data.segments):
-        maxima = [(2 * n_items + s, 1.0), (2 * n_items + n_seg + s, 1.0)]
-        add_row(body[s] + maxima, -np.inf, seg.length * 1000.0)
-    upper_bounds[2 * n_items :] = np.inf
-    rows, cols, vals = zip(*triplets, strict=True)
-    matrix = sparse.csr_array((vals, (rows, cols)), shape=(len(lo), n))
-    integrality = np.r_[np.ones(2 * n_items), np.zeros(2 * n_seg)]
+        keys = [key for key in items if key[2] == s]
+        z = {i: m.column(1, True) for i in levels}
+        m.row([(z[i], 1.0) for i in levels], 0, 1)
+        for key in keys:
+            fam = data.options[key[0]].candidates[key[1]]
+            m.row(
+                [(items[key][0], 1.0)] + [(z[i], -1.0) for i in data.allowed_levels(fam)],
+                -np.inf,
+                0,
+            )
+        big = 4.0 * seg.length * 1000.0 + 1e6
+        for i in levels:
+            delta, right = m.column(np.inf, False), m.column(np.inf, False)
+            body: list[tuple[int, float]] = []
+            for key in keys:
+                fam = data.options[key[0]].candidates[key[1]]
+                if i not in data.allowed_levels(fam):
+                    continue
+                x, h = items[key]
+                c = item_coefficients(seg, fam, data.level(i))
+                m.row([(delta, 1.0), (h, -float(c.delta_h)), (x, -float(c.delta_x))], 0, np.inf)
+                m.row([(right, 1.0), (h, -float(c.right_h)), (x, -float(c.right_x))], 0, np.inf)
+                body += [(h, float(c.body_h)), (x, float(c.body_x))]
+            m.row(
+                [*body, (delta, 1.0), (right, 1.0), (z[i], big)], -np.inf, seg.length * 1000.0 + big
+            )
     started = time.perf_counter()
-    res = optimize.milp(
-        cost,
-        constraints=optimize.LinearConstraint(matrix, lo, hi),
-        integrality=integrality,
-        bounds=optimize.Bounds(np.zeros(n), upper_bounds),
-        options={"time_limit": time_limit_s, "disp": False},
-    )
+    res = m.solve(time_limit_s)
     elapsed = time.perf_counter() - started
     if res.x is None:
         return HighsResult(elapsed, str(res.message), 0.0, 0, float("nan"))
     throughput, served = 0.0, 0
-    for j, (d, k, _) in enumerate(items):
-        if res.x[j] > 0.5:
+    for (d, k, _), (x, h) in items.items():
+        if res.x[x] > 0.5:
             served += 1
-            throughput += data.options[d].candidates[k].at(round(res.x[n_items + j])).throughput_bps
+            throughput += data.options[d].candidates[k].at(round(res.x[h])).throughput_bps
     gap = float(getattr(res, "mip_gap", float("nan")))
     status = "optimal" if res.status == 0 else "time limit"
     return HighsResult(elapsed, status, throughput, served, gap)

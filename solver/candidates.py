@@ -71,15 +71,46 @@ class Candidate:
         return self.config.throughput_bps
 
 
+@functools.lru_cache(maxsize=8192)
+def mask_guard_per_baud(key: emission.EmissionKey, level_db: float) -> float:
+    """Smallest gap (Rs units, from the nominal edge) beyond which the carrier's normalised
+    power spectral density stays ``level_db`` or more below its in-band level, on both sides.
+
+    A neighbour just past that gap sees this carrier's skirt at most ``level_db`` below the
+    carrier's own density, whatever its own width (a narrow neighbour sees the density, not a
+    band average).  ``math.inf`` when the skirt never falls that low within the profile.
+    """
+    profile = emission.get_profile(key)
+    threshold = float(profile.psd_at(np.zeros(1))[0]) * 10.0 ** (-level_db / 10.0)
+    edge = profile.nominal_bandwidth / 2
+    worst = 0.0
+    for sign in (1.0, -1.0):
+        offset = sign * profile.freq
+        outside = offset > edge
+        order = np.argsort(offset[outside])
+        f, p = offset[outside][order], profile.psd[outside][order]
+        loud = np.flatnonzero(p >= threshold)
+        if loud.size == 0:
+            continue
+        if loud[-1] == f.size - 1:
+            return math.inf
+        worst = max(worst, float(f[loud[-1] + 1]) - edge)
+    return worst
+
+
 @dataclass(frozen=True)
 class Family:
     """One (modulation, code rate, roll-off) over a range of widths.
 
     The allocated width is ``2·h`` raster steps for an integer ``h`` in ``[lo_half, hi_half]``
-    (even, so the centre sits on the raster) and the symbol rate fills it, so width, guard and
-    throughput all grow linearly with ``h``: the packer chooses ``h`` as an integer variable.
-    ``top`` is the candidate at ``hi_half``.  A family with ``lo_half == hi_half`` is a single
-    candidate (its symbol rate may then sit below what fills the width).
+    (even, so the centre sits on the raster) and the symbol rate scales with it, so width,
+    guard and throughput all grow linearly with ``h``: the packer chooses ``h`` as an integer
+    variable.  ``top`` is the candidate at ``hi_half`` with its guard at its own sensitivity.
+
+    Guards depend on the segment's *protection level* L (dB): every carrier of a segment keeps
+    its skirt L below its in-band density at its guard (:func:`mask_guard_per_baud`), and never
+    less than its leakage-limit guard.  ``sensitivity_db`` is the level this family needs from
+    its neighbours, so it may only sit in a segment whose level is at least that.
     """
 
     top: Candidate
@@ -87,16 +118,31 @@ class Family:
     hi_half: int
     power_limited: bool
     raster_hz: float
+    sensitivity_db: float = 0.0
+    leakage_guard_per_baud: float = 0.0
+    key: emission.EmissionKey | None = None
 
     @classmethod
     def single(cls, cand: Candidate, raster_hz: float = 1.0) -> Family:
+        """A fixed candidate whose guards do not depend on the level (tests, pinned carriers)."""
         half = cand.width_units // 2
         return cls(cand, half, half, False, raster_hz)
 
     @property
-    def guard_per_half(self) -> float:
+    def config(self) -> CarrierConfig:
+        return self.top.config
+
+    def guard_hz(self, level_db: float | None = None) -> float:
+        """Guard at the top of the range for a segment at ``level_db`` (own sensitivity if None)."""
+        if self.key is None:
+            return self.top.config.guard_hz
+        level = self.sensitivity_db if level_db is None else level_db
+        per_baud = max(self.leakage_guard_per_baud, mask_guard_per_baud(self.key, level))
+        return per_baud * self.top.config.symbol_rate_baud
+
+    def guard_per_half(self, level_db: float | None = None) -> float:
         """Guard (raster units) per half-width unit, before rounding up."""
-        return self.top.config.guard_hz / self.raster_hz / self.hi_half
+        return self.guard_hz(level_db) / self.raster_hz / self.hi_half
 
     @property
     def edge_per_half(self) -> float:
@@ -106,30 +152,34 @@ class Family:
     def throughput_per_half_bps(self) -> float:
         return self.top.config.throughput_bps / self.hi_half
 
-    @property
-    def config(self) -> CarrierConfig:
-        return self.top.config
-
-    def at(self, half: int) -> Candidate:
-        """The candidate ``half`` half-width units wide (guards scale with the symbol rate)."""
-        if half == self.hi_half:
-            return self.top
+    def at(self, half: int, level_db: float | None = None) -> Candidate:
+        """The candidate ``half`` half-width units wide, guarded for a segment at ``level_db``."""
         if not self.lo_half <= half <= self.hi_half:
             raise ValueError(f"{half=} lies outside [{self.lo_half}, {self.hi_half}]")
         top = self.top.config
         scale = half / self.hi_half
-        rs = top.symbol_rate_baud * scale
         esn0 = top.esn0_db - 10.0 * math.log10(scale) if self.power_limited else top.esn0_db
         config = replace(
             top,
-            symbol_rate_baud=rs,
+            symbol_rate_baud=top.symbol_rate_baud * scale,
             allocated_bandwidth_hz=top.allocated_bandwidth_hz * scale,
             occupied_bandwidth_hz=top.occupied_bandwidth_hz * scale,
-            guard_hz=top.guard_hz * scale,
+            guard_hz=self.guard_hz(level_db) * scale,
             edge_guard_hz=top.edge_guard_hz * scale,
             throughput_bps=top.throughput_bps * scale,
             esn0_db=esn0,
         )
+        if self.key is None:
+            return (
+                replace(self.top, config=config)
+                if half == self.hi_half
+                else Candidate(
+                    config,
+                    2 * half,
+                    math.ceil(config.guard_hz / self.raster_hz - 1e-9),
+                    math.ceil(config.edge_guard_hz / self.raster_hz - 1e-9),
+                )
+            )
         return Candidate(
             config,
             2 * half,
@@ -239,6 +289,21 @@ def _guard_per_baud(
     values = np.array(
         [
             _profile(combos, int(u // 1_000_000)).guard_needed(float(u % 1_000_000) / 2.0)
+            for u in unique
+        ]
+    )
+    return np.asarray(values[inverse.reshape(-1)], dtype=np.float64)
+
+
+def _mask_per_baud(
+    combos: _Combos, combo_index: NDArray[np.int64], levels_db: NDArray[np.float64]
+) -> NDArray[np.float64]:
+    """:func:`mask_guard_per_baud` for each (combo, level), once per distinct pair."""
+    codes = combo_index * 1_000_000 + np.ceil(levels_db * 2.0 - 1e-9).astype(np.int64)
+    unique, inverse = np.unique(codes, return_inverse=True)
+    values = np.array(
+        [
+            mask_guard_per_baud(combos.keys[int(u // 1_000_000)], float(u % 1_000_000) / 2.0)
             for u in unique
         ]
     )
@@ -386,8 +451,10 @@ def _discrete_candidates(
     margin = esn0 - combos.required_esn0_db[idx]
     weakest = max(d.relative_level_db for d in problem.demands) - demand.relative_level_db
     floor = max(problem.leakage_limit_db, min_limit_db)
-    limit = np.maximum(floor, _immunity_limit_db(esn0, margin, demand, weakest))
-    guard = _guard_per_baud(combos, idx, limit) * rs
+    sensitivity = _immunity_limit_db(esn0, margin, demand, weakest)
+    leak_per_baud = _guard_per_baud(combos, idx, np.full(idx.size, floor))
+    own_mask = _mask_per_baud(combos, idx, sensitivity)
+    guard = np.maximum(leak_per_baud, own_mask) * rs
     edge = _guard_per_baud(combos, idx, np.full(idx.size, problem.edge_limit_db)) * rs
     usable = np.isfinite(guard) & np.isfinite(edge)
     guard_units = np.ceil(np.where(usable, guard, 0.0) / raster - 1e-9).astype(np.int64)
@@ -414,10 +481,21 @@ def _discrete_candidates(
             esn0_db=float(esn0[i]),
             required_esn0_db=float(combos.required_esn0_db[c]),
         )
+        cand = Candidate(config, int(grid.width_units[i]), int(guard_units[i]), int(edge_units[i]))
+        half = cand.width_units // 2
         out.append(
-            Candidate(config, int(grid.width_units[i]), int(guard_units[i]), int(edge_units[i]))
+            Family(
+                cand,
+                half,
+                half,
+                demand.cn0_dbhz is not None,
+                raster,
+                sensitivity_db=float(sensitivity[i]),
+                leakage_guard_per_baud=float(leak_per_baud[i]),
+                key=combos.keys[int(idx[i])],
+            )
         )
-    return DemandOptions(demand, tuple(Family.single(c, raster) for c in out), "")
+    return DemandOptions(demand, tuple(out), "")
 
 
 def build_candidates(
@@ -472,8 +550,11 @@ def build_candidates(
     margin = esn0 - combos.required_esn0_db[idx]
     weakest = max(d.relative_level_db for d in problem.demands) - demand.relative_level_db
     floor = max(problem.leakage_limit_db, min_limit_db)
-    limit = np.maximum(floor, _immunity_limit_db(esn0, margin, demand, weakest))
-    guard = _guard_per_baud(combos, idx, limit) * rs
+    sensitivity = _immunity_limit_db(esn0, margin, demand, weakest)
+    leak_per_baud = _guard_per_baud(combos, idx, np.full(idx.size, floor))
+    own_mask = _mask_per_baud(combos, idx, sensitivity)
+
+    guard = np.maximum(leak_per_baud, own_mask) * rs
     edge = _guard_per_baud(combos, idx, np.full(idx.size, problem.edge_limit_db)) * rs
     usable = np.isfinite(guard) & np.isfinite(edge)
     throughput = rs * combos.net_bits_per_symbol[idx]
@@ -506,7 +587,18 @@ def build_candidates(
             math.ceil(guard[i] / raster - 1e-9),
             math.ceil(edge[i] / raster - 1e-9),
         )
-        families.append(Family(top, int(span.lo_half[i]), hi, demand.cn0_dbhz is not None, raster))
+        families.append(
+            Family(
+                top,
+                int(span.lo_half[i]),
+                hi,
+                demand.cn0_dbhz is not None,
+                raster,
+                sensitivity_db=float(sensitivity[i]),
+                leakage_guard_per_baud=float(leak_per_baud[i]),
+                key=combos.keys[c],
+            )
+        )
     return DemandOptions(demand, tuple(families), "")
 
 
@@ -518,25 +610,23 @@ class _Span(NamedTuple):
 
 
 def _family_span(combos: _Combos, demand: Demand, raster_hz: float, max_width_hz: float) -> _Span:
-    """Half-width range of each combo: from the minimum rate to min(target, link limit).
+    """Half-width range of each combo, from the minimum rate to min(target, link limit).
 
-    When the whole range falls inside one even raster step, the family is a single point whose
-    symbol rate stays at the upper limit (below what fills the width).
+    The top is the even raster slot that just holds the highest symbol rate (rounded up, so
+    every family can reach its target); the symbol rate then scales with the half-width, so
+    a carrier fills its slot but for less than one even raster step.
     """
     net, alpha = combos.net_bits_per_symbol, combos.rolloff
     rs_min = demand.min_rate_bps / net
     rs_hi = np.minimum(
         demand.target_rate_bps / net, _max_symbol_rate_baud(demand, combos.required_esn0_db)
     )
-    step = 2.0 * raster_hz / (1 + alpha)  # symbol rate per half-width unit
-    lo = np.ceil(rs_min / step - 1e-9).astype(np.int64)
-    hi = np.floor(rs_hi / step + 1e-9).astype(np.int64)
-    ok = (rs_hi >= rs_min * (1 - 1e-12)) & (np.maximum(lo, 1) * 2 * raster_hz <= max_width_hz)
-    single = ok & (hi < lo)
-    hi = np.where(single, lo, hi)
-    top = np.where(single, rs_hi, hi * step)
-    idx = np.flatnonzero(ok & (lo >= 1))
-    return _Span(idx, lo[idx], hi[idx], top[idx])
+    step = 2.0 * raster_hz / (1 + alpha)  # symbol rate that fills one half-width unit
+    ok = (rs_hi >= rs_min * (1 - 1e-12)) & (rs_min * (1 + alpha) <= max_width_hz)
+    hi = np.ceil(np.where(ok, rs_hi, 1.0) / step - 1e-9).astype(np.int64)
+    lo = np.ceil(np.where(ok, rs_min, 1.0) * hi / np.where(ok, rs_hi, 1.0) - 1e-9).astype(np.int64)
+    idx = np.flatnonzero(ok & (hi >= 1))
+    return _Span(idx, np.maximum(lo[idx], 1), hi[idx], rs_hi[idx])
 
 
 def _family_front(

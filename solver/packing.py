@@ -114,7 +114,19 @@ class PackingInput:
     num_workers: int
     seed: int
     forbidden: frozenset[tuple[str, int]] = frozenset()
-    hints: dict[str, tuple[int, int]] = field(default_factory=dict)
+    hints: dict[str, tuple[int, int, int]] = field(default_factory=dict)
+    """Per demand id: (family index, half-width, segment index) of a known solution."""
+    levels: tuple[float, ...] = ()
+    """Protection levels (dB) a segment may take; empty: every family at its own sensitivity."""
+
+    def allowed_levels(self, fam: Family) -> list[int]:
+        """Indices of the levels at which ``fam`` may sit (all of them when levels are off)."""
+        if not self.levels:
+            return [0]
+        return [i for i, level in enumerate(self.levels) if level >= fam.sensitivity_db - 1e-9]
+
+    def level(self, index: int) -> float | None:
+        return self.levels[index] if self.levels else None
 
 
 @dataclass(frozen=True)
@@ -123,6 +135,7 @@ class PackingResult:
 
     status: SolveStatus
     chosen: dict[int, list[tuple[int, int, int]]]
+    segment_levels: dict[int, int]
     objective_value: float
     best_bound: float
     optimality_gap: float
@@ -134,11 +147,16 @@ _SCALE = 1000
 """Capacity rows are scaled by this so that guard-per-width coefficients stay integers."""
 
 
+Key = tuple[int, int, int, int]
+"""(demand, family, segment, protection level) indices of one item."""
+
+
 @dataclass
 class _Vars:
-    x: dict[tuple[int, int, int], cp_model.IntVar]
-    half: dict[tuple[int, int, int], cp_model.LinearExpr]
+    x: dict[Key, cp_model.IntVar]
+    half: dict[Key, cp_model.LinearExpr]
     served: dict[int, cp_model.LinearExpr]
+    level: dict[tuple[int, int], cp_model.IntVar] = field(default_factory=dict)
 
 
 def admission_weights(demands: Sequence[Demand]) -> list[int]:
@@ -156,33 +174,40 @@ def admission_weights(demands: Sequence[Demand]) -> list[int]:
 
 
 def _make_choice_vars(model: cp_model.CpModel, data: PackingInput) -> _Vars:
-    """Per (demand, family, segment) where its narrowest member fits alone: a boolean x and
-    the half-width h (an integer in [lo, hi] when x, else 0; a constant for single points)."""
-    x: dict[tuple[int, int, int], cp_model.IntVar] = {}
-    half: dict[tuple[int, int, int], cp_model.LinearExpr] = {}
+    """One item per (demand, family, segment, level) where the family's narrowest member fits
+    the segment alone at that level: a boolean x and the half-width h (an integer in
+    [lo, hi] when x, else 0; a constant for single points)."""
+    x: dict[Key, cp_model.IntVar] = {}
+    half: dict[Key, cp_model.LinearExpr] = {}
     for d, opts in enumerate(data.options):
         for k, fam in enumerate(opts.candidates):
             if (opts.demand.id, k) in data.forbidden:
                 continue
-            narrowest = fam.at(fam.lo_half)
-            for s, seg in enumerate(data.segments):
-                if not seg.fits_alone(narrowest):
-                    continue
-                var = model.new_bool_var(f"x_{d}_{k}_{s}")
-                x[d, k, s] = var
-                if fam.lo_half == fam.hi_half:
-                    half[d, k, s] = cp_model.LinearExpr.term(var, fam.hi_half)
-                    continue
-                h = model.new_int_var(0, fam.hi_half, f"h_{d}_{k}_{s}")
-                model.add(h >= fam.lo_half * var)
-                model.add(h <= fam.hi_half * var)
-                half[d, k, s] = h
+            for i in data.allowed_levels(fam):
+                narrowest = fam.at(fam.lo_half, data.level(i))
+                for s, seg in enumerate(data.segments):
+                    if seg.fits_alone(narrowest):
+                        key = (d, k, s, i)
+                        x[key], half[key] = _item_vars(model, fam, key)
     served: dict[int, cp_model.LinearExpr] = {}
     for d in range(len(data.options)):
-        choices = [v for (dd, _, _), v in x.items() if dd == d]
+        choices = [var for key, var in x.items() if key[0] == d]
         if choices:
             served[d] = cp_model.LinearExpr.sum(choices)
     return _Vars(x, half, served)
+
+
+def _item_vars(
+    model: cp_model.CpModel, fam: Family, key: Key
+) -> tuple[cp_model.IntVar, cp_model.LinearExpr]:
+    name = "_".join(map(str, key))
+    var = model.new_bool_var(f"x_{name}")
+    if fam.lo_half == fam.hi_half:
+        return var, cp_model.LinearExpr.term(var, fam.hi_half)
+    h = model.new_int_var(0, fam.hi_half, f"h_{name}")
+    model.add(h >= fam.lo_half * var)
+    model.add(h <= fam.hi_half * var)
+    return var, h
 
 
 # ---------------------------------------------------------------- constraints
@@ -191,8 +216,8 @@ def _make_choice_vars(model: cp_model.CpModel, data: PackingInput) -> _Vars:
 def _at_most_one_carrier_per_demand(model: cp_model.CpModel, v: _Vars) -> None:
     """Hard: a demand gets one configuration in one segment, or none."""
     by_demand: dict[int, list[cp_model.IntVar]] = {}
-    for (d, _, _), var in v.x.items():
-        by_demand.setdefault(d, []).append(var)
+    for key, var in v.x.items():
+        by_demand.setdefault(key[0], []).append(var)
     for choices in by_demand.values():
         model.add_at_most_one(choices)
 
@@ -226,15 +251,15 @@ def _lin(terms: Sequence[tuple[cp_model.LinearExpr, int]]) -> cp_model.LinearExp
     return cp_model.LinearExpr.weighted_sum([t for t, _ in kept], [c for _, c in kept])
 
 
-def item_coefficients(seg: Segment, fam: Family) -> ItemCoefficients:
-    """Capacity-row coefficients of family ``fam`` in segment ``seg`` (see the module notes)."""
+def item_coefficients(seg: Segment, fam: Family, level_db: float | None = None) -> ItemCoefficients:
+    """Capacity-row coefficients of family ``fam`` in segment ``seg`` at a protection level."""
     if fam.lo_half == fam.hi_half:
-        c = fam.top
+        c = fam.at(fam.hi_half, level_db)
         delta = max(seg.left_need(c) - c.guard_units, 0) * _SCALE
         return ItemCoefficients(
             0, (c.width_units + c.guard_units) * _SCALE, 0, delta, 0, seg.right_need(c) * _SCALE
         )
-    g, e = fam.guard_per_half, fam.edge_per_half
+    g, e = fam.guard_per_half(level_db), fam.edge_per_half
     if seg.left is Boundary.EDGE:
         delta_h, delta_x = _up(max(e - g, 0.0)), _SCALE
     else:
@@ -246,36 +271,66 @@ def item_coefficients(seg: Segment, fam: Family) -> ItemCoefficients:
     )
 
 
+def _segment_levels(model: cp_model.CpModel, data: PackingInput, v: _Vars) -> None:
+    """Hard: every item of a segment sits at the segment's one protection level."""
+    if not data.levels:
+        return
+    for s in range(len(data.segments)):
+        used = sorted({key[3] for key in v.x if key[2] == s})
+        if not used:
+            continue
+        z = {i: model.new_bool_var(f"z_{s}_{i}") for i in used}
+        model.add_at_most_one(z.values())
+        for i, var in z.items():
+            v.level[s, i] = var
+        for key, var in v.x.items():
+            if key[2] == s:
+                model.add_implication(var, z[key[3]])
+
+
 def _segment_capacity(
     model: cp_model.CpModel, data: PackingInput, v: _Vars
 ) -> dict[int, cp_model.LinearExprT]:
     """Hard: Σ(w + g) + max δ + max hR fits in every segment (see the module docstring).
 
-    The maxima are integer variables bounded below by each item's (linear) need, so the LP
-    relaxation sees them.  Rows are scaled by :data:`_SCALE`.
+    Items carry the guards of their own level; since a segment's items share one level, one
+    plain linear row per segment is exact.  The maxima are integer variables bounded below by
+    each item's (linear) need, so the LP relaxation sees them.  Rows are scaled by
+    :data:`_SCALE`.  Returns the scaled used width per segment.
     """
     used: dict[int, cp_model.LinearExprT] = {}
     for s, seg in enumerate(data.segments):
         keys = [key for key in v.x if key[2] == s]
-        if not keys:
-            continue
-        coefs = [item_coefficients(seg, data.options[d].candidates[k]) for d, k, _ in keys]
-        tops = [
-            c.top(data.options[d].candidates[k].hi_half)
-            for c, (d, k, _) in zip(coefs, keys, strict=True)
-        ]
-        delta_max = model.new_int_var(0, max(t[0] for t in tops), f"delta_{s}")
-        right_max = model.new_int_var(0, max(t[1] for t in tops), f"right_{s}")
-        body_terms: list[tuple[cp_model.LinearExpr, int]] = []
-        for c, key in zip(coefs, keys, strict=True):
-            h, x = v.half[key], v.x[key]
-            model.add(delta_max >= _lin([(h, c.delta_h), (x, c.delta_x)]))
-            model.add(right_max >= _lin([(h, c.right_h), (x, c.right_x)]))
-            body_terms += [(h, c.body_h), (x, c.body_x)]
-        body = _lin(body_terms)
-        model.add(body + delta_max + right_max <= seg.length * _SCALE)
-        used[s] = body + delta_max + right_max
+        if keys:
+            need = _capacity_row(model, data, v, seg, keys, str(s))
+            model.add(need <= seg.length * _SCALE)
+            used[s] = need
     return used
+
+
+def _capacity_row(
+    model: cp_model.CpModel,
+    data: PackingInput,
+    v: _Vars,
+    seg: Segment,
+    keys: Sequence[Key],
+    name: str,
+) -> cp_model.LinearExpr:
+    """Scaled width the items of ``keys`` need in ``seg``."""
+    fams = [data.options[key[0]].candidates[key[1]] for key in keys]
+    coefs = [
+        item_coefficients(seg, fam, data.level(key[3])) for fam, key in zip(fams, keys, strict=True)
+    ]
+    tops = [c.top(fam.hi_half) for c, fam in zip(coefs, fams, strict=True)]
+    delta_max = model.new_int_var(0, max(t[0] for t in tops), f"delta_{name}")
+    right_max = model.new_int_var(0, max(t[1] for t in tops), f"right_{name}")
+    body_terms: list[tuple[cp_model.LinearExpr, int]] = []
+    for c, key in zip(coefs, keys, strict=True):
+        h, x = v.half[key], v.x[key]
+        model.add(delta_max >= _lin([(h, c.delta_h), (x, c.delta_x)]))
+        model.add(right_max >= _lin([(h, c.right_h), (x, c.right_x)]))
+        body_terms += [(h, c.body_h), (x, c.body_x)]
+    return _lin(body_terms) + delta_max + right_max
 
 
 # ---------------------------------------------------------------- objective
@@ -310,7 +365,7 @@ def _throughput_term(data: PackingInput, v: _Vars, headroom: int) -> _Term:
     """
     unit = _throughput_unit_bps(data, v, headroom)
     terms, upper = [], 0
-    for (d, k, _), h in v.half.items():
+    for (d, k, _, _), h in v.half.items():
         opts = data.options[d]
         fam = opts.candidates[k]
         per_half = min(fam.throughput_per_half_bps, opts.demand.target_rate_bps / fam.hi_half)
@@ -335,14 +390,14 @@ def _spectrum_term(data: PackingInput, used: dict[int, cp_model.LinearExprT]) ->
 def _margin_term(model: cp_model.CpModel, data: PackingInput, v: _Vars) -> _Term:
     """Soft (``max_margin``): the smallest margin above each demand's own requirement."""
     steps: dict[tuple[int, int], int] = {}
-    for d, k, _ in v.x:
+    for d, k, _, _ in v.x:
         opts = data.options[d]
         excess = opts.candidates[k].config.margin_db - opts.demand.margin_db
         steps[d, k] = max(0, math.floor(excess / _MARGIN_STEP_DB + 1e-9))
     top = max(steps.values(), default=0)
     floor_var = model.new_int_var(0, top, "min_margin")
     for d, served in v.served.items():
-        per_choice = sum(steps[dd, k] * var for (dd, k, _), var in v.x.items() if dd == d)
+        per_choice = sum(steps[dd, k] * var for (dd, k, _, _), var in v.x.items() if dd == d)
         model.add(floor_var <= per_choice + top * (1 - served))
     return _Term(floor_var, top)
 
@@ -433,14 +488,22 @@ def _watch_cancel(
 
 
 def _add_hints(model: cp_model.CpModel, data: PackingInput, v: _Vars) -> None:
-    """Hint the decisions only (family and half-width), as the CP-SAT notes advise."""
-    for (d, k, s), var in v.x.items():
+    """Hint the decisions only (family, segment and half-width), as the CP-SAT notes advise.
+
+    A hint is (family, half-width, segment); the item at the lowest level the segment could
+    take is hinted on, every other item of the demand off.
+    """
+    lowest: dict[tuple[int, int, int], int] = {}
+    for d, k, s, i in v.x:
+        lowest[d, k, s] = min(i, lowest.get((d, k, s), i))
+    for (d, k, s, i), var in v.x.items():
         wanted = data.hints.get(data.options[d].demand.id)
         if wanted is None:
             continue
-        model.add_hint(var, 1 if wanted[0] == k else 0)
-        h = v.half[d, k, s]
-        if wanted[0] == k and isinstance(h, cp_model.IntVar):
+        on = (k, s, i) == (wanted[0], wanted[2], lowest[d, k, s])
+        model.add_hint(var, 1 if on else 0)
+        h = v.half[d, k, s, i]
+        if on and isinstance(h, cp_model.IntVar):
             model.add_hint(h, wanted[1])
 
 
@@ -469,6 +532,7 @@ def solve_packing(
     model = cp_model.CpModel()
     v = _make_choice_vars(model, data)
     _at_most_one_carrier_per_demand(model, v)
+    _segment_levels(model, data, v)
     used = _segment_capacity(model, data, v)
     terms = _objective_terms(model, data, v, used)
     admission_weight = _lexicographic(model, terms)
@@ -503,16 +567,18 @@ def _extract(
     version = str(getattr(ortools, "__version__", "unknown"))
     if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
         # No solution at all (UNKNOWN when the time ran out first): nothing is served.
-        return PackingResult(SolveStatus.INFEASIBLE, {}, 0.0, 0.0, 0.0, elapsed, version)
+        return PackingResult(SolveStatus.INFEASIBLE, {}, {}, 0.0, 0.0, 0.0, elapsed, version)
     chosen: dict[int, list[tuple[int, int, int]]] = {}
-    for (d, k, s), var in v.x.items():
+    levels: dict[int, int] = {}
+    for (d, k, s, i), var in v.x.items():
         if solver.boolean_value(var):
-            chosen.setdefault(s, []).append((d, k, int(solver.value(v.half[d, k, s]))))
+            chosen.setdefault(s, []).append((d, k, int(solver.value(v.half[d, k, s, i]))))
+            levels[s] = i
     obj, bound = solver.objective_value, solver.best_objective_bound
     rest = obj - admission.upper * solver.value(admission.expr)
     gap = abs(bound - obj) / max(1.0, abs(rest))
     state = SolveStatus.OPTIMAL if status == cp_model.OPTIMAL else SolveStatus.FEASIBLE
-    return PackingResult(state, chosen, obj, bound, gap, elapsed, version)
+    return PackingResult(state, chosen, levels, obj, bound, gap, elapsed, version)
 
 
 # ---------------------------------------------------------------- placement

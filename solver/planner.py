@@ -8,6 +8,7 @@ again; after :data:`MAX_REPAIR_ROUNDS` the carriers still to blame are left out,
 
 from __future__ import annotations
 
+import itertools
 import logging
 import math
 import threading
@@ -47,9 +48,23 @@ from solver.packing import (
 from solver.validation import validate_problem
 from solver.verify import Verification, verify_plan
 
-__all__ = ["CAUTIONS", "MAX_REPAIR_ROUNDS", "solve", "summarise", "with_guards"]
+__all__ = [
+    "CAUTIONS",
+    "MAX_REPAIR_ROUNDS",
+    "protection_levels",
+    "solve",
+    "summarise",
+    "with_guards",
+]
 
 log = logging.getLogger(__name__)
+
+LEVEL_STEP_DB = 6.0
+"""Protection levels a segment may take are multiples of this (a family's sensitivity is
+rounded up to the next one)."""
+
+MAX_LEVELS = 8
+"""At most this many protection levels; the step doubles until they fit."""
 
 MAX_REPAIR_ROUNDS = 6
 """Re-solves allowed after a failed verification before blamed carriers are left out."""
@@ -174,12 +189,39 @@ def _pinned_fits(
     return True
 
 
+def protection_levels(options: Sequence[DemandOptions]) -> tuple[float, ...]:
+    """The levels a segment may take: each family's sensitivity rounded up to the grid.
+
+    A level that gives every family the same guard as the next level up is dropped (its
+    families may sit at the higher level at no cost), which keeps the model small.
+    """
+    families = [f for o in options for f in o.candidates if f.key is not None]
+    step = LEVEL_STEP_DB
+    while True:
+        levels = sorted({math.ceil(f.sensitivity_db / step - 1e-9) * step for f in families})
+        if len(levels) <= MAX_LEVELS:
+            break
+        step *= 2
+    kept: list[float] = []
+    for low, high in itertools.pairwise([*levels, math.inf]):
+        same = math.isfinite(high) and all(
+            math.isclose(f.guard_hz(low), f.guard_hz(high), rel_tol=1e-9, abs_tol=1e-9)
+            for f in families
+            if f.sensitivity_db <= low + 1e-9
+        )
+        if not same:
+            kept.append(low)
+    return tuple(kept)
+
+
 # ---------------------------------------------------------------- admission and hints
 
 
-def _hints(options: Sequence[DemandOptions]) -> dict[str, tuple[int, int]]:
-    """Family and half-width closest to each demand's current setting (replans)."""
-    hints: dict[str, tuple[int, int]] = {}
+def _hints(
+    problem: Problem, options: Sequence[DemandOptions], segments: Sequence[Segment]
+) -> dict[str, tuple[int, int, int]]:
+    """Family, half-width and segment closest to each demand's current setting (replans)."""
+    hints: dict[str, tuple[int, int, int]] = {}
     for opts in options:
         cur = opts.demand.current
         if cur is None:
@@ -191,11 +233,14 @@ def _hints(options: Sequence[DemandOptions]) -> dict[str, tuple[int, int]]:
             and c.config.code_rate == cur.code_rate
             and math.isclose(c.config.rolloff, cur.rolloff)
         ]
-        if same:
+        where = _units(problem, cur.center_hz, up=False)
+        inside = [s for s, seg in enumerate(segments) if seg.start <= where < seg.stop]
+        if same and inside:
             k = min(same)[1]
             fam = opts.candidates[k]
             width = cur.symbol_rate_baud * (1 + cur.rolloff) / fam.raster_hz / 2
-            hints[opts.demand.id] = (k, min(max(round(width), fam.lo_half), fam.hi_half))
+            half = min(max(round(width), fam.lo_half), fam.hi_half)
+            hints[opts.demand.id] = (k, half, inside[0])
     return hints
 
 
@@ -209,7 +254,8 @@ def _place(problem: Problem, data: PackingInput, result: PackingResult) -> tuple
     for s, picks in sorted(result.chosen.items()):
         seg = data.segments[s]
         picks = sorted(picks, key=lambda dkh: data.options[dkh[0]].demand.id)
-        cands = [data.options[d].candidates[k].at(h) for d, k, h in picks]
+        level = data.level(result.segment_levels.get(s, 0))
+        cands = [data.options[d].candidates[k].at(h, level) for d, k, h in picks]
         for cand, low in zip(cands, place_segment(seg, cands, pack_low=pack_low), strict=True):
             center = problem.block.start_hz + (low + cand.width_units / 2) * raster
             carriers.append(Carrier(cand.config, center, 0.0, 0.0))
@@ -237,10 +283,10 @@ def _raise_floors(check: Verification, floors: dict[str, float], fixed: set[str]
 
 def _solution_hints(
     attempt: PackingInput, result: PackingResult, options: Sequence[DemandOptions]
-) -> dict[str, tuple[int, int]]:
+) -> dict[str, tuple[int, int, int]]:
     """The last round's choice, mapped onto the (possibly rebuilt) families of the next one."""
-    hints: dict[str, tuple[int, int]] = {}
-    for picks in result.chosen.values():
+    hints: dict[str, tuple[int, int, int]] = {}
+    for s, picks in result.chosen.items():
         for d, k, h in picks:
             chosen = attempt.options[d].candidates[k].config
             new = options[d].candidates
@@ -252,10 +298,8 @@ def _solution_hints(
             ]
             if same:
                 fam = new[same[0]]
-                hints[attempt.options[d].demand.id] = (
-                    same[0],
-                    min(max(h, fam.lo_half), fam.hi_half),
-                )
+                half = min(max(h, fam.lo_half), fam.hi_half)
+                hints[attempt.options[d].demand.id] = (same[0], half, s)
     return hints
 
 
@@ -521,7 +565,8 @@ def _run(
         time_limit_s=problem.time_limit_s,
         num_workers=problem.num_workers,
         seed=problem.seed,
-        hints=_hints(free),
+        hints=_hints(problem, free, segments),
+        levels=protection_levels(free),
     )
     check, result, rounds, dropped = _solve_and_verify(
         problem, data, [c for c, _ in fixed], progress, cancel
