@@ -20,13 +20,14 @@ from __future__ import annotations
 import functools
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from typing import NamedTuple
 
 import numpy as np
 from numpy.typing import NDArray
 
 from solver import emission, link, modcod
+from solver.families import Candidate, Family, mask_guard_per_baud
 from solver.model import (
     CarrierConfig,
     CodeRate,
@@ -55,137 +56,6 @@ WIDTH_STEP = 1.01
 
 DEFAULT_MAX_PER_DEMAND = 40
 """Candidates kept per demand after Pareto pruning (thinned evenly in log-throughput)."""
-
-
-@dataclass(frozen=True)
-class Candidate:
-    """A carrier configuration with its cost on the solver's raster grid."""
-
-    config: CarrierConfig
-    width_units: int
-    guard_units: int
-    edge_units: int
-
-    @property
-    def throughput_bps(self) -> float:
-        return self.config.throughput_bps
-
-
-@functools.lru_cache(maxsize=8192)
-def mask_guard_per_baud(key: emission.EmissionKey, level_db: float) -> float:
-    """Smallest gap (Rs units, from the nominal edge) beyond which the carrier's normalised
-    power spectral density stays ``level_db`` or more below its in-band level, on both sides.
-
-    A neighbour just past that gap sees this carrier's skirt at most ``level_db`` below the
-    carrier's own density, whatever its own width (a narrow neighbour sees the density, not a
-    band average).  ``math.inf`` when the skirt never falls that low within the profile.
-    """
-    profile = emission.get_profile(key)
-    threshold = float(profile.psd_at(np.zeros(1))[0]) * 10.0 ** (-level_db / 10.0)
-    edge = profile.nominal_bandwidth / 2
-    worst = 0.0
-    for sign in (1.0, -1.0):
-        offset = sign * profile.freq
-        outside = offset > edge
-        order = np.argsort(offset[outside])
-        f, p = offset[outside][order], profile.psd[outside][order]
-        loud = np.flatnonzero(p >= threshold)
-        if loud.size == 0:
-            continue
-        if loud[-1] == f.size - 1:
-            return math.inf
-        worst = max(worst, float(f[loud[-1] + 1]) - edge)
-    return worst
-
-
-@dataclass(frozen=True)
-class Family:
-    """One (modulation, code rate, roll-off) over a range of widths.
-
-    The allocated width is ``2·h`` raster steps for an integer ``h`` in ``[lo_half, hi_half]``
-    (even, so the centre sits on the raster) and the symbol rate scales with it, so width,
-    guard and throughput all grow linearly with ``h``: the packer chooses ``h`` as an integer
-    variable.  ``top`` is the candidate at ``hi_half`` with its guard at its own sensitivity.
-
-    Guards depend on the segment's *protection level* L (dB): every carrier of a segment keeps
-    its skirt L below its in-band density at its guard (:func:`mask_guard_per_baud`), and never
-    less than its leakage-limit guard.  ``sensitivity_db`` is the level this family needs from
-    its neighbours, so it may only sit in a segment whose level is at least that.
-    """
-
-    top: Candidate
-    lo_half: int
-    hi_half: int
-    power_limited: bool
-    raster_hz: float
-    sensitivity_db: float = 0.0
-    leakage_guard_per_baud: float = 0.0
-    key: emission.EmissionKey | None = None
-
-    @classmethod
-    def single(cls, cand: Candidate, raster_hz: float = 1.0) -> Family:
-        """A fixed candidate whose guards do not depend on the level (tests, pinned carriers)."""
-        half = cand.width_units // 2
-        return cls(cand, half, half, False, raster_hz)
-
-    @property
-    def config(self) -> CarrierConfig:
-        return self.top.config
-
-    def guard_hz(self, level_db: float | None = None) -> float:
-        """Guard at the top of the range for a segment at ``level_db`` (own sensitivity if None)."""
-        if self.key is None:
-            return self.top.config.guard_hz
-        level = self.sensitivity_db if level_db is None else level_db
-        per_baud = max(self.leakage_guard_per_baud, mask_guard_per_baud(self.key, level))
-        return per_baud * self.top.config.symbol_rate_baud
-
-    def guard_per_half(self, level_db: float | None = None) -> float:
-        """Guard (raster units) per half-width unit, before rounding up."""
-        return self.guard_hz(level_db) / self.raster_hz / self.hi_half
-
-    @property
-    def edge_per_half(self) -> float:
-        return self.top.config.edge_guard_hz / self.raster_hz / self.hi_half
-
-    @property
-    def throughput_per_half_bps(self) -> float:
-        return self.top.config.throughput_bps / self.hi_half
-
-    def at(self, half: int, level_db: float | None = None) -> Candidate:
-        """The candidate ``half`` half-width units wide, guarded for a segment at ``level_db``."""
-        if not self.lo_half <= half <= self.hi_half:
-            raise ValueError(f"{half=} lies outside [{self.lo_half}, {self.hi_half}]")
-        top = self.top.config
-        scale = half / self.hi_half
-        esn0 = top.esn0_db - 10.0 * math.log10(scale) if self.power_limited else top.esn0_db
-        config = replace(
-            top,
-            symbol_rate_baud=top.symbol_rate_baud * scale,
-            allocated_bandwidth_hz=top.allocated_bandwidth_hz * scale,
-            occupied_bandwidth_hz=top.occupied_bandwidth_hz * scale,
-            guard_hz=self.guard_hz(level_db) * scale,
-            edge_guard_hz=top.edge_guard_hz * scale,
-            throughput_bps=top.throughput_bps * scale,
-            esn0_db=esn0,
-        )
-        if self.key is None:
-            return (
-                replace(self.top, config=config)
-                if half == self.hi_half
-                else Candidate(
-                    config,
-                    2 * half,
-                    math.ceil(config.guard_hz / self.raster_hz - 1e-9),
-                    math.ceil(config.edge_guard_hz / self.raster_hz - 1e-9),
-                )
-            )
-        return Candidate(
-            config,
-            2 * half,
-            math.ceil(config.guard_hz / self.raster_hz - 1e-9),
-            math.ceil(config.edge_guard_hz / self.raster_hz - 1e-9),
-        )
 
 
 @dataclass(frozen=True)

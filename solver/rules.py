@@ -32,7 +32,7 @@ from solver.model import (
     Unserved,
     UnservedReason,
 )
-from solver.planner import CAUTIONS, summarise, with_guards
+from solver.summary import CAUTIONS, summarise, with_guards
 from solver.validation import validate_problem
 from solver.verify import verify_plan
 

@@ -1,0 +1,155 @@
+"""What a plan says about itself: guards per side, free spectrum, totals, the bound, retunes,
+and words for every demand left out."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import replace
+
+from solver import bounds
+from solver.candidates import DemandOptions
+from solver.model import Carrier, PlanSummary, Problem, Unserved, UnservedReason
+from solver.packing import Segment
+
+__all__ = [
+    "CAUTIONS",
+    "explain_unserved",
+    "free_segments_hz",
+    "mark_retunes",
+    "summarise",
+    "with_guards",
+]
+
+CAUTIONS = (
+    "This plan is an engineering estimate from models of the pulse shaping, amplifier and link. "
+    "Measure real equipment before any carrier goes on air.",
+    "Licence conditions, the regulator's emission limits and coordination with neighbouring "
+    "licensees decide what may be transmitted, not this tool.",
+)
+
+
+def explain_unserved(
+    problem: Problem,
+    options: Sequence[DemandOptions],
+    served: set[str],
+    segments: Sequence[Segment],
+) -> list[Unserved]:
+    """Words for every demand without a carrier."""
+    raster = problem.block.raster_hz
+    largest = max((s.length for s in segments), default=0)
+    narrowest = {o.demand.id: [f.at(f.lo_half) for f in o.candidates] for o in options}
+    need_units = {
+        d: min(c.width_units + c.guard_units + c.edge_units for c in cands)
+        for d, cands in narrowest.items()
+        if cands
+    }
+    shortfall_hz = (sum(need_units.values()) - sum(s.length for s in segments)) * raster
+    out: list[Unserved] = []
+    for opts in options:
+        demand_id = opts.demand.id
+        if demand_id in served:
+            continue
+        if not opts.candidates:
+            out.append(Unserved(demand_id, UnservedReason.NO_LINK, opts.best_link_detail))
+        elif not any(seg.fits_alone(c) for c in narrowest[demand_id] for seg in segments):
+            need = need_units[demand_id] * raster
+            out.append(
+                Unserved(
+                    demand_id,
+                    UnservedReason.NO_SPECTRUM,
+                    f"the minimum rate needs {need:,.0f} Hz with its guards, more than the largest "
+                    f"free segment ({largest * raster:,.0f} Hz)",
+                )
+            )
+        else:
+            detail = (
+                f"left out for higher-priority demands: the minimum rates together need "
+                f"{shortfall_hz:,.0f} Hz more than the free spectrum"
+                if shortfall_hz > 0
+                else "left out for higher-priority demands: the free spectrum is too fragmented"
+            )
+            out.append(Unserved(demand_id, UnservedReason.NOT_ADMITTED, detail))
+    return out
+
+
+def with_guards(problem: Problem, carriers: Sequence[Carrier]) -> list[Carrier]:
+    """Fill in each carrier's guards: the larger guard of a pair, or its own edge guard."""
+    ordered = sorted(carriers, key=lambda c: c.center_hz)
+    out = []
+    for i, c in enumerate(ordered):
+        below = ordered[i - 1] if i else None
+        above = ordered[i + 1] if i + 1 < len(ordered) else None
+        out.append(
+            replace(
+                c,
+                guard_below_hz=_pair_guard(problem, c, below, "below"),
+                guard_above_hz=_pair_guard(problem, c, above, "above"),
+            )
+        )
+    return out
+
+
+def _pair_guard(problem: Problem, c: Carrier, other: Carrier | None, side: str) -> float:
+    edge = c.config.edge_guard_hz
+    if other is None:
+        return edge
+    gap = (
+        other.lower_edge_hz - c.upper_edge_hz
+        if side == "above"
+        else c.lower_edge_hz - other.upper_edge_hz
+    )
+    pair = max(c.config.guard_hz, other.config.guard_hz)
+    # A neighbour farther away than an edge or exclusion means the edge is what this side faces.
+    return pair if gap <= pair + edge else edge
+
+
+def free_segments_hz(problem: Problem, carriers: Sequence[Carrier]) -> list[float]:
+    """Widths of the free stretches left between exclusions, carriers and their guards."""
+    block = problem.block
+    taken = [(x.start_hz, x.stop_hz) for x in block.exclusions]
+    taken += [
+        (c.lower_edge_hz - c.guard_below_hz, c.upper_edge_hz + c.guard_above_hz) for c in carriers
+    ]
+    taken.sort()
+    free, cursor = [], block.start_hz
+    for start, stop in taken:
+        if start > cursor:
+            free.append(start - cursor)
+        cursor = max(cursor, stop)
+    if block.stop_hz > cursor:
+        free.append(block.stop_hz - cursor)
+    return free
+
+
+def summarise(problem: Problem, carriers: Sequence[Carrier], retunes: int) -> PlanSummary:
+    free = free_segments_hz(problem, carriers)
+    usable = problem.block.usable_width_hz
+    total = sum(c.config.throughput_bps for c in carriers)
+    bound = bounds.shannon_nyquist_bound(usable, problem.demands).total_bps
+    return PlanSummary(
+        used_bandwidth_hz=usable - sum(free),
+        free_bandwidth_hz=sum(free),
+        largest_free_segment_hz=max(free, default=0.0),
+        total_throughput_bps=total,
+        spectral_efficiency_bps_per_hz=total / usable if usable > 0 else 0.0,
+        shannon_bound_bps=bound,
+        efficiency_vs_bound=total / bound if bound > 0 else 0.0,
+        retune_count=retunes,
+    )
+
+
+def mark_retunes(problem: Problem, carriers: Sequence[Carrier]) -> list[Carrier]:
+    current = {d.id: d.current for d in problem.demands if d.current is not None}
+    out = []
+    for c in carriers:
+        cur = current.get(c.demand_id)
+        moved = cur is not None and not (
+            math.isclose(c.center_hz, cur.center_hz, abs_tol=problem.block.raster_hz / 2)
+            and math.isclose(c.config.symbol_rate_baud, cur.symbol_rate_baud, rel_tol=1e-6)
+            and math.isclose(c.config.rolloff, cur.rolloff)
+            and c.config.modulation == cur.modulation
+            and c.config.code_rate == cur.code_rate
+        )
+        out.append(replace(c, retuned=moved))
+    return out
