@@ -65,7 +65,7 @@ def scenario(count: int, seed: int = 7, objective: Objective = Objective.MAX_THR
         ),
         coding=Coding(16200, 1e-5, 1.0, 0.02),
         objective=objective,
-        time_limit_s={12: 5.0, 50: 10.0, 200: 30.0}.get(count, 10.0),
+        time_limit_s={12: 5.0, 50: 5.0, 200: 20.0}.get(count, 10.0),
         num_workers=2,
         seed=1,
     )

@@ -305,7 +305,7 @@ def _solve_and_verify(
 ) -> tuple[Verification, PackingResult, int, list[Unserved]]:
     """Solve, place, verify; cut and re-solve on failure; never return a failing plan.
 
-    The first solve gets half of the time limit, each repair round half of what is left and
+    The first solve gets 80 % of the time limit, each repair round half of what is left and
     the previous round's choice as a hint.  A round that finds nothing in its time falls back
     to the previous round's plan less the carriers to blame.
     """
@@ -313,7 +313,7 @@ def _solve_and_verify(
     options = list(data.options)
     fixed = {p.demand_id for p in pinned}
     floors: dict[str, float] = {}
-    budget, hints = problem.time_limit_s * 0.5, data.hints
+    budget, hints = problem.time_limit_s * 0.8, data.hints
     previous: tuple[Verification, PackingResult] | None = None
     round_no = 0
     while True:
