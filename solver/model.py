@@ -349,6 +349,8 @@ class SolveStats:
     seed: int
     solver_version: str
     verification_rounds: int = 1
+    search_time_s: float = 0.0
+    """CP-SAT's own time in the final round (``solve_time_s`` covers the whole pipeline)."""
 
 
 @dataclass(frozen=True)

@@ -24,7 +24,7 @@ import math
 import threading
 import time
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from enum import StrEnum
 
 import ortools
@@ -35,8 +35,10 @@ from solver.model import Demand, Objective, ProgressEvent, SolveStatus
 
 __all__ = [
     "GAP_TOLERANCE",
+    "SCALE",
     "Boundary",
     "ItemCoefficients",
+    "Key",
     "PackingInput",
     "PackingResult",
     "Segment",
@@ -54,6 +56,15 @@ _INT_HEADROOM = 2**60
 _THROUGHPUT_LEVELS = 1_000_000
 """Finest resolution of the throughput term: the largest target maps to this many units (fewer
 when the admission weights leave less integer headroom)."""
+
+STAGE_ONE_SHARE = 0.3
+"""Share of the time limit the admission stage may use (it usually proves optimal at once)."""
+
+LARGE_MODEL_ITEMS = 4000
+"""Variables above which presolve probing is switched off."""
+
+LP_BOUND_SHARE = 0.15
+"""Share of the time limit kept for the LP-relaxation bound when CP-SAT has not proved optimal."""
 
 GAP_TOLERANCE = 1e-4
 """A solve stops as optimal once the proven gap is below this fraction of the range of the
@@ -143,7 +154,7 @@ class PackingResult:
     solver_version: str
 
 
-_SCALE = 1000
+SCALE = 1000
 """Capacity rows are scaled by this so that guard-per-width coefficients stay integers."""
 
 
@@ -219,11 +230,11 @@ def _at_most_one_carrier_per_demand(model: cp_model.CpModel, v: _Vars) -> None:
     for key, var in v.x.items():
         by_demand.setdefault(key[0], []).append(var)
     for choices in by_demand.values():
-        model.add_at_most_one(choices)
+        model.add(sum(choices) <= 1)  # linear, so the LP relaxation holds it
 
 
 def _up(value: float) -> int:
-    return math.ceil(value * _SCALE - 1e-6)
+    return math.ceil(value * SCALE - 1e-6)
 
 
 @dataclass(frozen=True)
@@ -255,19 +266,22 @@ def item_coefficients(seg: Segment, fam: Family, level_db: float | None = None) 
     """Capacity-row coefficients of family ``fam`` in segment ``seg`` at a protection level."""
     if fam.lo_half == fam.hi_half:
         c = fam.at(fam.hi_half, level_db)
-        delta = max(seg.left_need(c) - c.guard_units, 0) * _SCALE
+        delta = max(seg.left_need(c) - c.guard_units, 0) * SCALE
         return ItemCoefficients(
-            0, (c.width_units + c.guard_units) * _SCALE, 0, delta, 0, seg.right_need(c) * _SCALE
+            0, (c.width_units + c.guard_units) * SCALE, 0, delta, 0, seg.right_need(c) * SCALE
         )
-    g, e = fam.guard_per_half(level_db), fam.edge_per_half
+    # A family's boundary needs are taken at its widest member (a constant per item), which
+    # keeps one row per item and family instead of one per half-width: looser by at most the
+    # difference between the top and the chosen member's edge guard.
+    g, e, hi = fam.guard_per_half(level_db), fam.edge_per_half, fam.hi_half
     if seg.left is Boundary.EDGE:
-        delta_h, delta_x = _up(max(e - g, 0.0)), _SCALE
+        delta_x = _up(max(e - g, 0.0) * hi) + SCALE
     else:
-        delta_h, delta_x = 0, seg.left_guard * _SCALE
+        delta_x = seg.left_guard * SCALE
     per_half = e if seg.right is Boundary.EDGE else g
-    extra = 0 if seg.right is Boundary.EDGE else seg.right_guard * _SCALE
+    extra = 0 if seg.right is Boundary.EDGE else seg.right_guard * SCALE
     return ItemCoefficients(
-        2 * _SCALE + _up(g), _SCALE, delta_h, delta_x, _up(per_half), _SCALE + extra
+        2 * SCALE + _up(g), SCALE, 0, delta_x, 0, _up(per_half * hi) + SCALE + extra
     )
 
 
@@ -280,12 +294,12 @@ def _segment_levels(model: cp_model.CpModel, data: PackingInput, v: _Vars) -> No
         if not used:
             continue
         z = {i: model.new_bool_var(f"z_{s}_{i}") for i in used}
-        model.add_at_most_one(z.values())
+        model.add(sum(z.values()) <= 1)
         for i, var in z.items():
             v.level[s, i] = var
         for key, var in v.x.items():
             if key[2] == s:
-                model.add_implication(var, z[key[3]])
+                model.add(var <= z[key[3]])
 
 
 def _segment_capacity(
@@ -296,14 +310,14 @@ def _segment_capacity(
     Items carry the guards of their own level; since a segment's items share one level, one
     plain linear row per segment is exact.  The maxima are integer variables bounded below by
     each item's (linear) need, so the LP relaxation sees them.  Rows are scaled by
-    :data:`_SCALE`.  Returns the scaled used width per segment.
+    :data:`SCALE`.  Returns the scaled used width per segment.
     """
     used: dict[int, cp_model.LinearExprT] = {}
     for s, seg in enumerate(data.segments):
         keys = [key for key in v.x if key[2] == s]
         if keys:
             need = _capacity_row(model, data, v, seg, keys, str(s))
-            model.add(need <= seg.length * _SCALE)
+            model.add(need <= seg.length * SCALE)
             used[s] = need
     return used
 
@@ -325,11 +339,16 @@ def _capacity_row(
     delta_max = model.new_int_var(0, max(t[0] for t in tops), f"delta_{name}")
     right_max = model.new_int_var(0, max(t[1] for t in tops), f"right_{name}")
     body_terms: list[tuple[cp_model.LinearExpr, int]] = []
+    needs: dict[tuple[int, int], list[tuple[cp_model.IntVar, int, int]]] = {}
     for c, key in zip(coefs, keys, strict=True):
         h, x = v.half[key], v.x[key]
-        model.add(delta_max >= _lin([(h, c.delta_h), (x, c.delta_x)]))
-        model.add(right_max >= _lin([(h, c.right_h), (x, c.right_x)]))
         body_terms += [(h, c.body_h), (x, c.body_x)]
+        needs.setdefault((key[0], key[1]), []).append((x, c.delta_x, c.right_x))
+    # One row per (demand, family): at most one of its level items is chosen.
+    for group in needs.values():
+        chosen = [x for x, _, _ in group]
+        model.add(delta_max >= max(d for _, d, _ in group) * sum(chosen))
+        model.add(right_max >= max(r for _, _, r in group) * sum(chosen))
     return _lin(body_terms) + delta_max + right_max
 
 
@@ -340,6 +359,7 @@ def _capacity_row(
 class _Term:
     expr: cp_model.LinearExprT
     upper: int  # the term lies in [0, upper]
+    coefficients: dict[Key, int] | None = None  # per half-width, for a linear objective term
 
 
 def _admission_term(data: PackingInput, v: _Vars) -> _Term:
@@ -364,15 +384,18 @@ def _throughput_term(data: PackingInput, v: _Vars, headroom: int) -> _Term:
     units, so the objective never credits more than the carrier carries).
     """
     unit = _throughput_unit_bps(data, v, headroom)
-    terms, upper = [], 0
-    for (d, k, _, _), h in v.half.items():
-        opts = data.options[d]
-        fam = opts.candidates[k]
+    coefficients: dict[Key, int] = {}
+    for key in v.half:
+        opts = data.options[key[0]]
+        fam = opts.candidates[key[1]]
         per_half = min(fam.throughput_per_half_bps, opts.demand.target_rate_bps / fam.hi_half)
-        terms.append(data.priorities[d] * math.floor(per_half / unit) * h)
-    for d in v.served:
-        upper += data.priorities[d] * math.ceil(data.options[d].demand.target_rate_bps / unit)
-    return _Term(sum(terms), upper)
+        coefficients[key] = data.priorities[key[0]] * math.floor(per_half / unit)
+    upper = sum(
+        data.priorities[d] * math.ceil(data.options[d].demand.target_rate_bps / unit)
+        for d in v.served
+    )
+    expr = _lin([(v.half[key], c) for key, c in coefficients.items()])
+    return _Term(expr, upper, coefficients)
 
 
 def _spectrum_term(data: PackingInput, used: dict[int, cp_model.LinearExprT]) -> _Term:
@@ -383,7 +406,7 @@ def _spectrum_term(data: PackingInput, used: dict[int, cp_model.LinearExprT]) ->
     """
     n = len(data.segments)
     cost = sum((n + s) * u for s, u in used.items())
-    upper = sum((n + s) * data.segments[s].length * _SCALE for s in used)
+    upper = sum((n + s) * data.segments[s].length * SCALE for s in used)
     return _Term(upper - cost, upper)
 
 
@@ -467,8 +490,11 @@ def _gap(objective: float, bound: float) -> float:
     return abs(bound - objective) / max(1.0, abs(objective))
 
 
-def _configure(solver: cp_model.CpSolver, data: PackingInput, gap_units: float) -> None:
+def _configure(solver: cp_model.CpSolver, data: PackingInput, gap_units: float, items: int) -> None:
     params = solver.parameters
+    if items > LARGE_MODEL_ITEMS:
+        # Presolve probing dominates short budgets on large models (CP-SAT notes, §1.8).
+        params.cp_model_probing_level = 0
     params.absolute_gap_limit = max(gap_units, 1e-4)
     params.max_time_in_seconds = max(0.05, data.time_limit_s)
     params.num_workers = max(1, data.num_workers)
@@ -535,24 +561,134 @@ def solve_packing(
     _segment_levels(model, data, v)
     used = _segment_capacity(model, data, v)
     terms = _objective_terms(model, data, v, used)
-    admission_weight = _lexicographic(model, terms)
-    _add_hints(model, data, v)
+    started = time.perf_counter()
+    deadline = started + max(0.05, data.time_limit_s)
 
+    # Stage 1: admission alone (serve demands in priority order).
+    model.maximize(terms[0].expr)
+    _add_hints(model, data, v)
+    budget = max(0.05, data.time_limit_s * STAGE_ONE_SHARE)
+    first, first_status = _run(model, data, budget, 0.5, None, cancel)
+    if first_status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
+        return _no_solution(time.perf_counter() - started)
+    admitted = round(first.objective_value)
+
+    # Stage 2: keep that admission, optimise the rest (the CP-SAT notes' two-stage order,
+    # rather than one objective with weights large enough to drown the LP bound).
+    model.add(terms[0].expr >= admitted)
+    _hint_solution(model, data, v, _grown(data, v, first))
+    model.clear_objective()  # type: ignore[no-untyped-call]
+    _lexicographic(model, terms[1:])
+    linear = terms[1].coefficients if len(terms) == 2 else None
+    reserve = data.time_limit_s * LP_BOUND_SHARE if linear is not None else 0.0
+    remaining = max(0.05, deadline - reserve - time.perf_counter())
+    second, second_status = _run(
+        model, data, remaining, GAP_TOLERANCE * terms[-1].upper, progress, cancel
+    )
+    if second_status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
+        return _extract(first, first_status, v, time.perf_counter() - started, proven=False)
+    proven = first_status == cp_model.OPTIMAL and second_status == cp_model.OPTIMAL
+    result = _extract(second, second_status, v, time.perf_counter() - started, proven=proven)
+    if proven or linear is None:
+        return result
+    return _tighten(result, data, list(v.x), linear, admitted, reserve, started)
+
+
+def _tighten(
+    result: PackingResult,
+    data: PackingInput,
+    keys: list[Key],
+    linear: dict[Key, int],
+    admitted: int,
+    budget_s: float,
+    started: float,
+) -> PackingResult:
+    """Report the tighter of CP-SAT's bound and the LP relaxation's."""
+    from solver.relaxation import throughput_lp_bound  # imports this module
+
+    lp = throughput_lp_bound(data, keys, linear, admitted, max(1.0, budget_s))
+    bound = (
+        min(result.best_bound, math.floor(lp + 1e-6)) if math.isfinite(lp) else result.best_bound
+    )
+    gap = _gap(result.objective_value, bound)
+    elapsed = time.perf_counter() - started
+    status = SolveStatus.OPTIMAL if gap <= GAP_TOLERANCE else result.status
+    return replace(
+        result, best_bound=bound, optimality_gap=gap, solve_time_s=elapsed, status=status
+    )
+
+
+def _run(
+    model: cp_model.CpModel,
+    data: PackingInput,
+    budget_s: float,
+    gap_units: float,
+    progress: Callable[[ProgressEvent], None] | None,
+    cancel: threading.Event | None,
+) -> tuple[cp_model.CpSolver, cp_model.CpSolverStatus]:
     solver = cp_model.CpSolver()
-    # Stop once the proven gap is below GAP_TOLERANCE of the last term's range (which is then
-    # reported as "optimal" together with the gap actually reached).
-    _configure(solver, data, GAP_TOLERANCE * terms[-1].upper)
+    _configure(solver, replace(data, time_limit_s=budget_s), gap_units, len(model.proto.variables))
     done = threading.Event()
     if cancel is not None:
         threading.Thread(target=_watch_cancel, args=(solver, cancel, done), daemon=True).start()
-    started = time.perf_counter()
     try:
         status = solver.solve(model, _Progress(progress, cancel))
     finally:
         done.set()
-    elapsed = time.perf_counter() - started
-    admission = _Term(terms[0].expr, admission_weight)
-    return _extract(solver, status, v, elapsed, admission)
+    return solver, status
+
+
+def _grown(data: PackingInput, v: _Vars, solver: cp_model.CpSolver) -> dict[Key, int]:
+    """The stage-1 solution with every chosen carrier widened greedily, best throughput per
+    unit of spectrum first, until its segment is full: a strong start for stage 2."""
+    chosen = {
+        key: int(solver.value(v.half[key])) for key, x in v.x.items() if solver.boolean_value(x)
+    }
+    for s, seg in enumerate(data.segments):
+        keys = [key for key in chosen if key[2] == s]
+        if not keys:
+            continue
+        fams = {key: data.options[key[0]].candidates[key[1]] for key in keys}
+        coefs = {key: item_coefficients(seg, fams[key], data.level(key[3])) for key in keys}
+        used = sum(c.body_h * chosen[k] + c.body_x for k, c in coefs.items())
+        used += max(c.delta_x for c in coefs.values()) + max(c.right_x for c in coefs.values())
+        room = seg.length * SCALE - used
+
+        value = {key: _value_per_unit(data, key, fams[key], coefs[key]) for key in keys}
+        for key in sorted(keys, key=value.__getitem__, reverse=True):
+            step = coefs[key].body_h
+            if step <= 0:
+                continue
+            extra = min(fams[key].hi_half - chosen[key], room // step)
+            chosen[key] += extra
+            room -= extra * step
+    return chosen
+
+
+def _value_per_unit(data: PackingInput, key: Key, fam: Family, coef: ItemCoefficients) -> float:
+    demand = data.options[key[0]].demand
+    per_half = min(fam.throughput_per_half_bps, demand.target_rate_bps / fam.hi_half)
+    return data.priorities[key[0]] * per_half / max(coef.body_h, 1)
+
+
+def _hint_solution(
+    model: cp_model.CpModel, data: PackingInput, v: _Vars, chosen: dict[Key, int]
+) -> None:
+    """Hint every decision of a known solution (a complete, feasible hint)."""
+    model.clear_hints()  # type: ignore[no-untyped-call]
+    levels = {(key[2], key[3]) for key in chosen}
+    for key, var in v.x.items():
+        model.add_hint(var, key in chosen)
+        h = v.half[key]
+        if isinstance(h, cp_model.IntVar):
+            model.add_hint(h, chosen.get(key, 0))
+    for (s, i), var in v.level.items():
+        model.add_hint(var, (s, i) in levels)
+
+
+def _no_solution(elapsed: float) -> PackingResult:
+    version = str(getattr(ortools, "__version__", "unknown"))
+    return PackingResult(SolveStatus.INFEASIBLE, {}, {}, 0.0, 0.0, 0.0, elapsed, version)
 
 
 def _extract(
@@ -560,14 +696,11 @@ def _extract(
     status: cp_model.CpSolverStatus,
     v: _Vars,
     elapsed: float,
-    admission: _Term,
+    *,
+    proven: bool,
 ) -> PackingResult:
-    """Read the choice; the gap is reported relative to the objective less its admission part,
-    so it speaks of throughput (or spectrum, or margin) rather than vanish behind admission."""
+    """Read the choice, the objective of the last stage, its bound and relative gap."""
     version = str(getattr(ortools, "__version__", "unknown"))
-    if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
-        # No solution at all (UNKNOWN when the time ran out first): nothing is served.
-        return PackingResult(SolveStatus.INFEASIBLE, {}, {}, 0.0, 0.0, 0.0, elapsed, version)
     chosen: dict[int, list[tuple[int, int, int]]] = {}
     levels: dict[int, int] = {}
     for (d, k, s, i), var in v.x.items():
@@ -575,10 +708,8 @@ def _extract(
             chosen.setdefault(s, []).append((d, k, int(solver.value(v.half[d, k, s, i]))))
             levels[s] = i
     obj, bound = solver.objective_value, solver.best_objective_bound
-    rest = obj - admission.upper * solver.value(admission.expr)
-    gap = abs(bound - obj) / max(1.0, abs(rest))
-    state = SolveStatus.OPTIMAL if status == cp_model.OPTIMAL else SolveStatus.FEASIBLE
-    return PackingResult(state, chosen, levels, obj, bound, gap, elapsed, version)
+    state = SolveStatus.OPTIMAL if proven else SolveStatus.FEASIBLE
+    return PackingResult(state, chosen, levels, obj, bound, _gap(obj, bound), elapsed, version)
 
 
 # ---------------------------------------------------------------- placement

@@ -69,7 +69,7 @@ LEVEL_STEP_DB = 6.0
 """Protection levels a segment may take are multiples of this (a family's sensitivity is
 rounded up to the next one)."""
 
-MAX_LEVELS = 8
+MAX_LEVELS = 4
 """At most this many protection levels; the step doubles until they fit."""
 
 MAX_REPAIR_ROUNDS = 6
@@ -529,6 +529,7 @@ def _finish(problem: Problem, outcome: _Outcome, elapsed_s: float) -> Plan:
         seed=problem.seed,
         solver_version=result.solver_version,
         verification_rounds=outcome.rounds,
+        search_time_s=result.solve_time_s,
     )
     notices = list(CAUTIONS)
     if outcome.rounds > 1:

@@ -226,3 +226,37 @@ def test_knapsack_matches_brute_force(items: list[tuple[int, int]], length: int)
             if need <= length:
                 best = max(best, r)
     assert served == best
+
+
+@settings(max_examples=20, deadline=None)
+@given(
+    st.lists(
+        st.tuples(st.integers(2, 20), st.integers(0, 6), st.integers(1, 9)), min_size=1, max_size=5
+    ),
+    st.integers(20, 90),
+)
+def test_lp_relaxation_bounds_the_integer_optimum(
+    items: list[tuple[int, int, int]], length: int
+) -> None:
+    """Property: the LP relaxation of the throughput stage is never below the integer optimum."""
+    from ortools.sat.python import cp_model
+
+    from solver.packing import _make_choice_vars, _throughput_term
+    from solver.relaxation import throughput_lp_bound
+
+    options = [
+        _options(f"d{i}", _cand(f"d{i}", 2 * w, g, float(t)), target=100.0)
+        for i, (w, g, t) in enumerate(items)
+    ]
+    data = _input(options, [Segment(0, length)])
+    result = solve_packing(data)
+    v = _make_choice_vars(cp_model.CpModel(), data)
+    term = _throughput_term(data, v, 2**40)
+    assert term.coefficients is not None
+    bound = throughput_lp_bound(data, list(v.x), term.coefficients, 0, 5.0)
+    achieved = sum(
+        term.coefficients[key] * (data.options[key[0]].candidates[key[1]].hi_half)
+        for key in v.x
+        if any(key[0] == d and key[1] == k for picks in result.chosen.values() for d, k, _ in picks)
+    )
+    assert bound >= achieved - 1e-6
