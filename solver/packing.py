@@ -60,7 +60,7 @@ when the admission weights leave less integer headroom)."""
 STAGE_ONE_SHARE = 0.3
 """Share of the time limit the admission stage may use (it usually proves optimal at once)."""
 
-LARGE_MODEL_ITEMS = 4000
+LARGE_MODEL_ITEMS = 1500
 """Variables above which presolve probing is switched off."""
 
 LP_BOUND_SHARE = 0.15
@@ -576,7 +576,8 @@ def solve_packing(
     # Stage 2: keep that admission, optimise the rest (the CP-SAT notes' two-stage order,
     # rather than one objective with weights large enough to drown the LP bound).
     model.add(terms[0].expr >= admitted)
-    _hint_solution(model, data, v, _grown(data, v, first))
+    grown = _grown(data, v, first)
+    _hint_solution(model, data, v, grown)
     model.clear_objective()  # type: ignore[no-untyped-call]
     _lexicographic(model, terms[1:])
     linear = terms[1].coefficients if len(terms) == 2 else None
@@ -586,7 +587,9 @@ def solve_packing(
         model, data, remaining, GAP_TOLERANCE * terms[-1].upper, progress, cancel
     )
     if second_status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
-        return _extract(first, first_status, v, time.perf_counter() - started, proven=False)
+        # Stage 2 found nothing in its time: the grown stage-1 solution is feasible by
+        # construction, so it is the answer (its quality is unproven).
+        return _from_choice(grown, time.perf_counter() - started)
     proven = first_status == cp_model.OPTIMAL and second_status == cp_model.OPTIMAL
     result = _extract(second, second_status, v, time.perf_counter() - started, proven=proven)
     if proven or linear is None:
@@ -684,6 +687,17 @@ def _hint_solution(
             model.add_hint(h, chosen.get(key, 0))
     for (s, i), var in v.level.items():
         model.add_hint(var, (s, i) in levels)
+
+
+def _from_choice(chosen: dict[Key, int], elapsed: float) -> PackingResult:
+    """A result made from a known choice, with no bound (gap reported as 1)."""
+    version = str(getattr(ortools, "__version__", "unknown"))
+    picks: dict[int, list[tuple[int, int, int]]] = {}
+    levels: dict[int, int] = {}
+    for (d, k, s, i), h in sorted(chosen.items()):
+        picks.setdefault(s, []).append((d, k, h))
+        levels[s] = i
+    return PackingResult(SolveStatus.FEASIBLE, picks, levels, 0.0, 0.0, 1.0, elapsed, version)
 
 
 def _no_solution(elapsed: float) -> PackingResult:
