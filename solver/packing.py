@@ -642,30 +642,59 @@ def _run(
 
 
 def _grown(data: PackingInput, v: _Vars, solver: cp_model.CpSolver) -> dict[Key, int]:
-    """The stage-1 solution with every chosen carrier widened greedily, best throughput per
-    unit of spectrum first, until its segment is full: a strong start for stage 2."""
-    chosen = {
+    """A strong start for stage 2 from the stage-1 solution: the same demands in the same
+    segments at the same level, each switched to its family with the most throughput per unit
+    of spectrum (where the narrowest members still fit), then widened greedily, best value
+    first, until the segment is full."""
+    stage_one = {
         key: int(solver.value(v.half[key])) for key, x in v.x.items() if solver.boolean_value(x)
     }
+    options: dict[tuple[int, int, int], list[Key]] = {}
+    for key in v.x:
+        options.setdefault((key[0], key[2], key[3]), []).append(key)
+    chosen: dict[Key, int] = {}
     for s, seg in enumerate(data.segments):
-        keys = [key for key in chosen if key[2] == s]
-        if not keys:
-            continue
-        fams = {key: data.options[key[0]].candidates[key[1]] for key in keys}
-        coefs = {key: item_coefficients(seg, fams[key], data.level(key[3])) for key in keys}
-        used = sum(c.body_h * chosen[k] + c.body_x for k, c in coefs.items())
-        used += max(c.delta_x for c in coefs.values()) + max(c.right_x for c in coefs.values())
-        room = seg.length * SCALE - used
-
-        value = {key: _value_per_unit(data, key, fams[key], coefs[key]) for key in keys}
-        for key in sorted(keys, key=value.__getitem__, reverse=True):
-            step = coefs[key].body_h
-            if step <= 0:
-                continue
-            extra = min(fams[key].hi_half - chosen[key], room // step)
-            chosen[key] += extra
-            room -= extra * step
+        keys = [key for key in stage_one if key[2] == s]
+        if keys:
+            chosen.update(_fill_segment(data, seg, keys, options))
     return chosen
+
+
+def _fill_segment(
+    data: PackingInput,
+    seg: Segment,
+    keys: list[Key],
+    options: dict[tuple[int, int, int], list[Key]],
+) -> dict[Key, int]:
+    def fam(key: Key) -> Family:
+        return data.options[key[0]].candidates[key[1]]
+
+    def coef(key: Key) -> ItemCoefficients:
+        return item_coefficients(seg, fam(key), data.level(key[3]))
+
+    def room(choice: dict[Key, int]) -> int:
+        cs = {k: coef(k) for k in choice}
+        used = sum(c.body_h * choice[k] + c.body_x for k, c in cs.items())
+        used += max(c.delta_x for c in cs.values()) + max(c.right_x for c in cs.values())
+        return seg.length * SCALE - used
+
+    def value(key: Key) -> float:
+        return _value_per_unit(data, key, fam(key), coef(key))
+
+    choice = {key: fam(key).lo_half for key in keys}
+    for key in sorted(keys, key=value):
+        best = max(options[key[0], key[2], key[3]], key=value)
+        trial = {k: h for k, h in choice.items() if k != key} | {best: fam(best).lo_half}
+        if best != key and room(trial) >= 0:
+            choice = trial
+    spare = room(choice)
+    for key in sorted(choice, key=value, reverse=True):
+        step = coef(key).body_h
+        if step > 0:
+            extra = min(fam(key).hi_half - choice[key], spare // step)
+            choice[key] += extra
+            spare -= extra * step
+    return choice
 
 
 def _value_per_unit(data: PackingInput, key: Key, fam: Family, coef: ItemCoefficients) -> float:
