@@ -32,10 +32,15 @@ from solver.rules import rule_of_thumb_plan
 WIDTH_PER_DEMAND_HZ = 1.6e6
 
 
-def scenario(count: int, seed: int = 7, objective: Objective = Objective.MAX_THROUGHPUT) -> Problem:
+def scenario(
+    count: int,
+    seed: int = 7,
+    objective: Objective = Objective.MAX_THROUGHPUT,
+    width_per_demand_hz: float = WIDTH_PER_DEMAND_HZ,
+) -> Problem:
     """An invented, oversubscribed block of ``count`` demands."""
     rng = np.random.default_rng(seed)
-    width = WIDTH_PER_DEMAND_HZ * count
+    width = width_per_demand_hz * count
     start = 7_125e6
     raster = 10e3 if count <= 50 else 25e3
     mid = start + width * rng.uniform(0.3, 0.7)
@@ -209,8 +214,8 @@ def solve_with_highs(data: PackingInput, time_limit_s: float) -> HighsResult:
 # ---------------------------------------------------------------- report
 
 
-def _row(count: int) -> dict[str, object]:
-    problem = scenario(count)
+def _row(count: int, width_per_demand_hz: float) -> dict[str, object]:
+    problem = scenario(count, width_per_demand_hz=width_per_demand_hz)
     started = time.perf_counter()
     plan = solve(problem)
     wall = time.perf_counter() - started
@@ -256,8 +261,14 @@ def _row(count: int) -> dict[str, object]:
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--sizes", type=int, nargs="+", default=[12, 50, 200])
+    parser.add_argument(
+        "--width-per-demand-hz",
+        type=float,
+        default=WIDTH_PER_DEMAND_HZ,
+        help="block width / demands",
+    )
     args = parser.parse_args()
-    rows = [_row(n) for n in args.sizes]
+    rows = [_row(n, args.width_per_demand_hz) for n in args.sizes]
     keys = list(rows[0])
     print("| " + " | ".join(keys) + " |")
     print("|" + "---|" * len(keys))
