@@ -110,14 +110,20 @@ def throughput_lp_bound(
 def _demand_rows(
     data: PackingInput, keys: Sequence[Key], index: Mapping[Key, int], rows: _Rows, admitted: int
 ) -> None:
+    """At most one item per demand, and the admission stage 1 reached.
+
+    On small models, when stage 1 served every demand that has an item, admission means each of
+    them is served; otherwise the admission row is added.  On large models both are left out
+    (they slow the simplex past its time share); leaving them out only loosens the bound.
+    """
     by_demand: dict[int, list[int]] = {}
     for key in keys:
         by_demand.setdefault(key[0], []).append(index[key])
+    everyone = sum(data.admission_weights[d] for d in by_demand)
+    small = len(keys) <= _DENSE_ROW_LIMIT
     for cols in by_demand.values():
-        rows.add([(j, 1.0) for j in cols], 0.0, 1.0)
-    if admitted > 0 and len(keys) <= _DENSE_ROW_LIMIT:
-        # Dropping this row (on large models, where it slows the simplex) only loosens the
-        # relaxation: the bound stays valid.
+        rows.add([(j, 1.0) for j in cols], 1.0 if small and admitted >= everyone else 0.0, 1.0)
+    if small and 0 < admitted < everyone:
         weights = [(index[key], float(data.admission_weights[key[0]])) for key in keys]
         rows.add(weights, float(admitted), np.inf)
 
@@ -146,3 +152,32 @@ def _capacity_rows(
             rows.add([(delta, 1.0)] + [(j, -float(d_need)) for j, _, _ in group], 0.0, np.inf)
             rows.add([(delta + 1, 1.0)] + [(j, -float(r_need)) for j, _, _ in group], 0.0, np.inf)
         rows.add([*body, (delta, 1.0), (delta + 1, 1.0)], -np.inf, float(seg.length * SCALE))
+        _level_rows(data, keys, index, n_items, s, rows)
+
+
+def _level_rows(
+    data: PackingInput,
+    keys: Sequence[Key],
+    index: Mapping[Key, int],
+    n_items: int,
+    s: int,
+    rows: _Rows,
+) -> None:
+    """The items of one level fit in the segment's share z·length (as in the CP-SAT model)."""
+    if not data.levels:
+        return
+    seg = data.segments[s]
+    for i in sorted({key[3] for key in keys if key[2] == s}):
+        terms: list[tuple[int, float]] = []
+        for key in (k for k in keys if k[2] == s and k[3] == i):
+            c = item_coefficients(seg, data.options[key[0]].candidates[key[1]], data.level(i))
+            j = index[key]
+            terms += [(n_items + j, float(c.body_h)), (j, float(c.body_x))]
+        terms.append((_z_col(keys, n_items, s, i), -float(seg.length * SCALE)))
+        rows.add(terms, -np.inf, 0.0)
+
+
+def _z_col(keys: Sequence[Key], n_items: int, s: int, i: int) -> int:
+    """Column of the (segment, level) choice, numbered as in :func:`throughput_lp_bound`."""
+    levels = sorted({(key[2], key[3]) for key in keys})
+    return 2 * n_items + levels.index((s, i))
