@@ -339,7 +339,13 @@ def _cmd_serve(args: argparse.Namespace) -> ExitCode:
     settings = Settings()
     host = args.host or settings.host
     port = settings.port if args.port is None else args.port
-    uvicorn.run(create_app(settings), host=host, port=port, log_level="info")
+    uvicorn.run(
+        create_app(settings),
+        host=host,
+        port=port,
+        log_level="info",
+        access_log=settings.access_log,
+    )
     return ExitCode.SERVED
 
 

@@ -37,6 +37,9 @@ class Settings(BaseSettings):
     max_queued_jobs: int = Field(100, ge=1, description="jobs waiting before POST /v1/jobs → 503")
     retry_after_s: int = Field(2, ge=1, description="Retry-After on 202 and 503 answers (s)")
     max_body_bytes: int = Field(5 * MEBIBYTE, ge=1024, description="request body limit (bytes)")
+    access_log: bool = Field(
+        False, description="log every request (off: /metrics counts them, at far less cost)"
+    )
     progress_interval_s: float = Field(
         0.5, gt=0, description="least time between stored job progress updates (s)"
     )

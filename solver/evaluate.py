@@ -11,6 +11,8 @@ import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 
+import numpy as np
+
 from solver import emission, link, modcod
 from solver.constellations import constellation
 from solver.model import Amplifier, CodeRate, Coding, Modulation, ProblemError, Window
@@ -140,10 +142,9 @@ def evaluate_carrier(
     required = float(modcod.required_esn0_db(modulation, code_rate, coding))
     bits = constellation(modulation).bits_per_symbol
     margin = float(link.margin_db(esn0, required))
-    leakage = tuple(
-        LeakageAtGap(float(gap), emission.leakage_ratio_db_at(key, symbol_rate_baud, gap))
-        for gap in gaps_hz
-    )
+    gaps = np.asarray(gaps_hz, dtype=np.float64)
+    ratios = profile.leakage_ratio_db(gaps / symbol_rate_baud) if gaps.size else np.zeros(0)
+    leakage = tuple(LeakageAtGap(float(g), float(r)) for g, r in zip(gaps, ratios, strict=True))
     return CarrierEvaluation(
         occupied_bandwidth_hz=emission.occupied_bandwidth_hz(key, symbol_rate_baud),
         allocated_bandwidth_hz=profile.nominal_bandwidth * symbol_rate_baud,

@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 
 from fastapi import APIRouter
+from starlette.concurrency import run_in_threadpool
 
 from service.jobs import amplifier_from_wire, coding_from_wire
 from service.routes.plans import PROBLEM_RESPONSES
@@ -27,8 +28,31 @@ def _finite(value: float) -> float | None:
     summary="Bandwidths, leakage, guard, margin and throughput of one carrier",
     responses=PROBLEM_RESPONSES,
 )
-def evaluate(body: EvaluateRequest) -> EvaluateResponse:
-    """Evaluate one configuration; no block, no placement, nothing stored."""
+async def evaluate(body: EvaluateRequest) -> EvaluateResponse:
+    """Evaluate one configuration; no block, no placement, nothing stored.
+
+    Once a (spectrum, coding) pair has been seen its profile and thresholds are cached and an
+    evaluation takes about a millisecond, so it runs on the event loop; the first evaluation
+    of a pair (a profile or catalogue to compute, up to about a second) runs in a thread.
+    """
+    warm_key = body.model_dump_json(include=_CACHE_FIELDS)
+    if warm_key in _WARM:
+        return _evaluate(body)
+    response = await run_in_threadpool(_evaluate, body)
+    if len(_WARM) >= _MAX_WARM:  # bounded: a client cannot grow it without limit
+        _WARM.clear()
+    _WARM.add(warm_key)
+    return response
+
+
+_CACHE_FIELDS = {"rolloff", "modulation", "code_rate", "filter_span_symbols", "window"}
+_CACHE_FIELDS |= {"amplifier", "coding"}
+_MAX_WARM = 4096
+_WARM: set[str] = set()
+"""Serialised (spectrum, coding) inputs already evaluated once in this process."""
+
+
+def _evaluate(body: EvaluateRequest) -> EvaluateResponse:
     result = evaluate_carrier(
         symbol_rate_baud=body.symbol_rate_baud,
         rolloff=body.rolloff,
