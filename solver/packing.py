@@ -319,25 +319,7 @@ def _segment_capacity(
             need = _capacity_row(model, data, v, seg, keys, str(s))
             model.add(need <= seg.length * SCALE)
             used[s] = need
-            _level_capacity(model, data, v, s, keys)
     return used
-
-
-def _level_capacity(
-    model: cp_model.CpModel, data: PackingInput, v: _Vars, s: int, keys: Sequence[Key]
-) -> None:
-    """Redundant, for the LP relaxation: the items of one level fit in the segment's share
-    z·length (in integers, the same as the row above; with fractional z, much tighter)."""
-    if not data.levels:
-        return
-    for i in sorted({key[3] for key in keys}):
-        members = [key for key in keys if key[3] == i]
-        terms: list[tuple[cp_model.LinearExpr, int]] = []
-        for key in members:
-            fam = data.options[key[0]].candidates[key[1]]
-            c = item_coefficients(data.segments[s], fam, data.level(i))
-            terms += [(v.half[key], c.body_h), (v.x[key], c.body_x)]
-        model.add(_lin(terms) <= data.segments[s].length * SCALE * v.level[s, i])
 
 
 def _capacity_row(

@@ -152,32 +152,3 @@ def _capacity_rows(
             rows.add([(delta, 1.0)] + [(j, -float(d_need)) for j, _, _ in group], 0.0, np.inf)
             rows.add([(delta + 1, 1.0)] + [(j, -float(r_need)) for j, _, _ in group], 0.0, np.inf)
         rows.add([*body, (delta, 1.0), (delta + 1, 1.0)], -np.inf, float(seg.length * SCALE))
-        _level_rows(data, keys, index, n_items, s, rows)
-
-
-def _level_rows(
-    data: PackingInput,
-    keys: Sequence[Key],
-    index: Mapping[Key, int],
-    n_items: int,
-    s: int,
-    rows: _Rows,
-) -> None:
-    """The items of one level fit in the segment's share z·length (as in the CP-SAT model)."""
-    if not data.levels:
-        return
-    seg = data.segments[s]
-    for i in sorted({key[3] for key in keys if key[2] == s}):
-        terms: list[tuple[int, float]] = []
-        for key in (k for k in keys if k[2] == s and k[3] == i):
-            c = item_coefficients(seg, data.options[key[0]].candidates[key[1]], data.level(i))
-            j = index[key]
-            terms += [(n_items + j, float(c.body_h)), (j, float(c.body_x))]
-        terms.append((_z_col(keys, n_items, s, i), -float(seg.length * SCALE)))
-        rows.add(terms, -np.inf, 0.0)
-
-
-def _z_col(keys: Sequence[Key], n_items: int, s: int, i: int) -> int:
-    """Column of the (segment, level) choice, numbered as in :func:`throughput_lp_bound`."""
-    levels = sorted({(key[2], key[3]) for key in keys})
-    return 2 * n_items + levels.index((s, i))
