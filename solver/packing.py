@@ -589,7 +589,10 @@ def solve_packing(
     if second_status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
         # Stage 2 found nothing in its time: the grown stage-1 solution is feasible by
         # construction, so it is the answer (its quality is unproven).
-        return _from_choice(grown, time.perf_counter() - started)
+        fallback = _from_choice(grown, time.perf_counter() - started, linear)
+        if linear is None:
+            return fallback
+        return _tighten(fallback, data, list(v.x), linear, admitted, reserve, started)
     proven = first_status == cp_model.OPTIMAL and second_status == cp_model.OPTIMAL
     result = _extract(second, second_status, v, time.perf_counter() - started, proven=proven)
     if proven or linear is None:
@@ -718,15 +721,20 @@ def _hint_solution(
         model.add_hint(var, (s, i) in levels)
 
 
-def _from_choice(chosen: dict[Key, int], elapsed: float) -> PackingResult:
-    """A result made from a known choice, with no bound (gap reported as 1)."""
+def _from_choice(
+    chosen: dict[Key, int], elapsed: float, linear: dict[Key, int] | None
+) -> PackingResult:
+    """A result made from a known choice: its objective when the last term is linear, and no
+    bound yet (gap 1 until :func:`_tighten` finds one)."""
     version = str(getattr(ortools, "__version__", "unknown"))
     picks: dict[int, list[tuple[int, int, int]]] = {}
     levels: dict[int, int] = {}
     for (d, k, s, i), h in sorted(chosen.items()):
         picks.setdefault(s, []).append((d, k, h))
         levels[s] = i
-    return PackingResult(SolveStatus.FEASIBLE, picks, levels, 0.0, 0.0, 1.0, elapsed, version)
+    value = float(sum(linear.get(k, 0) * h for k, h in chosen.items())) if linear else 0.0
+    bound = math.inf if linear else 0.0
+    return PackingResult(SolveStatus.FEASIBLE, picks, levels, value, bound, 1.0, elapsed, version)
 
 
 def _no_solution(elapsed: float) -> PackingResult:

@@ -537,11 +537,13 @@ def _finish(problem: Problem, outcome: _Outcome, elapsed_s: float) -> Plan:
             f"Verification needed {outcome.rounds} rounds: guards were widened where "
             "interference was found."
         )
-    if status is SolveStatus.FEASIBLE:
+    if status is SolveStatus.FEASIBLE and math.isfinite(result.optimality_gap):
         notices.append(
             "The solver stopped at its time limit; the plan is within "
             f"{result.optimality_gap:.2%} of its bound."
         )
+    elif status is SolveStatus.FEASIBLE:
+        notices.append("The solver stopped at its time limit before it could bound the plan.")
     return Plan(
         name=problem.name,
         status=status,
