@@ -316,55 +316,17 @@ def _discrete_candidates(
     if grid.width_units.size == 0:
         return DemandOptions(demand, (), _no_link_detail(problem, demand, combos))
     idx, rs = grid.combo_index, grid.symbol_rate_baud
-    throughput = rs * combos.net_bits_per_symbol[idx]
-    esn0 = _esn0_db(demand, rs)
-    margin = esn0 - combos.required_esn0_db[idx]
-    weakest = max(d.relative_level_db for d in problem.demands) - demand.relative_level_db
-    floor = max(problem.leakage_limit_db, min_limit_db)
-    sensitivity = _immunity_limit_db(esn0, margin, demand, weakest)
-    leak_per_baud = _guard_per_baud(combos, idx, np.full(idx.size, floor))
-    own_mask = _mask_per_baud(combos, idx, sensitivity)
-    guard = np.maximum(leak_per_baud, own_mask) * rs
-    edge = _guard_per_baud(combos, idx, np.full(idx.size, problem.edge_limit_db)) * rs
-    usable = np.isfinite(guard) & np.isfinite(edge)
-    guard_units = np.ceil(np.where(usable, guard, 0.0) / raster - 1e-9).astype(np.int64)
-    edge_units = np.ceil(np.where(usable, edge, 0.0) / raster - 1e-9).astype(np.int64)
-    capped = np.minimum(throughput, demand.target_rate_bps)
+    g = _guards(problem, demand, combos, idx, rs, min_limit_db)
+    guard_units = np.ceil(np.where(g.usable, g.guard_hz, 0.0) / raster - 1e-9).astype(np.int64)
+    edge_units = np.ceil(np.where(g.usable, g.edge_hz, 0.0) / raster - 1e-9).astype(np.int64)
+    capped = np.minimum(g.throughput_bps, demand.target_rate_bps)
     cost = grid.width_units + guard_units
-    kept = _front(problem.objective, cost, capped, margin, edge_units, usable)
+    kept = _front(problem.objective, cost, capped, g.margin_db, edge_units, g.usable)
     kept = _thin(kept[np.argsort(capped[kept], kind="stable")], capped, max_per_demand)
-    out = []
-    for i in kept:
-        c = int(idx[i])
-        config = CarrierConfig(
-            demand_id=demand.id,
-            modulation=combos.modulation[c],
-            code_rate=combos.code_rate[c],
-            rolloff=float(combos.rolloff[c]),
-            symbol_rate_baud=float(rs[i]),
-            bits_per_symbol=int(combos.bits_per_symbol[c]),
-            allocated_bandwidth_hz=float(rs[i] * (1 + combos.rolloff[c])),
-            occupied_bandwidth_hz=float(rs[i] * combos.occupied_per_baud[c]),
-            guard_hz=float(guard[i]),
-            edge_guard_hz=float(edge[i]),
-            throughput_bps=float(throughput[i]),
-            esn0_db=float(esn0[i]),
-            required_esn0_db=float(combos.required_esn0_db[c]),
-        )
-        cand = Candidate(config, int(grid.width_units[i]), int(guard_units[i]), int(edge_units[i]))
-        half = cand.width_units // 2
-        out.append(
-            Family(
-                cand,
-                half,
-                half,
-                demand.cn0_dbhz is not None,
-                raster,
-                sensitivity_db=float(sensitivity[i]),
-                leakage_guard_per_baud=float(leak_per_baud[i]),
-                key=combos.keys[int(idx[i])],
-            )
-        )
+    out = [
+        _family(problem, demand, combos, g, int(i), int(grid.width_units[i]) // 2, None)
+        for i in kept
+    ]
     return DemandOptions(demand, tuple(out), "")
 
 
@@ -416,60 +378,101 @@ def build_candidates(
     if span.combo_index.size == 0:
         return DemandOptions(demand, (), _no_link_detail(problem, demand, combos))
     idx, rs = span.combo_index, span.top_rate_baud
+    g = _guards(problem, demand, combos, idx, rs, min_limit_db)
+    per_half_cost = 2.0 + np.where(g.usable, g.guard_hz, 0.0) / raster / span.hi_half
+    ratio = g.throughput_bps / span.hi_half / per_half_cost
+    low_throughput = g.throughput_bps * span.lo_half / span.hi_half
+    kept = [i for i in _family_front(ratio, low_throughput, g.throughput_bps) if g.usable[i]]
+    families = [
+        _family(problem, demand, combos, g, i, int(span.hi_half[i]), int(span.lo_half[i]))
+        for i in sorted(kept, key=lambda i: (g.throughput_bps[i], -ratio[i]))
+    ]
+    return DemandOptions(demand, tuple(families), "")
+
+
+class _Guards(NamedTuple):
+    """Per grid point: link figures and the guards of :func:`build_candidates`."""
+
+    combo_index: NDArray[np.int64]
+    symbol_rate_baud: NDArray[np.float64]
+    throughput_bps: NDArray[np.float64]
+    esn0_db: NDArray[np.float64]
+    margin_db: NDArray[np.float64]
+    sensitivity_db: NDArray[np.float64]
+    leakage_guard_per_baud: NDArray[np.float64]
+    guard_hz: NDArray[np.float64]
+    edge_hz: NDArray[np.float64]
+    usable: NDArray[np.bool_]
+
+
+def _guards(
+    problem: Problem,
+    demand: Demand,
+    combos: _Combos,
+    idx: NDArray[np.int64],
+    rs: NDArray[np.float64],
+    min_limit_db: float,
+) -> _Guards:
+    """Es/N0, margin, sensitivity and guards (leakage limit or own mask, whichever is wider)."""
     esn0 = _esn0_db(demand, rs)
     margin = esn0 - combos.required_esn0_db[idx]
     weakest = max(d.relative_level_db for d in problem.demands) - demand.relative_level_db
     floor = max(problem.leakage_limit_db, min_limit_db)
     sensitivity = _immunity_limit_db(esn0, margin, demand, weakest)
     leak_per_baud = _guard_per_baud(combos, idx, np.full(idx.size, floor))
-    own_mask = _mask_per_baud(combos, idx, sensitivity)
-
-    guard = np.maximum(leak_per_baud, own_mask) * rs
+    guard = np.maximum(leak_per_baud, _mask_per_baud(combos, idx, sensitivity)) * rs
     edge = _guard_per_baud(combos, idx, np.full(idx.size, problem.edge_limit_db)) * rs
     usable = np.isfinite(guard) & np.isfinite(edge)
     throughput = rs * combos.net_bits_per_symbol[idx]
-    per_half_cost = 2.0 + np.where(usable, guard, 0.0) / raster / span.hi_half
-    ratio = throughput / span.hi_half / per_half_cost
-    low_throughput = throughput * span.lo_half / span.hi_half
-    kept = [i for i in _family_front(ratio, low_throughput, throughput) if usable[i]]
-    families = []
-    for i in sorted(kept, key=lambda i: (throughput[i], -ratio[i])):
-        c = int(idx[i])
-        config = CarrierConfig(
-            demand_id=demand.id,
-            modulation=combos.modulation[c],
-            code_rate=combos.code_rate[c],
-            rolloff=float(combos.rolloff[c]),
-            symbol_rate_baud=float(rs[i]),
-            bits_per_symbol=int(combos.bits_per_symbol[c]),
-            allocated_bandwidth_hz=float(rs[i] * (1 + combos.rolloff[c])),
-            occupied_bandwidth_hz=float(rs[i] * combos.occupied_per_baud[c]),
-            guard_hz=float(guard[i]),
-            edge_guard_hz=float(edge[i]),
-            throughput_bps=float(throughput[i]),
-            esn0_db=float(esn0[i]),
-            required_esn0_db=float(combos.required_esn0_db[c]),
-        )
-        hi = int(span.hi_half[i])
-        top = Candidate(
-            config,
-            2 * hi,
-            math.ceil(guard[i] / raster - 1e-9),
-            math.ceil(edge[i] / raster - 1e-9),
-        )
-        families.append(
-            Family(
-                top,
-                int(span.lo_half[i]),
-                hi,
-                demand.cn0_dbhz is not None,
-                raster,
-                sensitivity_db=float(sensitivity[i]),
-                leakage_guard_per_baud=float(leak_per_baud[i]),
-                key=combos.keys[c],
-            )
-        )
-    return DemandOptions(demand, tuple(families), "")
+    return _Guards(
+        idx, rs, throughput, esn0, margin, sensitivity, leak_per_baud, guard, edge, usable
+    )
+
+
+def _family(
+    problem: Problem,
+    demand: Demand,
+    combos: _Combos,
+    g: _Guards,
+    i: int,
+    hi_half: int,
+    lo_half: int | None,
+) -> Family:
+    """The family of grid point ``i``, topped at ``hi_half`` (a single point if no ``lo_half``)."""
+    c = int(g.combo_index[i])
+    rs = float(g.symbol_rate_baud[i])
+    raster = problem.block.raster_hz
+    config = CarrierConfig(
+        demand_id=demand.id,
+        modulation=combos.modulation[c],
+        code_rate=combos.code_rate[c],
+        rolloff=float(combos.rolloff[c]),
+        symbol_rate_baud=rs,
+        bits_per_symbol=int(combos.bits_per_symbol[c]),
+        allocated_bandwidth_hz=rs * (1 + float(combos.rolloff[c])),
+        occupied_bandwidth_hz=rs * float(combos.occupied_per_baud[c]),
+        guard_hz=float(g.guard_hz[i]),
+        edge_guard_hz=float(g.edge_hz[i]),
+        throughput_bps=float(g.throughput_bps[i]),
+        esn0_db=float(g.esn0_db[i]),
+        required_esn0_db=float(combos.required_esn0_db[c]),
+    )
+    top = Candidate(
+        config,
+        2 * hi_half,
+        math.ceil(config.guard_hz / raster - 1e-9),
+        math.ceil(config.edge_guard_hz / raster - 1e-9),
+    )
+    return Family(
+        top,
+        hi_half if lo_half is None else lo_half,
+        hi_half,
+        demand.cn0_dbhz is not None,
+        raster,
+        sensitivity_db=float(g.sensitivity_db[i]),
+        leakage_guard_per_baud=float(g.leakage_guard_per_baud[i]),
+        key=combos.keys[c],
+    )
 
 
 class _Span(NamedTuple):
