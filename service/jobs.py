@@ -75,6 +75,7 @@ __all__ = [
     "SolveGate",
     "amplifier_from_wire",
     "coding_from_wire",
+    "finite_or_none",
     "get_runtime",
     "new_id",
     "plan_from_wire",
@@ -111,7 +112,7 @@ def new_id() -> str:
 # ----------------------------------------------------------------------------- conversions
 
 
-def _finite(value: float) -> float | None:
+def finite_or_none(value: float) -> float | None:
     return value if math.isfinite(value) else None
 
 
@@ -142,12 +143,12 @@ def carrier_to_wire(carrier: Carrier) -> CarrierOut:
         esn0_db=cfg.esn0_db,
         required_esn0_db=cfg.required_esn0_db,
         margin_db=cfg.margin_db,
-        margin_after_interference_db=_finite(carrier.margin_after_interference_db),
+        margin_after_interference_db=finite_or_none(carrier.margin_after_interference_db),
         leakage_ratio_db=LeakageOut(
-            below=_finite(carrier.leakage_ratio_below_db),
-            above=_finite(carrier.leakage_ratio_above_db),
+            below=finite_or_none(carrier.leakage_ratio_below_db),
+            above=finite_or_none(carrier.leakage_ratio_above_db),
         ),
-        c_over_i_db=_finite(carrier.c_over_i_db),
+        c_over_i_db=finite_or_none(carrier.c_over_i_db),
         retuned=carrier.retuned,
     )
 
@@ -197,9 +198,9 @@ def plan_to_wire(
         spectral_efficiency_bps_per_hz=s.spectral_efficiency_bps_per_hz,
         shannon_bound_bps=s.shannon_bound_bps,
         efficiency_vs_bound=s.efficiency_vs_bound,
-        objective_value=_finite(st.objective_value),
-        best_bound=_finite(st.best_bound),
-        optimality_gap=_finite(st.optimality_gap),
+        objective_value=finite_or_none(st.objective_value),
+        best_bound=finite_or_none(st.best_bound),
+        optimality_gap=finite_or_none(st.optimality_gap),
         solve_time_s=st.solve_time_s,
         retune_count=s.retune_count,
     )
@@ -463,9 +464,9 @@ class SolveGate:
 def _progress_out(event: ProgressEvent) -> JobProgress:
     return JobProgress(
         elapsed_s=event.elapsed_s,
-        objective_value=_finite(event.objective_value),
-        best_bound=_finite(event.best_bound),
-        optimality_gap=_finite(event.optimality_gap),
+        objective_value=finite_or_none(event.objective_value),
+        best_bound=finite_or_none(event.best_bound),
+        optimality_gap=finite_or_none(event.optimality_gap),
     )
 
 

@@ -120,15 +120,10 @@ class _Label:
 
 def emission_profile_source(carrier: Carrier, problem: Problem) -> DensityFn:
     """Normalised PSD of ``carrier`` from the solver's cached emission profiles."""
-    transmitter = problem.transmitter
-    key = EmissionKey(
-        rolloff=carrier.config.rolloff,
-        span_symbols=transmitter.filter_span_symbols,
-        window=transmitter.window,
-        amplifier=transmitter.amplifier,
-        modulation=carrier.config.modulation,
-    )
-    return get_profile(key).psd_at
+    cfg = carrier.config
+    return get_profile(
+        EmissionKey.for_carrier(problem.transmitter, cfg.modulation, cfg.rolloff)
+    ).psd_at
 
 
 def carrier_psd_db(

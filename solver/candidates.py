@@ -87,17 +87,7 @@ class _Combos:
 
 def emission_key(problem: Problem, modulation: Modulation, rolloff: float) -> emission.EmissionKey:
     """The spectrum-profile key of a carrier of this problem."""
-    return _key(problem.transmitter, modulation, rolloff)
-
-
-def _key(tx: Transmitter, modulation: Modulation, rolloff: float) -> emission.EmissionKey:
-    return emission.EmissionKey(
-        rolloff=rolloff,
-        span_symbols=tx.filter_span_symbols,
-        window=tx.window,
-        amplifier=tx.amplifier,
-        modulation=modulation,
-    )
+    return emission.EmissionKey.for_carrier(problem.transmitter, modulation, rolloff)
 
 
 def _undominated(
@@ -134,7 +124,7 @@ def _combos(coding: Coding, tx: Transmitter, modulations: tuple[Modulation, ...]
         rate = 1.0 if entry.code_rate is None else float(entry.code_rate)
         net = entry.bits_per_symbol * rate * (1.0 - coding.framing_overhead)
         for rolloff in tx.rolloffs:
-            key = _key(tx, entry.modulation, rolloff)
+            key = emission.EmissionKey.for_carrier(tx, entry.modulation, rolloff)
             occupied = emission.get_profile(key).occupied_bandwidth()
             rows.append((entry, net, rolloff, key, occupied))
     return _Combos(

@@ -31,7 +31,7 @@ from solver.amplifier import (
     saleh,
     solve_drive,
 )
-from solver.model import Amplifier, AmplifierModel, Modulation, ProblemError, Window
+from solver.model import Amplifier, AmplifierModel, Modulation, ProblemError, Transmitter, Window
 from solver.pulses import rrc_taps
 
 __all__ = [
@@ -99,6 +99,20 @@ class EmissionKey:
     window: Window = Window.NONE
     amplifier: Amplifier | None = None
     modulation: Modulation | None = None
+
+    @classmethod
+    def for_carrier(
+        cls, tx: Transmitter, modulation: Modulation, rolloff: float, *, linear: bool = False
+    ) -> EmissionKey:
+        """The key of a carrier sent by ``tx``; ``linear`` drops the amplifier (the shape of
+        the carrier's own matched receive filter)."""
+        return cls(
+            rolloff=rolloff,
+            span_symbols=tx.filter_span_symbols,
+            window=tx.window,
+            amplifier=None if linear else tx.amplifier,
+            modulation=modulation,
+        )
 
     def __post_init__(self) -> None:
         if not (isinstance(self.rolloff, int | float) and 0.0 <= self.rolloff <= 1.0):

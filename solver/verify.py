@@ -77,14 +77,9 @@ class Verification:
 
 
 def _key(problem: Problem, carrier: Carrier, *, linear: bool = False) -> emission.EmissionKey:
-    tx = problem.transmitter
     cfg = carrier.config
-    return emission.EmissionKey(
-        rolloff=cfg.rolloff,
-        span_symbols=tx.filter_span_symbols,
-        window=tx.window,
-        amplifier=None if linear else tx.amplifier,
-        modulation=None if linear else cfg.modulation,
+    return emission.EmissionKey.for_carrier(
+        problem.transmitter, cfg.modulation, cfg.rolloff, linear=linear
     )
 
 

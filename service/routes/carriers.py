@@ -2,12 +2,10 @@
 
 from __future__ import annotations
 
-import math
-
 from fastapi import APIRouter
 from starlette.concurrency import run_in_threadpool
 
-from service.jobs import amplifier_from_wire, coding_from_wire
+from service.jobs import amplifier_from_wire, coding_from_wire, finite_or_none
 from service.routes.plans import PROBLEM_RESPONSES
 from service.schemas import EvaluateRequest, EvaluateResponse, LeakageAtGap
 from solver.evaluate import evaluate_carrier
@@ -16,10 +14,6 @@ from solver.model import parse_code_rate
 __all__ = ["router"]
 
 router = APIRouter(prefix="/v1/carriers", tags=["carriers"])
-
-
-def _finite(value: float) -> float | None:
-    return value if math.isfinite(value) else None
 
 
 @router.post(
@@ -72,10 +66,10 @@ def _evaluate(body: EvaluateRequest) -> EvaluateResponse:
         occupied_bandwidth_hz=result.occupied_bandwidth_hz,
         allocated_bandwidth_hz=result.allocated_bandwidth_hz,
         leakage_ratio_db=[
-            LeakageAtGap(gap_hz=item.gap_hz, ratio_db=_finite(item.ratio_db))
+            LeakageAtGap(gap_hz=item.gap_hz, ratio_db=finite_or_none(item.ratio_db))
             for item in result.leakage_ratio_db
         ],
-        guard_needed_hz=_finite(result.guard_needed_hz),
+        guard_needed_hz=finite_or_none(result.guard_needed_hz),
         esn0_db=result.esn0_db,
         required_esn0_db=result.required_esn0_db,
         margin_db=result.margin_db,
