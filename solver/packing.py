@@ -23,15 +23,19 @@ import logging
 import math
 import threading
 import time
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from enum import StrEnum
+from typing import TYPE_CHECKING
 
 import ortools
 from ortools.sat.python import cp_model
 
 from solver.candidates import Candidate, DemandOptions, Family
 from solver.model import Demand, Objective, ProgressEvent, SolveStatus
+
+if TYPE_CHECKING:
+    from solver.levelsearch import LevelSearch
 
 __all__ = [
     "GAP_TOLERANCE",
@@ -43,8 +47,10 @@ __all__ = [
     "PackingResult",
     "Segment",
     "admission_weights",
+    "fit_segment",
     "item_coefficients",
     "place_segment",
+    "segment_room",
     "solve_packing",
 ]
 
@@ -62,6 +68,9 @@ STAGE_ONE_SHARE = 0.3
 
 LARGE_MODEL_ITEMS = 1500
 """Variables above which presolve probing is switched off."""
+
+SEARCH_SHARE = 0.4
+"""Share of the (remaining) time limit the protection-level search may use."""
 
 LP_BOUND_SHARE = 0.15
 """Share of the time limit kept for the LP-relaxation bound when CP-SAT has not proved optimal."""
@@ -344,11 +353,11 @@ def _capacity_row(
         h, x = v.half[key], v.x[key]
         body_terms += [(h, c.body_h), (x, c.body_x)]
         needs.setdefault((key[0], key[1]), []).append((x, c.delta_x, c.right_x))
-    # One row per (demand, family): at most one of its level items is chosen.
+    # One row per (demand, family): at most one of its level items is chosen, so the sum
+    # is that item's own need.
     for group in needs.values():
-        chosen = [x for x, _, _ in group]
-        model.add(delta_max >= max(d for _, d, _ in group) * sum(chosen))
-        model.add(right_max >= max(r for _, _, r in group) * sum(chosen))
+        model.add(delta_max >= sum(d * x for x, d, _ in group))
+        model.add(right_max >= sum(r * x for x, _, r in group))
     return _lin(body_terms) + delta_max + right_max
 
 
@@ -555,49 +564,96 @@ def solve_packing(
     PackingResult
         Status, chosen candidates per segment, objective, bound, gap and solve time.
     """
+    started = time.perf_counter()
+    deadline = started + max(0.05, data.time_limit_s)
     model = cp_model.CpModel()
     v = _make_choice_vars(model, data)
     _at_most_one_carrier_per_demand(model, v)
     _segment_levels(model, data, v)
     used = _segment_capacity(model, data, v)
     terms = _objective_terms(model, data, v, used)
-    started = time.perf_counter()
-    deadline = started + max(0.05, data.time_limit_s)
+    linear = terms[1].coefficients if len(terms) == 2 else None
+    everyone = terms[0].upper
 
-    # Stage 1: admission alone (serve demands in priority order).
-    model.maximize(terms[0].expr)
-    _add_hints(model, data, v)
-    budget = max(0.05, data.time_limit_s * STAGE_ONE_SHARE)
-    first, first_status = _run(model, data, budget, 0.5, None, cancel)
-    if first_status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
-        return _no_solution(time.perf_counter() - started)
-    admitted = round(first.objective_value)
+    # Stage 1: admission (serve demands in priority order).  A rounded plan from the level
+    # search that serves everyone settles it without a solve.
+    search = _search(data, v, linear, everyone, started + data.time_limit_s * SEARCH_SHARE)
+    if search is not None and search.choice is not None:
+        admitted, start, proven = everyone, search.choice, True
+    else:
+        model.maximize(terms[0].expr)
+        _add_hints(model, data, v)
+        budget = max(0.05, data.time_limit_s * STAGE_ONE_SHARE)
+        first, first_status = _run(model, data, budget, 0.5, None, cancel)
+        if first_status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
+            return _no_solution(time.perf_counter() - started)
+        proven = first_status == cp_model.OPTIMAL
+        admitted = round(first.objective_value)
+        start = _grown(data, v, first)
+        if linear is not None and admitted != everyone:
+            share = (deadline - time.perf_counter()) * SEARCH_SHARE
+            search = _search(data, v, linear, admitted, time.perf_counter() + share)
+            if search is not None and search.choice is not None:
+                start = max(start, search.choice, key=lambda c: _value(c, linear))
 
     # Stage 2: keep that admission, optimise the rest (the CP-SAT notes' two-stage order,
     # rather than one objective with weights large enough to drown the LP bound).
+    bound = search.bound if search is not None else math.inf
+    if proven and linear is not None and _gap(_value(start, linear), bound) <= GAP_TOLERANCE:
+        settled = _from_choice(start, time.perf_counter() - started, linear)
+        return _bounded(settled, bound, proven=True)
     model.add(terms[0].expr >= admitted)
-    grown = _grown(data, v, first)
-    _hint_solution(model, data, v, grown)
+    _hint_solution(model, data, v, start)
     model.clear_objective()  # type: ignore[no-untyped-call]
     _lexicographic(model, terms[1:])
-    linear = terms[1].coefficients if len(terms) == 2 else None
-    reserve = data.time_limit_s * LP_BOUND_SHARE if linear is not None else 0.0
+    reserve = data.time_limit_s * LP_BOUND_SHARE if linear is not None and bound == math.inf else 0
     remaining = max(0.05, deadline - reserve - time.perf_counter())
     second, second_status = _run(
         model, data, remaining, GAP_TOLERANCE * terms[-1].upper, progress, cancel
     )
-    if second_status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
-        # Stage 2 found nothing in its time: the grown stage-1 solution is feasible by
-        # construction, so it is the answer (its quality is unproven).
-        fallback = _from_choice(grown, time.perf_counter() - started, linear)
-        if linear is None:
-            return fallback
-        return _tighten(fallback, data, list(v.x), linear, admitted, reserve, started)
-    proven = first_status == cp_model.OPTIMAL and second_status == cp_model.OPTIMAL
-    result = _extract(second, second_status, v, time.perf_counter() - started, proven=proven)
-    if proven or linear is None:
+    elapsed = time.perf_counter() - started
+    if second_status in (cp_model.OPTIMAL, cp_model.FEASIBLE):
+        done = proven and second_status == cp_model.OPTIMAL
+        result = _extract(second, second_status, v, elapsed, proven=done)
+        if linear is not None and _value(start, linear) > result.objective_value:
+            result = replace(_from_choice(start, elapsed, linear), best_bound=result.best_bound)
+    else:
+        # Stage 2 found nothing in its time: the start is feasible by construction, so it is
+        # the answer, with whatever bound is known.
+        result = _from_choice(start, elapsed, linear)
+    if result.status is SolveStatus.OPTIMAL or linear is None:
         return result
-    return _tighten(result, data, list(v.x), linear, admitted, reserve, started)
+    if bound < math.inf:
+        return _bounded(result, bound, proven=proven)
+    return _tighten(result, data, list(v.x), linear, admitted, reserve, started, proven=proven)
+
+
+def _value(choice: Mapping[Key, int], linear: Mapping[Key, int]) -> float:
+    return float(sum(linear.get(k, 0) * h for k, h in choice.items()))
+
+
+def _search(
+    data: PackingInput,
+    v: _Vars,
+    linear: dict[Key, int] | None,
+    admitted: int,
+    deadline: float,
+) -> LevelSearch | None:
+    """The level search (bound and rounded plan) for the throughput objective."""
+    if linear is None:
+        return None
+    from solver.levelsearch import search_levels  # imports this module
+
+    return search_levels(data, list(v.x), linear, admitted, deadline)
+
+
+def _bounded(result: PackingResult, bound: float, *, proven: bool) -> PackingResult:
+    """``result`` with the tighter of its bound and ``bound``; optimal once the gap closes
+    (when the admission before it was ``proven`` optimal)."""
+    best = min(result.best_bound, math.floor(bound + 1e-6))
+    gap = _gap(result.objective_value, best)
+    status = SolveStatus.OPTIMAL if proven and gap <= GAP_TOLERANCE else result.status
+    return replace(result, best_bound=best, optimality_gap=gap, status=status)
 
 
 def _tighten(
@@ -608,20 +664,15 @@ def _tighten(
     admitted: int,
     budget_s: float,
     started: float,
+    *,
+    proven: bool,
 ) -> PackingResult:
     """Report the tighter of CP-SAT's bound and the LP relaxation's."""
     from solver.relaxation import throughput_lp_bound  # imports this module
 
     lp = throughput_lp_bound(data, keys, linear, admitted, max(1.0, budget_s))
-    bound = (
-        min(result.best_bound, math.floor(lp + 1e-6)) if math.isfinite(lp) else result.best_bound
-    )
-    gap = _gap(result.objective_value, bound)
-    elapsed = time.perf_counter() - started
-    status = SolveStatus.OPTIMAL if gap <= GAP_TOLERANCE else result.status
-    return replace(
-        result, best_bound=bound, optimality_gap=gap, solve_time_s=elapsed, status=status
-    )
+    tightened = _bounded(result, lp, proven=proven) if math.isfinite(lp) else result
+    return replace(tightened, solve_time_s=time.perf_counter() - started)
 
 
 def _run(
@@ -676,10 +727,7 @@ def _fill_segment(
         return item_coefficients(seg, fam(key), data.level(key[3]))
 
     def room(choice: dict[Key, int]) -> int:
-        cs = {k: coef(k) for k in choice}
-        used = sum(c.body_h * choice[k] + c.body_x for k, c in cs.items())
-        used += max(c.delta_x for c in cs.values()) + max(c.right_x for c in cs.values())
-        return seg.length * SCALE - used
+        return segment_room(data, seg, choice)
 
     def value(key: Key) -> float:
         return _value_per_unit(data, key, fam(key), coef(key))
@@ -690,14 +738,57 @@ def _fill_segment(
         trial = {k: h for k, h in choice.items() if k != key} | {best: fam(best).lo_half}
         if best != key and room(trial) >= 0:
             choice = trial
-    spare = room(choice)
-    for key in sorted(choice, key=value, reverse=True):
-        step = coef(key).body_h
+    return fit_segment(data, seg, choice)
+
+
+def fit_segment(data: PackingInput, seg: Segment, choice: Mapping[Key, int]) -> dict[Key, int]:
+    """``choice`` made to fit ``seg`` exactly as far as half-widths allow: narrowed, least
+    valuable spectrum first, while overfull; then widened, most valuable first, into the room
+    left.  Items never leave their family's range, so an overfull choice may stay overfull."""
+    fitted = dict(choice)
+    coefs = {
+        key: item_coefficients(seg, data.options[key[0]].candidates[key[1]], data.level(key[3]))
+        for key in fitted
+    }
+
+    def fam(key: Key) -> Family:
+        return data.options[key[0]].candidates[key[1]]
+
+    def value(key: Key) -> float:
+        return _value_per_unit(data, key, fam(key), coefs[key])
+
+    spare = segment_room(data, seg, fitted)
+    for key in sorted(fitted, key=value):
+        step = coefs[key].body_h
+        if spare >= 0:
+            break
         if step > 0:
-            extra = min(fam(key).hi_half - choice[key], spare // step)
-            choice[key] += extra
+            cut = min(fitted[key] - fam(key).lo_half, -(spare // step))
+            fitted[key] -= cut
+            spare += cut * step
+    for key in sorted(fitted, key=value, reverse=True):
+        step = coefs[key].body_h
+        if spare <= 0:
+            break
+        if step > 0:
+            extra = min(fam(key).hi_half - fitted[key], spare // step)
+            fitted[key] += extra
             spare -= extra * step
-    return choice
+    return fitted
+
+
+def segment_room(data: PackingInput, seg: Segment, choice: Mapping[Key, int]) -> int:
+    """Scaled width ``seg`` has left with the items of ``choice`` at their half-widths, by the
+    model's own capacity row (negative when overfull)."""
+    if not choice:
+        return seg.length * SCALE
+    coefs = {
+        key: item_coefficients(seg, data.options[key[0]].candidates[key[1]], data.level(key[3]))
+        for key in choice
+    }
+    used = sum(c.body_h * choice[k] + c.body_x for k, c in coefs.items())
+    used += max(c.delta_x for c in coefs.values()) + max(c.right_x for c in coefs.values())
+    return seg.length * SCALE - used
 
 
 def _value_per_unit(data: PackingInput, key: Key, fam: Family, coef: ItemCoefficients) -> float:

@@ -1,11 +1,12 @@
-"""The linear relaxation of the packing model's throughput stage: a valid upper bound.
+"""The linear relaxation of the packing model's throughput stage: a valid upper bound, and a
+fractional solution to round.
 
-CP-SAT's own bound on large models stays loose within a short time limit (its LP workers share
-two cores with the search).  The relaxation of exactly the same rows — the same items, the same
-scaled coefficients (:func:`solver.packing.item_coefficients`), the same objective
-coefficients and the admission reached in stage 1 — solved by HiGHS through
-:func:`scipy.optimize.milp` with no integrality, bounds the best integer plan from above as
-well; the plan reports the tighter of the two bounds.
+The relaxation has exactly the model's rows — the same items, the same scaled coefficients
+(:func:`solver.packing.item_coefficients`), the same objective coefficients and the admission
+reached in stage 1 — solved by HiGHS through :func:`scipy.optimize.milp` with no integrality.
+It bounds the best integer plan over the same items from above.  Given only the items of one
+protection level per segment it is nearly tight (a multiple-choice knapsack's relaxation has few
+fractional items), which is what :mod:`solver.levelsearch` relies on.
 """
 
 from __future__ import annotations
@@ -13,18 +14,33 @@ from __future__ import annotations
 import logging
 import math
 from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
 
 import numpy as np
 from scipy import optimize, sparse
 
 from solver.packing import SCALE, Key, PackingInput, item_coefficients
 
-__all__ = ["throughput_lp_bound"]
+__all__ = ["Relaxation", "solve_relaxation", "throughput_lp_bound"]
 
 log = logging.getLogger(__name__)
 
-_DENSE_ROW_LIMIT = 2000
-"""Items above which the admission row is left out of the relaxation."""
+
+@dataclass(frozen=True)
+class Relaxation:
+    """The LP optimum and its fractional solution.
+
+    ``value`` is ``-math.inf`` when the rows cannot all hold (no plan with this admission over
+    these items) and ``math.inf`` when HiGHS stopped without an answer (no bound known).
+    """
+
+    value: float
+    x: dict[Key, float] = field(default_factory=dict)
+    h: dict[Key, float] = field(default_factory=dict)
+
+    @property
+    def solved(self) -> bool:
+        return math.isfinite(self.value)
 
 
 class _Rows:
@@ -49,28 +65,41 @@ def throughput_lp_bound(
     admitted: int,
     time_limit_s: float,
 ) -> float:
-    """Upper bound on the stage-2 objective Σ objective[key]·h[key] from the LP relaxation.
+    """Upper bound on the stage-2 objective Σ objective[key]·h[key] (``math.inf`` if unknown)."""
+    value = solve_relaxation(data, keys, objective, admitted, time_limit_s).value
+    return max(value, 0.0)
+
+
+def solve_relaxation(
+    data: PackingInput,
+    keys: Sequence[Key],
+    objective: Mapping[Key, int],
+    admitted: int,
+    time_limit_s: float,
+) -> Relaxation:
+    """The LP relaxation of the throughput stage over the items ``keys``.
 
     Parameters
     ----------
     data : PackingInput
         The packing data the model was built from.
     keys : sequence of Key
-        The model's items (demand, family, segment, level).
+        Items (demand, family, segment, level) the relaxation may use.
     objective : mapping
         Integer objective coefficient of each item's half-width.
     admitted : int
-        Admission value stage 1 reached (Σ admission weight · served ≥ admitted).
+        Admission value stage 1 reached (Σ admission weight · served ≥ admitted); when it is
+        every demand's, each demand with an item here must be served.
     time_limit_s : float
         Time the LP may take.
 
     Returns
     -------
-    float
-        The LP optimum, or ``math.inf`` when the LP could not be solved in time.
+    Relaxation
+        The optimum and the fractional choice and half-widths.
     """
     if not keys:
-        return 0.0
+        return Relaxation(0.0 if admitted <= 0 else -math.inf)
     index = {key: n for n, key in enumerate(keys)}
     n_items = len(keys)
     levels = sorted({(key[2], key[3]) for key in keys})
@@ -87,11 +116,13 @@ def throughput_lp_bound(
         cost[n_items + j] = -objective.get(key, 0)
         rows.add([(n_items + j, 1.0), (j, -float(fam.lo_half))], 0.0, np.inf)
         rows.add([(n_items + j, 1.0), (j, -float(fam.hi_half))], -np.inf, 0.0)
-        rows.add([(j, 1.0), (z_col[key[2], key[3]], -1.0)], -np.inf, 0.0)
+        if len(levels) > len(seg_ids):  # one level per segment needs no level rows
+            rows.add([(j, 1.0), (z_col[key[2], key[3]], -1.0)], -np.inf, 0.0)
     for s in seg_ids:
         upper[delta_col[s]] = upper[delta_col[s] + 1] = np.inf
         rows.add([(z_col[sl], 1.0) for sl in levels if sl[0] == s], 0.0, 1.0)
-    _demand_rows(data, keys, index, rows, admitted)
+    if not _demand_rows(data, keys, index, rows, admitted):
+        return Relaxation(-math.inf)
     _capacity_rows(data, keys, index, n_items, delta_col, rows)
     r, c, v = zip(*rows.entries, strict=True)
     matrix = sparse.csr_array((v, (r, c)), shape=(len(rows.lower), n_cols))
@@ -101,31 +132,37 @@ def throughput_lp_bound(
         bounds=optimize.Bounds(np.zeros(n_cols), upper),
         options={"time_limit": max(0.05, time_limit_s), "presolve": True},
     )
-    if result.status != 0:
+    if result.status == 2:
+        return Relaxation(-math.inf)
+    if result.status != 0 or result.x is None:
         log.info("LP relaxation not solved: %s", result.message)
-        return math.inf
-    return float(-result.fun)
+        return Relaxation(math.inf)
+    xs = {key: float(result.x[j]) for key, j in index.items()}
+    hs = {key: float(result.x[n_items + j]) for key, j in index.items()}
+    return Relaxation(float(-result.fun), xs, hs)
 
 
 def _demand_rows(
     data: PackingInput, keys: Sequence[Key], index: Mapping[Key, int], rows: _Rows, admitted: int
-) -> None:
+) -> bool:
     """At most one item per demand, and the admission stage 1 reached.
 
-    On small models, when stage 1 served every demand that has an item, admission means each of
-    them is served; otherwise the admission row is added.  On large models both are left out
-    (they slow the simplex past its time share); leaving them out only loosens the bound.
+    When stage 1 served every demand that has an item in the model, each demand must be
+    served; a demand with no item among ``keys`` then makes the rows infeasible (returns False).
     """
     by_demand: dict[int, list[int]] = {}
     for key in keys:
         by_demand.setdefault(key[0], []).append(index[key])
-    everyone = sum(data.admission_weights[d] for d in by_demand)
-    small = len(keys) <= _DENSE_ROW_LIMIT
+    present = sum(data.admission_weights[d] for d in by_demand)
+    if present < admitted:
+        return False
+    everyone = present == admitted
     for cols in by_demand.values():
-        rows.add([(j, 1.0) for j in cols], 1.0 if small and admitted >= everyone else 0.0, 1.0)
-    if small and 0 < admitted < everyone:
+        rows.add([(j, 1.0) for j in cols], 1.0 if everyone else 0.0, 1.0)
+    if 0 < admitted < present:
         weights = [(index[key], float(data.admission_weights[key[0]])) for key in keys]
         rows.add(weights, float(admitted), np.inf)
+    return True
 
 
 def _capacity_rows(
@@ -136,6 +173,7 @@ def _capacity_rows(
     delta_col: Mapping[int, int],
     rows: _Rows,
 ) -> None:
+    """The model's capacity row per segment, its maxima bounded by each (demand, family)."""
     for s, delta in delta_col.items():
         seg = data.segments[s]
         body: list[tuple[int, float]] = []
@@ -147,8 +185,6 @@ def _capacity_rows(
             body += [(n_items + j, float(c.body_h)), (j, float(c.body_x))]
             groups.setdefault((key[0], key[1]), []).append((j, c.delta_x, c.right_x))
         for group in groups.values():
-            d_need = max(d for _, d, _ in group)
-            r_need = max(r for _, _, r in group)
-            rows.add([(delta, 1.0)] + [(j, -float(d_need)) for j, _, _ in group], 0.0, np.inf)
-            rows.add([(delta + 1, 1.0)] + [(j, -float(r_need)) for j, _, _ in group], 0.0, np.inf)
+            rows.add([(delta, 1.0)] + [(j, -float(d)) for j, d, _ in group], 0.0, np.inf)
+            rows.add([(delta + 1, 1.0)] + [(j, -float(r)) for j, _, r in group], 0.0, np.inf)
         rows.add([*body, (delta, 1.0), (delta + 1, 1.0)], -np.inf, float(seg.length * SCALE))
