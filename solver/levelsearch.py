@@ -25,7 +25,7 @@ import itertools
 import math
 import time
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 from solver.packing import Key, PackingInput, fit_segment, segment_room
 from solver.relaxation import Relaxation, solve_relaxation
@@ -49,6 +49,22 @@ class LevelSearch:
     choice: dict[Key, int] | None
     value: float
     combinations: int
+    bounds: tuple[tuple[frozenset[tuple[int, int]], float], ...] = ()
+    """Each solved combination's (segment, level) pairs and LP optimum (empty when the
+    combinations were not solved one by one)."""
+
+    def bound_outside(self, levels: set[tuple[int, int]]) -> float:
+        """Largest LP optimum among combinations that put a segment of ``levels`` at another
+        level: a bound on every plan outside the plans at ``levels``."""
+        segments = {s for s, _ in levels}
+        return max(
+            (
+                value
+                for combo, value in self.bounds
+                if any(s in segments and (s, i) not in levels for s, i in combo)
+            ),
+            default=0.0,
+        )
 
 
 def search_levels(
@@ -87,6 +103,7 @@ def search_levels(
     if len(combos) > COMBINATION_LIMIT:
         return _free_levels(data, keys, linear, admitted, deadline)
     solved: list[tuple[Relaxation, list[Key]]] = []
+    bounds: list[tuple[frozenset[tuple[int, int]], float]] = []
     bound = -math.inf
     for combo in combos:
         level_of = dict(zip(segments, combo, strict=True))
@@ -100,7 +117,9 @@ def search_levels(
         bound = max(bound, relax.value)
         if relax.solved:
             solved.append((relax, subset))
-    return _best(data, solved, linear, admitted, max(bound, 0.0))
+            bounds.append((frozenset(level_of.items()), relax.value))
+    found = _best(data, solved, linear, admitted, max(bound, 0.0))
+    return replace(found, bounds=tuple(bounds))
 
 
 def _best(

@@ -603,6 +603,7 @@ def solve_packing(
         settled = _from_choice(start, time.perf_counter() - started, linear)
         return _bounded(settled, bound, proven=True)
     model.add(terms[0].expr >= admitted)
+    outside = _keep_levels(model, v, search, start)
     _hint_solution(model, data, v, start)
     model.clear_objective()  # type: ignore[no-untyped-call]
     _lexicographic(model, terms[1:])
@@ -613,8 +614,11 @@ def solve_packing(
     )
     elapsed = time.perf_counter() - started
     if second_status in (cp_model.OPTIMAL, cp_model.FEASIBLE):
-        done = proven and second_status == cp_model.OPTIMAL
+        done = proven and second_status == cp_model.OPTIMAL and outside is None
         result = _extract(second, second_status, v, elapsed, proven=done)
+        if outside is not None:  # CP-SAT's bound covers the kept levels only
+            bound = max(outside, min(result.best_bound, bound))
+            result = replace(result, best_bound=math.inf)
         if linear is not None and _value(start, linear) > result.objective_value:
             result = replace(_from_choice(start, elapsed, linear), best_bound=result.best_bound)
     else:
@@ -626,6 +630,22 @@ def solve_packing(
     if bound < math.inf:
         return _bounded(result, bound, proven=proven)
     return _tighten(result, data, list(v.x), linear, admitted, reserve, started, proven=proven)
+
+
+def _keep_levels(
+    model: cp_model.CpModel, v: _Vars, search: LevelSearch | None, start: Mapping[Key, int]
+) -> float | None:
+    """Keep the start's segments at its protection levels in stage 2, when the level search
+    solved every combination: the model shrinks to one level per segment, and the search's
+    LP optima bound everything left out.  Returns that bound (None when nothing is kept)."""
+    if search is None or not search.bounds or not start:
+        return None
+    levels = {(key[2], key[3]) for key in start}
+    segments = {s for s, _ in levels}
+    for key, var in v.x.items():
+        if key[2] in segments and (key[2], key[3]) not in levels:
+            model.add(var == 0)
+    return search.bound_outside(levels)
 
 
 def _value(choice: Mapping[Key, int], linear: Mapping[Key, int]) -> float:
