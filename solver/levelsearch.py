@@ -27,7 +27,7 @@ import time
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, replace
 
-from solver.packing import Key, PackingInput, fit_segment, segment_room
+from solver.packing import Key, PackingInput, Segment, fit_segment, segment_room
 from solver.relaxation import Relaxation, solve_relaxation
 
 __all__ = ["COMBINATION_LIMIT", "LevelSearch", "round_relaxation", "search_levels"]
@@ -173,29 +173,70 @@ def round_relaxation(
 
     Each demand the LP serves (all of them when admission demands it, else those with at
     least half a share) takes its item with the largest share, at the half-width the LP gave
-    that item; every segment is then fitted to its capacity row.
+    that item; every segment is then fitted to its capacity row, leaving out the demands with
+    the smallest shares while it is overfull and admission allows.
     """
     by_demand: dict[int, list[Key]] = {}
     for key in relax.x:
         by_demand.setdefault(key[0], []).append(key)
-    present = sum(data.admission_weights[d] for d in by_demand)
+    weights = data.admission_weights
+    present = sum(weights[d] for d in by_demand)
     choice: dict[Key, int] = {}
+    share: dict[Key, float] = {}
     for options in by_demand.values():
-        share = sum(relax.x[k] for k in options)
-        if present > admitted and share < 0.5:
+        total = sum(relax.x[k] for k in options)
+        if present > admitted and total < 0.5:
             continue
         key = max(options, key=lambda k: (relax.x[k], linear.get(k, 0), k))
         fam = data.options[key[0]].candidates[key[1]]
         x = relax.x[key]
         half = math.floor(relax.h[key] / x + 1e-6) if x > 1e-9 else fam.lo_half
         choice[key] = min(max(half, fam.lo_half), fam.hi_half)
-    if sum(data.admission_weights[key[0]] for key in choice) < admitted:
+        share[key] = total
+    spare = sum(weights[key[0]] for key in choice) - admitted
+    if spare < 0:
         return None
     fitted: dict[Key, int] = {}
     for s in sorted({key[2] for key in choice}):
         seg = data.segments[s]
-        part = fit_segment(data, seg, {k: h for k, h in choice.items() if k[2] == s})
-        if segment_room(data, seg, part) < 0:
-            return None
-        fitted.update(part)
+        part = {k: h for k, h in choice.items() if k[2] == s}
+        while segment_room(data, seg, fit := fit_segment(data, seg, part)) < 0:
+            if _narrow_one(data, seg, part, by_demand, relax, share):
+                continue
+            optional = [k for k in part if weights[k[0]] <= spare]
+            if not optional:
+                return None
+            drop = min(optional, key=lambda k: (share[k], linear.get(k, 0), k))
+            spare -= weights[drop[0]]
+            del part[drop]
+        fitted.update(fit)
     return fitted
+
+
+def _narrow_one(
+    data: PackingInput,
+    seg: Segment,
+    part: dict[Key, int],
+    by_demand: Mapping[int, list[Key]],
+    relax: Relaxation,
+    share: dict[Key, float],
+) -> bool:
+    """Move the least-settled demand of an overfull segment to the narrowest other item the LP
+    gave it a share of in this segment, if that needs less room.  Returns whether it moved."""
+    for key in sorted(part, key=lambda k: (relax.x[k], k)):
+        others = [k for k in by_demand[key[0]] if k != key and k[2] == key[2] and relax.x[k] > 1e-9]
+        if not others:
+            continue
+        lowest = {k: data.options[k[0]].candidates[k[1]].lo_half for k in others}
+        rest = {k: h for k, h in part.items() if k != key}
+        best = max(others, key=lambda k: (segment_room(data, seg, rest | {k: lowest[k]}), k))
+        now = {
+            k: data.options[k[0]].candidates[k[1]].lo_half if k == key else h
+            for k, h in part.items()
+        }
+        if segment_room(data, seg, rest | {best: lowest[best]}) > segment_room(data, seg, now):
+            del part[key]
+            part[best] = lowest[best]
+            share[best] = share.pop(key)
+            return True
+    return False

@@ -576,10 +576,13 @@ def solve_packing(
     everyone = terms[0].upper
 
     # Stage 1: admission (serve demands in priority order).  A rounded plan from the level
-    # search that serves everyone settles it without a solve.
-    search = _search(data, v, linear, everyone, started + data.time_limit_s * SEARCH_SHARE)
+    # search that serves everyone settles it without a solve, whatever the objective.
+    rates = linear or _throughput_term(data, v, _INT_HEADROOM // (everyone + 1)).coefficients
+    search = _search(data, v, rates, everyone, started + data.time_limit_s * SEARCH_SHARE)
     if search is not None and search.choice is not None:
         admitted, start, proven = everyone, search.choice, True
+        if linear is None:  # other objectives start from the narrowest members
+            start = {key: data.options[key[0]].candidates[key[1]].lo_half for key in start}
     else:
         model.maximize(terms[0].expr)
         _add_hints(model, data, v)
@@ -598,12 +601,12 @@ def solve_packing(
 
     # Stage 2: keep that admission, optimise the rest (the CP-SAT notes' two-stage order,
     # rather than one objective with weights large enough to drown the LP bound).
-    bound = search.bound if search is not None else math.inf
+    bound = search.bound if search is not None and linear is not None else math.inf
     if proven and linear is not None and _gap(_value(start, linear), bound) <= GAP_TOLERANCE:
         settled = _from_choice(start, time.perf_counter() - started, linear)
         return _bounded(settled, bound, proven=True)
     model.add(terms[0].expr >= admitted)
-    outside = _keep_levels(model, v, search, start)
+    outside = _keep_levels(model, v, search, start, linear)
     _hint_solution(model, data, v, start)
     model.clear_objective()  # type: ignore[no-untyped-call]
     _lexicographic(model, terms[1:])
@@ -633,19 +636,27 @@ def solve_packing(
 
 
 def _keep_levels(
-    model: cp_model.CpModel, v: _Vars, search: LevelSearch | None, start: Mapping[Key, int]
+    model: cp_model.CpModel,
+    v: _Vars,
+    search: LevelSearch | None,
+    start: Mapping[Key, int],
+    linear: Mapping[Key, int] | None,
 ) -> float | None:
-    """Keep the start's segments at its protection levels in stage 2, when the level search
-    solved every combination: the model shrinks to one level per segment, and the search's
-    LP optima bound everything left out.  Returns that bound (None when nothing is kept)."""
-    if search is None or not search.bounds or not start:
+    """Keep the start's segments at its protection levels in stage 2 when no other level
+    combination can beat the start (its LP optimum is no higher): the model shrinks to one
+    level per segment and loses nothing.  Returns the bound on what is left out (None when
+    nothing is kept)."""
+    if search is None or linear is None or not search.bounds or not start:
         return None
     levels = {(key[2], key[3]) for key in start}
+    outside = search.bound_outside(levels)
+    if outside > _value(start, linear):
+        return None
     segments = {s for s, _ in levels}
     for key, var in v.x.items():
         if key[2] in segments and (key[2], key[3]) not in levels:
             model.add(var == 0)
-    return search.bound_outside(levels)
+    return outside
 
 
 def _value(choice: Mapping[Key, int], linear: Mapping[Key, int]) -> float:
@@ -659,7 +670,7 @@ def _search(
     admitted: int,
     deadline: float,
 ) -> LevelSearch | None:
-    """The level search (bound and rounded plan) for the throughput objective."""
+    """The level search (bound and rounded plan) over linear throughput coefficients."""
     if linear is None:
         return None
     from solver.levelsearch import search_levels  # imports this module
