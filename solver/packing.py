@@ -602,6 +602,10 @@ def solve_packing(
     # Stage 2: keep that admission, optimise the rest (the CP-SAT notes' two-stage order,
     # rather than one objective with weights large enough to drown the LP bound).
     bound = search.bound if search is not None and linear is not None else math.inf
+    if progress is not None and linear is not None and proven:
+        value = _value(start, linear)
+        elapsed = time.perf_counter() - started
+        progress(ProgressEvent(elapsed, value, bound, _gap(value, bound)))
     if proven and linear is not None and _gap(_value(start, linear), bound) <= GAP_TOLERANCE:
         settled = _from_choice(start, time.perf_counter() - started, linear)
         return _bounded(settled, bound, proven=True)
