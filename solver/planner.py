@@ -65,12 +65,8 @@ __all__ = [
 
 log = logging.getLogger(__name__)
 
-LEVEL_STEP_DB = 6.0
-"""Protection levels a segment may take are multiples of this (a family's sensitivity is
-rounded up to the next one)."""
-
 MAX_LEVELS = 4
-"""At most this many protection levels; the step doubles until they fit."""
+"""At most this many protection levels a segment may take."""
 
 MAX_REPAIR_ROUNDS = 6
 """Re-solves allowed after a failed verification before blamed carriers are left out."""
@@ -183,18 +179,21 @@ def _pinned_fits(
 
 
 def protection_levels(options: Sequence[DemandOptions]) -> tuple[float, ...]:
-    """The levels a segment may take: each family's sensitivity rounded up to the grid.
+    """The levels a segment may take, chosen from the families' own sensitivities.
 
-    A level that gives every family the same guard as the next level up is dropped (its
-    families may sit at the higher level at no cost), which keeps the model small.
+    A family sits at the lowest level at or above its sensitivity, so every dB a level lies
+    above a family's sensitivity widens that family's guard for nothing.  With more distinct
+    sensitivities than :data:`MAX_LEVELS`, the levels split the sorted sensitivities into
+    groups, each at its group's highest value, so that the total excess (dB summed over the
+    families) is least — an exact dynamic programme over the sorted values.  A level that
+    gives every family the same guard as the next level up is then dropped (its families may
+    sit at the higher level at no cost), which keeps the model small.
     """
     families = [f for o in options for f in o.candidates if f.key is not None]
-    step = LEVEL_STEP_DB
-    while True:
-        levels = sorted({math.ceil(f.sensitivity_db / step - 1e-9) * step for f in families})
-        if len(levels) <= MAX_LEVELS:
-            break
-        step *= 2
+    counts: dict[float, int] = {}
+    for f in families:
+        counts[f.sensitivity_db] = counts.get(f.sensitivity_db, 0) + 1
+    levels = _grouped_levels(sorted(counts.items()), MAX_LEVELS)
     kept: list[float] = []
     for low, high in itertools.pairwise([*levels, math.inf]):
         same = math.isfinite(high) and all(
@@ -205,6 +204,43 @@ def protection_levels(options: Sequence[DemandOptions]) -> tuple[float, ...]:
         if not same:
             kept.append(low)
     return tuple(kept)
+
+
+def _grouped_levels(values: Sequence[tuple[float, int]], groups: int) -> list[float]:
+    """At most ``groups`` levels over sorted (value, count) pairs, each level the top of a run
+    of consecutive values, least total count-weighted excess (dynamic programme).
+
+    >>> _grouped_levels([(10.0, 1), (11.0, 5), (30.0, 1), (31.0, 1)], 2)
+    [11.0, 31.0]
+    """
+    n = len(values)
+    if n <= groups:
+        return [v for v, _ in values]
+
+    count = list(itertools.accumulate((c for _, c in values), initial=0))
+    mass = list(itertools.accumulate((c * v for v, c in values), initial=0.0))
+
+    def excess(i: int, j: int) -> float:  # values[i..j] at level values[j]
+        return values[j][0] * (count[j + 1] - count[i]) - (mass[j + 1] - mass[i])
+
+    # best[k][j]: least excess covering values[0..j] with k levels, the last at values[j].
+    best = [[math.inf] * n for _ in range(groups + 1)]
+    cut = [[0] * n for _ in range(groups + 1)]
+    for j in range(n):
+        best[1][j] = excess(0, j)
+    for k in range(2, groups + 1):
+        for j in range(n):
+            for i in range(1, j + 1):
+                cost = best[k - 1][i - 1] + excess(i, j)
+                if cost < best[k][j]:
+                    best[k][j], cut[k][j] = cost, i
+    k = min(range(1, groups + 1), key=lambda g: (best[g][n - 1], g))
+    levels, j = [], n - 1
+    while k >= 1:
+        levels.append(values[j][0])
+        j = cut[k][j] - 1
+        k -= 1
+    return sorted(levels)
 
 
 # ---------------------------------------------------------------- admission and hints
