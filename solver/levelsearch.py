@@ -27,7 +27,7 @@ import time
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, replace
 
-from solver.packing import Key, PackingInput, Segment, fit_segment, segment_room
+from solver.packing import Key, PackingInput, Segment, choice_value, fit_segment, segment_room
 from solver.relaxation import Relaxation, solve_relaxation
 
 __all__ = ["COMBINATION_LIMIT", "LevelSearch", "round_relaxation", "search_levels"]
@@ -137,7 +137,7 @@ def _best(
             break
         choice = round_relaxation(data, relax, linear, admitted)
         if choice is not None:
-            got = float(sum(linear.get(k, 0) * h for k, h in choice.items()))
+            got = choice_value(choice, linear)
             if got > value:
                 best, value = choice, got
     return LevelSearch(bound, best, value if best is not None else 0.0, len(solved))

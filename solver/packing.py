@@ -47,6 +47,7 @@ __all__ = [
     "PackingResult",
     "Segment",
     "admission_weights",
+    "choice_value",
     "fit_segment",
     "item_coefficients",
     "place_segment",
@@ -597,16 +598,16 @@ def solve_packing(
             share = (deadline - time.perf_counter()) * SEARCH_SHARE
             search = _search(data, v, linear, admitted, time.perf_counter() + share)
             if search is not None and search.choice is not None:
-                start = max(start, search.choice, key=lambda c: _value(c, linear))
+                start = max(start, search.choice, key=lambda c: choice_value(c, linear))
 
     # Stage 2: keep that admission, optimise the rest (the CP-SAT notes' two-stage order,
     # rather than one objective with weights large enough to drown the LP bound).
     bound = search.bound if search is not None and linear is not None else math.inf
     if progress is not None and linear is not None and proven:
-        value = _value(start, linear)
+        value = choice_value(start, linear)
         elapsed = time.perf_counter() - started
         progress(ProgressEvent(elapsed, value, bound, _gap(value, bound)))
-    if proven and linear is not None and _gap(_value(start, linear), bound) <= GAP_TOLERANCE:
+    if proven and linear is not None and _gap(choice_value(start, linear), bound) <= GAP_TOLERANCE:
         settled = _from_choice(start, time.perf_counter() - started, linear)
         return _bounded(settled, bound, proven=True)
     model.add(terms[0].expr >= admitted)
@@ -626,7 +627,7 @@ def solve_packing(
         if outside is not None:  # CP-SAT's bound covers the kept levels only
             bound = max(outside, min(result.best_bound, bound))
             result = replace(result, best_bound=math.inf)
-        if linear is not None and _value(start, linear) > result.objective_value:
+        if linear is not None and choice_value(start, linear) > result.objective_value:
             result = replace(_from_choice(start, elapsed, linear), best_bound=result.best_bound)
     else:
         # Stage 2 found nothing in its time: the start is feasible by construction, so it is
@@ -654,7 +655,7 @@ def _keep_levels(
         return None
     levels = {(key[2], key[3]) for key in start}
     outside = search.bound_outside(levels)
-    if outside > _value(start, linear):
+    if outside > choice_value(start, linear):
         return None
     segments = {s for s, _ in levels}
     for key, var in v.x.items():
@@ -663,7 +664,8 @@ def _keep_levels(
     return outside
 
 
-def _value(choice: Mapping[Key, int], linear: Mapping[Key, int]) -> float:
+def choice_value(choice: Mapping[Key, int], linear: Mapping[Key, int]) -> float:
+    """Objective of a choice (half-width per item) under linear half-width coefficients."""
     return float(sum(linear.get(k, 0) * h for k, h in choice.items()))
 
 
