@@ -31,6 +31,8 @@ from solver.emission import (
     EmissionKey,
     SpectrumProfile,
     build_profile,
+    get_profile,
+    warm_profiles,
 )
 from solver.model import Amplifier, AmplifierModel, Modulation
 from solver.pulses import rrc_taps
@@ -92,6 +94,26 @@ def bench_amplifier(repeats: int, modulation: Modulation) -> Row:
     ours = median_time(lambda: build_profile(key), repeats)
     peer = median_time(lambda: build_profile(linear), repeats)
     return Row(f"cold amplifier profile Rapp p=2 OBO 4 dB {modulation}", ours, "cold linear", peer)
+
+
+def bench_warm(repeats: int) -> Row:
+    """Twelve cold amplifier profiles (QPSK and 16APSK × six roll-offs): warm_profiles' threads
+    against one after another.  Each sample uses a back-off never used before, so nothing is
+    cached."""
+    fresh = iter(4.0 + 1e-6 * np.arange(1, 1000))
+
+    def keys() -> list[EmissionKey]:
+        amplifier = Amplifier(AmplifierModel.RAPP, smoothness=2.0, output_backoff_db=next(fresh))
+        return [
+            EmissionKey(r, SPAN, amplifier=amplifier, modulation=m)
+            for m in (Modulation.QPSK, Modulation.APSK16)
+            for r in (0.05, 0.1, 0.15, 0.2, 0.25, 0.35)
+        ]
+
+    samples = max(1, repeats // 3)
+    ours = median_time(lambda: warm_profiles(keys()), samples)
+    peer = median_time(lambda: [get_profile(k) for k in keys()], samples)
+    return Row("12 cold amplifier profiles, warm_profiles", ours, "one after another", peer)
 
 
 def brute_force_guard(profile: SpectrumProfile, limit_db: float) -> float:
@@ -159,6 +181,7 @@ def main(argv: list[str] | None = None) -> int:
     repeats = max(1, args.repeats)
     rows = [bench_taps(repeats), bench_linear(repeats)]
     rows += [bench_amplifier(repeats, m) for m in (Modulation.QPSK, Modulation.APSK16)]
+    rows.append(bench_warm(repeats))
     rows += bench_guard(repeats)
     rows += bench_catalogue(repeats)
     print_table(rows)

@@ -120,7 +120,11 @@ def _undominated(
 def _combos(coding: Coding, tx: Transmitter, modulations: tuple[Modulation, ...]) -> _Combos:
     """Catalogue × roll-offs, computed once per (coding, transmitter, allowed modulations)."""
     rows = []
-    for entry in _undominated(modcod.catalogue(coding, modulations or None), tx.amplifier is None):
+    entries = _undominated(modcod.catalogue(coding, modulations or None), tx.amplifier is None)
+    emission.warm_profiles(
+        emission.EmissionKey.for_carrier(tx, e.modulation, r) for e in entries for r in tx.rolloffs
+    )
+    for entry in entries:
         rate = 1.0 if entry.code_rate is None else float(entry.code_rate)
         net = entry.bits_per_symbol * rate * (1.0 - coding.framing_overhead)
         for rolloff in tx.rolloffs:

