@@ -233,3 +233,30 @@ def test_rounding_leaves_out_only_what_admission_allows() -> None:
     plan = round_relaxation(data, relax, linear, 1)
     assert plan is not None
     assert len(plan) == 1
+
+
+def test_too_many_combinations_fall_back_to_the_free_levels(monkeypatch) -> None:
+    """Above the combination limit the bound is the free-level relaxation (86.7 on the instance
+    of the hand-worked test, still ≥ the optimum 80) and the plan is rounded at each segment's
+    level with the largest share; the packing still reaches the optimum."""
+    import solver.levelsearch as levelsearch
+
+    monkeypatch.setattr(levelsearch, "COMBINATION_LIMIT", 1)
+    data = _input(
+        [
+            [_family("d0", 40, (0, 20), 10.0, 40.0)],
+            [_family("d1", 40, (0, 20), 10.0, 40.0)],
+            [_family("d2", 20, (0, 0), 20.0, 20.0)],
+        ],
+        [100],
+    )
+    keys, linear = _linear(data)
+    per_bps = linear[0, 0, 0, 0] * 20 / 40.0
+    search = search_levels(data, keys, linear, 2, math.inf)
+    assert search.bounds == ()
+    assert search.bound >= 86.6 * per_bps
+    if search.choice is not None:
+        assert segment_room(data, data.segments[0], search.choice) >= 0
+        assert search.value <= 80 * per_bps + 1e-6
+    result = solve_packing(data)
+    assert result.objective_value == 80 * per_bps
