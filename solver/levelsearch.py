@@ -27,7 +27,7 @@ import time
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, replace
 
-from solver.packing import Key, PackingInput, Segment, choice_value, fit_segment, segment_room
+from solver.packing import Key, PackingInput, Segment, StageObjective, fit_segment, segment_room
 from solver.relaxation import Relaxation, solve_relaxation
 
 __all__ = ["COMBINATION_LIMIT", "LevelSearch", "round_relaxation", "search_levels"]
@@ -70,7 +70,7 @@ class LevelSearch:
 def search_levels(
     data: PackingInput,
     keys: Sequence[Key],
-    linear: Mapping[Key, int],
+    objective: StageObjective,
     admitted: int,
     deadline: float,
 ) -> LevelSearch:
@@ -82,8 +82,8 @@ def search_levels(
         The packing data.
     keys : sequence of Key
         The model's items (demand, family, segment, level).
-    linear : mapping
-        Objective coefficient of each item's half-width.
+    objective : StageObjective
+        The stage's linear objective.
     admitted : int
         Admission value every plan must reach (Σ admission weight · served).
     deadline : float
@@ -101,7 +101,7 @@ def search_levels(
     segments = sorted(by_segment)
     combos = list(itertools.product(*(sorted(by_segment[s]) for s in segments)))
     if len(combos) > COMBINATION_LIMIT:
-        return _free_levels(data, keys, linear, admitted, deadline)
+        return _free_levels(data, keys, objective, admitted, deadline)
     solved: list[tuple[Relaxation, list[Key]]] = []
     bounds: list[tuple[frozenset[tuple[int, int]], float]] = []
     bound = -math.inf
@@ -110,22 +110,22 @@ def search_levels(
         subset = [key for key in keys if level_of[key[2]] == key[3]]
         left = deadline - time.perf_counter()
         if left <= 0:
-            return _best(data, solved, linear, admitted, math.inf)
-        relax = solve_relaxation(data, subset, linear, admitted, left)
+            return _best(data, solved, objective, admitted, math.inf)
+        relax = solve_relaxation(data, subset, objective, admitted, left)
         if relax.value == math.inf:  # stopped unsolved: no valid bound from this search
-            return _best(data, solved, linear, admitted, math.inf)
+            return _best(data, solved, objective, admitted, math.inf)
         bound = max(bound, relax.value)
         if relax.solved:
             solved.append((relax, subset))
             bounds.append((frozenset(level_of.items()), relax.value))
-    found = _best(data, solved, linear, admitted, max(bound, 0.0))
+    found = _best(data, solved, objective, admitted, max(bound, 0.0))
     return replace(found, bounds=tuple(bounds))
 
 
 def _best(
     data: PackingInput,
     solved: list[tuple[Relaxation, list[Key]]],
-    linear: Mapping[Key, int],
+    objective: StageObjective,
     admitted: int,
     bound: float,
 ) -> LevelSearch:
@@ -135,9 +135,9 @@ def _best(
     for relax, _ in sorted(solved, key=lambda rs: -rs[0].value):
         if relax.value <= value:
             break
-        choice = round_relaxation(data, relax, linear, admitted)
+        choice = round_relaxation(data, relax, objective, admitted)
         if choice is not None:
-            got = choice_value(choice, linear)
+            got = objective.value(data, choice)
             if got > value:
                 best, value = choice, got
     return LevelSearch(bound, best, value if best is not None else 0.0, len(solved))
@@ -146,12 +146,12 @@ def _best(
 def _free_levels(
     data: PackingInput,
     keys: Sequence[Key],
-    linear: Mapping[Key, int],
+    objective: StageObjective,
     admitted: int,
     deadline: float,
 ) -> LevelSearch:
     """Too many combinations: bound with the levels free, round at each segment's main level."""
-    free = solve_relaxation(data, keys, linear, admitted, deadline - time.perf_counter())
+    free = solve_relaxation(data, keys, objective, admitted, deadline - time.perf_counter())
     if not free.solved:
         return LevelSearch(free.value if free.value == math.inf else 0.0, None, 0.0, 1)
     share: dict[tuple[int, int], float] = {}
@@ -161,13 +161,13 @@ def _free_levels(
     for (s, i), total in share.items():
         main[s] = max(main.get(s, (-1.0, -1)), (total, i))
     subset = [key for key in keys if main[key[2]][1] == key[3]]
-    fixed = solve_relaxation(data, subset, linear, admitted, deadline - time.perf_counter())
-    result = _best(data, [(fixed, subset)] if fixed.solved else [], linear, admitted, free.value)
+    fixed = solve_relaxation(data, subset, objective, admitted, deadline - time.perf_counter())
+    result = _best(data, [(fixed, subset)] if fixed.solved else [], objective, admitted, free.value)
     return LevelSearch(free.value, result.choice, result.value, 2)
 
 
 def round_relaxation(
-    data: PackingInput, relax: Relaxation, linear: Mapping[Key, int], admitted: int
+    data: PackingInput, relax: Relaxation, objective: StageObjective, admitted: int
 ) -> dict[Key, int] | None:
     """An integer plan from an LP solution, or None when rounding cannot make one.
 
@@ -187,7 +187,7 @@ def round_relaxation(
         total = sum(relax.x[k] for k in options)
         if present > admitted and total < 0.5:
             continue
-        key = max(options, key=lambda k: (relax.x[k], linear.get(k, 0), k))
+        key = max(options, key=lambda k: (relax.x[k], objective.h.get(k, 0.0), k))
         fam = data.options[key[0]].candidates[key[1]]
         x = relax.x[key]
         half = math.floor(relax.h[key] / x + 1e-6) if x > 1e-9 else fam.lo_half
@@ -197,16 +197,17 @@ def round_relaxation(
     if spare < 0:
         return None
     fitted: dict[Key, int] = {}
+    widen = objective.widen
     for s in sorted({key[2] for key in choice}):
         seg = data.segments[s]
         part = {k: h for k, h in choice.items() if k[2] == s}
-        while segment_room(data, seg, fit := fit_segment(data, seg, part)) < 0:
+        while segment_room(data, seg, fit := fit_segment(data, seg, part, widen=widen)) < 0:
             if _narrow_one(data, seg, part, by_demand, relax, share):
                 continue
             optional = [k for k in part if weights[k[0]] <= spare]
             if not optional:
                 return None
-            drop = min(optional, key=lambda k: (share[k], linear.get(k, 0), k))
+            drop = min(optional, key=lambda k: (share[k], objective.h.get(k, 0.0), k))
             spare -= weights[drop[0]]
             del part[drop]
         fitted.update(fit)

@@ -46,8 +46,8 @@ __all__ = [
     "PackingInput",
     "PackingResult",
     "Segment",
+    "StageObjective",
     "admission_weights",
-    "choice_value",
     "fit_segment",
     "item_coefficients",
     "place_segment",
@@ -362,6 +362,57 @@ def _capacity_row(
     return _lin(body_terms) + delta_max + right_max
 
 
+@dataclass(frozen=True)
+class StageObjective:
+    """A linear stage-2 objective over items, in the model's own units::
+
+        Σ h[k]·half-width + Σ x[k]·chosen + Σ_s segment[s]·(max δ + max hR) + offset
+
+    ``max_throughput`` uses ``h`` alone; ``min_bandwidth`` is the weighted free width (the
+    offset less each segment's weight times its capacity row).  ``widen`` says whether a
+    rounded plan should grow its carriers into the room left (more throughput) or not.
+    """
+
+    h: Mapping[Key, float]
+    x: Mapping[Key, float] = field(default_factory=dict)
+    segment: Mapping[int, float] = field(default_factory=dict)
+    offset: float = 0.0
+    widen: bool = True
+
+    def value(self, data: PackingInput, choice: Mapping[Key, int]) -> float:
+        """The objective of a choice (half-width per chosen item)."""
+        total = self.offset
+        total += sum(self.h.get(k, 0.0) * h + self.x.get(k, 0.0) for k, h in choice.items())
+        for s in {k[2] for k in choice} & set(self.segment):
+            seg = data.segments[s]
+            coefs = [
+                item_coefficients(seg, data.options[k[0]].candidates[k[1]], data.level(k[3]))
+                for k in choice
+                if k[2] == s
+            ]
+            tops = max(c.delta_x for c in coefs) + max(c.right_x for c in coefs)
+            total += self.segment[s] * tops
+        return float(total)
+
+
+def _stage_objective(data: PackingInput, v: _Vars, terms: Sequence[_Term]) -> StageObjective | None:
+    """The stage-2 term as a :class:`StageObjective` (None for ``max_margin``'s two terms)."""
+    if data.objective is Objective.MIN_BANDWIDTH:
+        n = len(data.segments)
+        h: dict[Key, float] = {}
+        x: dict[Key, float] = {}
+        for key in v.x:
+            fam = data.options[key[0]].candidates[key[1]]
+            c = item_coefficients(data.segments[key[2]], fam, data.level(key[3]))
+            weight = n + key[2]
+            h[key], x[key] = -weight * c.body_h, -weight * c.body_x
+        segment = {s: -float(n + s) for s in range(n)}
+        return StageObjective(h, x, segment, float(terms[1].upper), widen=False)
+    if len(terms) == 2 and terms[1].coefficients is not None:
+        return StageObjective(dict(terms[1].coefficients))
+    return None
+
+
 # ---------------------------------------------------------------- objective
 
 
@@ -574,15 +625,18 @@ def solve_packing(
     used = _segment_capacity(model, data, v)
     terms = _objective_terms(model, data, v, used)
     linear = terms[1].coefficients if len(terms) == 2 else None
+    stage = _stage_objective(data, v, terms)
     everyone = terms[0].upper
 
     # Stage 1: admission (serve demands in priority order).  A rounded plan from the level
     # search that serves everyone settles it without a solve, whatever the objective.
-    rates = linear or _throughput_term(data, v, _INT_HEADROOM // (everyone + 1)).coefficients
-    search = _search(data, v, rates, everyone, started + data.time_limit_s * SEARCH_SHARE)
-    if search is not None and search.choice is not None:
+    probe = stage or StageObjective(
+        _throughput_term(data, v, _INT_HEADROOM // (everyone + 1)).coefficients or {}
+    )
+    search = _search(data, v, probe, everyone, started + data.time_limit_s * SEARCH_SHARE)
+    if search.choice is not None:
         admitted, start, proven = everyone, search.choice, True
-        if linear is None:  # other objectives start from the narrowest members
+        if stage is None:  # max_margin starts from the narrowest members
             start = {key: data.options[key[0]].candidates[key[1]].lo_half for key in start}
     else:
         model.maximize(terms[0].expr)
@@ -594,24 +648,24 @@ def solve_packing(
         proven = first_status == cp_model.OPTIMAL
         admitted = round(first.objective_value)
         start = _grown(data, v, first)
-        if linear is not None and admitted != everyone:
+        if stage is not None and admitted != everyone:
             share = (deadline - time.perf_counter()) * SEARCH_SHARE
-            search = _search(data, v, linear, admitted, time.perf_counter() + share)
-            if search is not None and search.choice is not None:
-                start = max(start, search.choice, key=lambda c: choice_value(c, linear))
+            search = _search(data, v, stage, admitted, time.perf_counter() + share)
+            if search.choice is not None:
+                start = max(start, search.choice, key=lambda c: stage.value(data, c))
 
     # Stage 2: keep that admission, optimise the rest (the CP-SAT notes' two-stage order,
     # rather than one objective with weights large enough to drown the LP bound).
-    bound = search.bound if search is not None and linear is not None else math.inf
-    if progress is not None and linear is not None and proven:
-        value = choice_value(start, linear)
+    bound = search.bound if stage is not None else math.inf
+    begun = stage.value(data, start) if stage is not None else None
+    if progress is not None and begun is not None and proven:
         elapsed = time.perf_counter() - started
-        progress(ProgressEvent(elapsed, value, bound, _gap(value, bound)))
-    if proven and linear is not None and _gap(choice_value(start, linear), bound) <= GAP_TOLERANCE:
-        settled = _from_choice(start, time.perf_counter() - started, linear)
+        progress(ProgressEvent(elapsed, begun, bound, _gap(begun, bound)))
+    if proven and begun is not None and _gap(begun, bound) <= GAP_TOLERANCE:
+        settled = _from_choice(start, time.perf_counter() - started, begun)
         return _bounded(settled, bound, proven=True)
     model.add(terms[0].expr >= admitted)
-    outside = _keep_levels(model, v, search, start, linear)
+    outside = _keep_levels(model, data, v, search, start, stage)
     _hint_solution(model, data, v, start)
     model.clear_objective()  # type: ignore[no-untyped-call]
     _lexicographic(model, terms[1:])
@@ -627,35 +681,38 @@ def solve_packing(
         if outside is not None:  # CP-SAT's bound covers the kept levels only
             bound = max(outside, min(result.best_bound, bound))
             result = replace(result, best_bound=math.inf)
-        if linear is not None and choice_value(start, linear) > result.objective_value:
-            result = replace(_from_choice(start, elapsed, linear), best_bound=result.best_bound)
+        if begun is not None and begun > result.objective_value:
+            result = replace(_from_choice(start, elapsed, begun), best_bound=result.best_bound)
     else:
         # Stage 2 found nothing in its time: the start is feasible by construction, so it is
         # the answer, with whatever bound is known.
-        result = _from_choice(start, elapsed, linear)
-    if result.status is SolveStatus.OPTIMAL or linear is None:
+        result = _from_choice(start, elapsed, begun)
+    if result.status is SolveStatus.OPTIMAL or stage is None:
         return result
     if bound < math.inf:
         return _bounded(result, bound, proven=proven)
+    if linear is None:
+        return result
     return _tighten(result, data, list(v.x), linear, admitted, reserve, started, proven=proven)
 
 
 def _keep_levels(
     model: cp_model.CpModel,
+    data: PackingInput,
     v: _Vars,
-    search: LevelSearch | None,
+    search: LevelSearch,
     start: Mapping[Key, int],
-    linear: Mapping[Key, int] | None,
+    stage: StageObjective | None,
 ) -> float | None:
     """Keep the start's segments at its protection levels in stage 2 when no other level
     combination can beat the start (its LP optimum is no higher): the model shrinks to one
     level per segment and loses nothing.  Returns the bound on what is left out (None when
     nothing is kept)."""
-    if search is None or linear is None or not search.bounds or not start:
+    if stage is None or not search.bounds or not start:
         return None
     levels = {(key[2], key[3]) for key in start}
     outside = search.bound_outside(levels)
-    if outside > choice_value(start, linear):
+    if outside > stage.value(data, start):
         return None
     segments = {s for s, _ in levels}
     for key, var in v.x.items():
@@ -664,24 +721,13 @@ def _keep_levels(
     return outside
 
 
-def choice_value(choice: Mapping[Key, int], linear: Mapping[Key, int]) -> float:
-    """Objective of a choice (half-width per item) under linear half-width coefficients."""
-    return float(sum(linear.get(k, 0) * h for k, h in choice.items()))
-
-
 def _search(
-    data: PackingInput,
-    v: _Vars,
-    linear: dict[Key, int] | None,
-    admitted: int,
-    deadline: float,
-) -> LevelSearch | None:
-    """The level search (bound and rounded plan) over linear throughput coefficients."""
-    if linear is None:
-        return None
+    data: PackingInput, v: _Vars, stage: StageObjective, admitted: int, deadline: float
+) -> LevelSearch:
+    """The level search (bound and rounded plan) for a linear stage objective."""
     from solver.levelsearch import search_levels  # imports this module
 
-    return search_levels(data, list(v.x), linear, admitted, deadline)
+    return search_levels(data, list(v.x), stage, admitted, deadline)
 
 
 def _bounded(result: PackingResult, bound: float, *, proven: bool) -> PackingResult:
@@ -778,10 +824,13 @@ def _fill_segment(
     return fit_segment(data, seg, choice)
 
 
-def fit_segment(data: PackingInput, seg: Segment, choice: Mapping[Key, int]) -> dict[Key, int]:
+def fit_segment(
+    data: PackingInput, seg: Segment, choice: Mapping[Key, int], *, widen: bool = True
+) -> dict[Key, int]:
     """``choice`` made to fit ``seg`` exactly as far as half-widths allow: narrowed, least
-    valuable spectrum first, while overfull; then widened, most valuable first, into the room
-    left.  Items never leave their family's range, so an overfull choice may stay overfull."""
+    valuable spectrum first, while overfull; then (when ``widen``) widened, most valuable
+    first, into the room left.  Items never leave their family's range, so an overfull choice
+    may stay overfull."""
     fitted = dict(choice)
     coefs = {
         key: item_coefficients(seg, data.options[key[0]].candidates[key[1]], data.level(key[3]))
@@ -805,7 +854,7 @@ def fit_segment(data: PackingInput, seg: Segment, choice: Mapping[Key, int]) -> 
             spare += cut * step
     for key in sorted(fitted, key=value, reverse=True):
         step = coefs[key].body_h
-        if spare <= 0:
+        if spare <= 0 or not widen:
             break
         if step > 0:
             extra = min(fam(key).hi_half - fitted[key], spare // step)
@@ -849,20 +898,20 @@ def _hint_solution(
         model.add_hint(var, (s, i) in levels)
 
 
-def _from_choice(
-    chosen: dict[Key, int], elapsed: float, linear: dict[Key, int] | None
-) -> PackingResult:
-    """A result made from a known choice: its objective when the last term is linear, and no
-    bound yet (gap 1 until :func:`_tighten` finds one)."""
+def _from_choice(chosen: Mapping[Key, int], elapsed: float, value: float | None) -> PackingResult:
+    """A result made from a known choice: its objective ``value`` when known, and no bound yet
+    (gap 1 until one is found)."""
     version = str(getattr(ortools, "__version__", "unknown"))
     picks: dict[int, list[tuple[int, int, int]]] = {}
     levels: dict[int, int] = {}
     for (d, k, s, i), h in sorted(chosen.items()):
         picks.setdefault(s, []).append((d, k, h))
         levels[s] = i
-    value = float(sum(linear.get(k, 0) * h for k, h in chosen.items())) if linear else 0.0
-    bound = math.inf if linear else 0.0
-    return PackingResult(SolveStatus.FEASIBLE, picks, levels, value, bound, 1.0, elapsed, version)
+    bound = math.inf if value is not None else 0.0
+    objective = value if value is not None else 0.0
+    return PackingResult(
+        SolveStatus.FEASIBLE, picks, levels, objective, bound, 1.0, elapsed, version
+    )
 
 
 def _no_solution(elapsed: float) -> PackingResult:

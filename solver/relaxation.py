@@ -19,7 +19,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import optimize, sparse
 
-from solver.packing import SCALE, Key, PackingInput, item_coefficients
+from solver.packing import SCALE, Key, PackingInput, StageObjective, item_coefficients
 
 __all__ = ["Relaxation", "solve_relaxation", "throughput_lp_bound"]
 
@@ -66,14 +66,15 @@ def throughput_lp_bound(
     time_limit_s: float,
 ) -> float:
     """Upper bound on the stage-2 objective Σ objective[key]·h[key] (``math.inf`` if unknown)."""
-    value = solve_relaxation(data, keys, objective, admitted, time_limit_s).value
+    stage = StageObjective(dict(objective))
+    value = solve_relaxation(data, keys, stage, admitted, time_limit_s).value
     return max(value, 0.0)
 
 
 def solve_relaxation(
     data: PackingInput,
     keys: Sequence[Key],
-    objective: Mapping[Key, int],
+    objective: StageObjective,
     admitted: int,
     time_limit_s: float,
 ) -> Relaxation:
@@ -85,8 +86,8 @@ def solve_relaxation(
         The packing data the model was built from.
     keys : sequence of Key
         Items (demand, family, segment, level) the relaxation may use.
-    objective : mapping
-        Integer objective coefficient of each item's half-width.
+    objective : StageObjective
+        The stage's linear objective (half-widths, choices and each segment's maxima).
     admitted : int
         Admission value stage 1 reached (Σ admission weight · served ≥ admitted); when it is
         every demand's, each demand with an item here must be served.
@@ -99,7 +100,7 @@ def solve_relaxation(
         The optimum and the fractional choice and half-widths.
     """
     if not keys:
-        return Relaxation(0.0 if admitted <= 0 else -math.inf)
+        return Relaxation(objective.offset if admitted <= 0 else -math.inf)
     index = {key: n for n, key in enumerate(keys)}
     n_items = len(keys)
     levels = sorted({(key[2], key[3]) for key in keys})
@@ -113,13 +114,15 @@ def solve_relaxation(
     for key, j in index.items():
         fam = data.options[key[0]].candidates[key[1]]
         upper[n_items + j] = fam.hi_half
-        cost[n_items + j] = -objective.get(key, 0)
+        cost[n_items + j] = -objective.h.get(key, 0.0)
+        cost[j] = -objective.x.get(key, 0.0)
         rows.add([(n_items + j, 1.0), (j, -float(fam.lo_half))], 0.0, np.inf)
         rows.add([(n_items + j, 1.0), (j, -float(fam.hi_half))], -np.inf, 0.0)
         if len(levels) > len(seg_ids):  # one level per segment needs no level rows
             rows.add([(j, 1.0), (z_col[key[2], key[3]], -1.0)], -np.inf, 0.0)
     for s in seg_ids:
         upper[delta_col[s]] = upper[delta_col[s] + 1] = np.inf
+        cost[delta_col[s]] = cost[delta_col[s] + 1] = -objective.segment.get(s, 0.0)
         rows.add([(z_col[sl], 1.0) for sl in levels if sl[0] == s], 0.0, 1.0)
     if not _demand_rows(data, keys, index, rows, admitted):
         return Relaxation(-math.inf)
@@ -139,7 +142,7 @@ def solve_relaxation(
         return Relaxation(math.inf)
     xs = {key: float(result.x[j]) for key, j in index.items()}
     hs = {key: float(result.x[n_items + j]) for key, j in index.items()}
-    return Relaxation(float(-result.fun), xs, hs)
+    return Relaxation(float(-result.fun) + objective.offset, xs, hs)
 
 
 def _demand_rows(

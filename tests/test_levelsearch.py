@@ -19,9 +19,11 @@ from solver.candidates import Candidate, DemandOptions, Family
 from solver.levelsearch import round_relaxation, search_levels
 from solver.model import CarrierConfig, Demand, Modulation, Objective, SolveStatus
 from solver.packing import (
+    SCALE,
     Key,
     PackingInput,
     Segment,
+    StageObjective,
     _make_choice_vars,
     _throughput_term,
     admission_weights,
@@ -67,7 +69,11 @@ def _family(demand: str, width: int, guards: tuple[int, int], sensitivity: float
     )
 
 
-def _input(families: list[list[_Stepped]], lengths: list[int]) -> PackingInput:
+def _input(
+    families: list[list[_Stepped]],
+    lengths: list[int],
+    objective: Objective = Objective.MAX_THROUGHPUT,
+) -> PackingInput:
     options = [
         DemandOptions(
             Demand(id=f"d{i}", min_rate_bps=1.0, target_rate_bps=1e3, priority=1, esn0_db=20.0),
@@ -80,7 +86,7 @@ def _input(families: list[list[_Stepped]], lengths: list[int]) -> PackingInput:
     return PackingInput(
         options=options,
         segments=[Segment(a, a + n) for a, n in zip(starts, lengths, strict=False)],
-        objective=Objective.MAX_THROUGHPUT,
+        objective=objective,
         admission_weights=admission_weights([o.demand for o in options]),
         priorities=[o.demand.priority for o in options],
         time_limit_s=5.0,
@@ -132,6 +138,39 @@ def _brute_force(data: PackingInput, linear: dict[Key, int]) -> tuple[int, int]:
     return best
 
 
+def _brute_force_spectrum(data: PackingInput) -> tuple[int, float]:
+    """Best (served, spectrum term) over every choice and level per segment, the term being
+    the model's Σ_s (n + s)·(length − used)·SCALE over the n segments, with used = Σ(w + g)
+    (edges need no guard here)."""
+    n = len(data.segments)
+    picks = [
+        [None, *((k, s) for k in range(len(o.candidates)) for s in range(n))] for o in data.options
+    ]
+    best: tuple[int, float] = (0, -math.inf)
+    for choice in itertools.product(*picks):
+        for levels in itertools.product(range(len(LEVELS)), repeat=n):
+            served, free, ok = 0, 0.0, True
+            for s, seg in enumerate(data.segments):
+                used = 0
+                for d, pick in enumerate(choice):
+                    if pick is None or pick[1] != s:
+                        continue
+                    fam = data.options[d].candidates[pick[0]]
+                    if fam.sensitivity_db > LEVELS[levels[s]]:
+                        ok = False
+                        break
+                    c = fam.at(fam.hi_half, LEVELS[levels[s]])
+                    used += c.width_units + c.guard_units
+                    served += 1
+                ok = ok and used <= seg.length
+                if not ok:
+                    break
+                free += (n + s) * (seg.length - used) * SCALE
+            if ok:
+                best = max(best, (served, free))
+    return best
+
+
 def test_level_search_bound_is_exact_where_free_levels_are_loose() -> None:
     """One segment of 100 with edges needing no guard, so a segment needs Σ(w + g); levels 10
     and 20 dB.  A and B (sensitivity 10) are 40 wide with a guard of 0 at level 10 and 20 at
@@ -164,9 +203,9 @@ def test_level_search_bound_is_exact_where_free_levels_are_loose() -> None:
     assert result.status is SolveStatus.OPTIMAL
     assert result.objective_value == 80 * per_bps
     admitted = 2
-    search = search_levels(data, keys, linear, admitted, math.inf)
+    search = search_levels(data, keys, StageObjective(linear), admitted, math.inf)
     assert math.isclose(search.bound, 80 * per_bps, rel_tol=1e-6)
-    free = solve_relaxation(data, keys, linear, admitted, 5.0)
+    free = solve_relaxation(data, keys, StageObjective(linear), admitted, 5.0)
     assert free.value >= 86.6 * per_bps
 
 
@@ -207,7 +246,7 @@ def test_search_bound_and_rounding_against_brute_force(
     if not keys:
         return
     admitted = sum(data.admission_weights[d] for p in result.chosen.values() for d, _, _ in p)
-    search = search_levels(data, keys, linear, admitted, math.inf)
+    search = search_levels(data, keys, StageObjective(linear), admitted, math.inf)
     assert search.bound >= best - 1e-6
     if search.choice is not None:
         assert search.value <= best + 1e-6
@@ -216,6 +255,48 @@ def test_search_bound_and_rounding_against_brute_force(
             assert segment_room(data, seg, part) >= 0
             assert len({k[3] for k in part}) <= 1  # one level per segment
         assert len({k[0] for k in search.choice}) == len(search.choice)
+
+
+@settings(max_examples=25, deadline=None)
+@given(
+    st.lists(
+        st.lists(
+            st.tuples(
+                st.integers(2, 15),
+                st.integers(0, 6),
+                st.integers(0, 6),
+                st.sampled_from([10.0, 20.0]),
+                st.integers(1, 9),
+            ),
+            min_size=1,
+            max_size=2,
+        ),
+        min_size=1,
+        max_size=4,
+    ),
+    st.lists(st.integers(10, 70), min_size=1, max_size=2),
+)
+def test_min_bandwidth_matches_brute_force(
+    specs: list[list[tuple[int, int, int, float, int]]], lengths: list[int]
+) -> None:
+    """Property: ``min_bandwidth`` (through the level search's spectrum objective) serves as
+    many as brute force and leaves the same weighted free spectrum, reported optimal."""
+    families = [
+        [_family(f"d{i}", 2 * h, (g, g + dg), sens, float(t)) for h, g, dg, sens, t in fams]
+        for i, fams in enumerate(specs)
+    ]
+    data = _input(families, lengths, Objective.MIN_BANDWIDTH)
+    served, free = _brute_force_spectrum(data)
+    result = solve_packing(data)
+    assert sum(len(p) for p in result.chosen.values()) == served
+    assert result.status is SolveStatus.OPTIMAL
+    if served:
+        # The term only counts segments the model has items in.
+        keys, _ = _linear(data)
+        empty = set(range(len(lengths))) - {k[2] for k in keys}
+        n = len(lengths)
+        free -= sum((n + s) * lengths[s] * SCALE for s in empty)
+        assert result.objective_value == free
 
 
 def test_rounding_leaves_out_only_what_admission_allows() -> None:
@@ -227,10 +308,10 @@ def test_rounding_leaves_out_only_what_admission_allows() -> None:
         [60],
     )
     keys, linear = _linear(data)
-    relax = solve_relaxation(data, [k for k in keys if k[3] == 0], linear, 1, 5.0)
+    relax = solve_relaxation(data, [k for k in keys if k[3] == 0], StageObjective(linear), 1, 5.0)
     assert relax.solved
-    assert round_relaxation(data, relax, linear, 2) is None
-    plan = round_relaxation(data, relax, linear, 1)
+    assert round_relaxation(data, relax, StageObjective(linear), 2) is None
+    plan = round_relaxation(data, relax, StageObjective(linear), 1)
     assert plan is not None
     assert len(plan) == 1
 
@@ -252,7 +333,7 @@ def test_too_many_combinations_fall_back_to_the_free_levels(monkeypatch) -> None
     )
     keys, linear = _linear(data)
     per_bps = linear[0, 0, 0, 0] * 20 / 40.0
-    search = search_levels(data, keys, linear, 2, math.inf)
+    search = search_levels(data, keys, StageObjective(linear), 2, math.inf)
     assert search.bounds == ()
     assert search.bound >= 86.6 * per_bps
     if search.choice is not None:
