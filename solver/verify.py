@@ -181,36 +181,45 @@ def _leakage(problem: Problem, carriers: list[Carrier]) -> tuple[list[Carrier], 
     return out, found
 
 
-def _density(
-    problem: Problem, c: Carrier, level: float, freq_hz: NDArray[np.float64]
-) -> NDArray[np.float64]:
-    """Power spectral density of carrier ``c`` (linear, relative units) at ``freq_hz``."""
-    rs = c.config.symbol_rate_baud
-    profile = emission.get_profile(_key(problem, c))
-    return level * profile.psd_at((freq_hz - c.center_hz) / rs)
+@dataclass(frozen=True)
+class _Emitter:
+    """A placed carrier's emission: its profile, level and how far (Hz) its profile reaches."""
+
+    carrier: Carrier
+    profile: emission.SpectrumProfile
+    level: float
+    reach_hz: float
+
+    @classmethod
+    def of(cls, problem: Problem, carrier: Carrier, level: float) -> _Emitter:
+        profile = emission.get_profile(_key(problem, carrier))
+        reach = float(np.max(np.abs(profile.freq))) * carrier.config.symbol_rate_baud
+        return cls(carrier, profile, level, reach)
+
+    def density(self, freq_hz: NDArray[np.float64]) -> NDArray[np.float64]:
+        """Power spectral density (linear, relative units) at ``freq_hz``."""
+        c = self.carrier
+        return self.level * self.profile.psd_at((freq_hz - c.center_hz) / c.config.symbol_rate_baud)
 
 
 def _received(
-    problem: Problem, victim: Carrier, carriers: Sequence[Carrier], levels: dict[str, float]
+    problem: Problem, victim: _Emitter, emitters: Sequence[_Emitter]
 ) -> tuple[float, dict[str, float]]:
     """Signal power and each other carrier's power through the victim's matched filter."""
-    rs = victim.config.symbol_rate_baud
-    matched = emission.get_profile(_key(problem, victim, linear=True))
-    freq = victim.center_hz + matched.freq * rs
+    rs = victim.carrier.config.symbol_rate_baud
+    matched = emission.get_profile(_key(problem, victim.carrier, linear=True))
+    freq = victim.carrier.center_hz + matched.freq * rs
     response = matched.psd / float(matched.psd_at(np.zeros(1))[0])
-    own = _density(problem, victim, levels[victim.demand_id], freq)
-    signal = float(np.trapezoid(own * response, freq))
+    signal = float(np.trapezoid(victim.density(freq) * response, freq))
     reach = float(np.max(np.abs(matched.freq))) * rs
     powers: dict[str, float] = {}
-    for other in carriers:
+    for other in emitters:
         if other is victim:
             continue
-        profile = emission.get_profile(_key(problem, other))
-        other_reach = float(np.max(np.abs(profile.freq))) * other.config.symbol_rate_baud
-        if abs(other.center_hz - victim.center_hz) > reach + other_reach:
+        if abs(other.carrier.center_hz - victim.carrier.center_hz) > reach + other.reach_hz:
             continue
-        density = _density(problem, other, levels[other.demand_id], freq)
-        powers[other.demand_id] = float(np.trapezoid(density * response, freq))
+        density = other.density(freq)
+        powers[other.carrier.demand_id] = float(np.trapezoid(density * response, freq))
     return signal, powers
 
 
@@ -228,8 +237,9 @@ def _interference(
     margins = {d.id: d.margin_db for d in problem.demands}
     found: list[Violation] = []
     out: list[Carrier] = []
-    for v in carriers:
-        signal, powers = _received(problem, v, carriers, levels)
+    emitters = [_Emitter.of(problem, c, levels[c.demand_id]) for c in carriers]
+    for v, emitter in zip(carriers, emitters, strict=True):
+        signal, powers = _received(problem, emitter, emitters)
         interference = sum(powers.values())
         ci_lin = math.inf if interference <= 0 else signal / interference
         c_over_i = 10.0 * math.log10(ci_lin)
