@@ -46,6 +46,34 @@ class _Stepped(Family):
         return replace(self.top, guard_units=dict(self.guard_at)[level])
 
 
+_SPECS = st.lists(
+    st.lists(
+        st.tuples(
+            st.integers(2, 15),  # half-width
+            st.integers(0, 6),  # guard at 10 dB
+            st.integers(0, 6),  # extra guard at 20 dB
+            st.sampled_from([10.0, 20.0]),  # sensitivity
+            st.integers(1, 9),  # throughput
+        ),
+        min_size=1,
+        max_size=2,
+    ),
+    min_size=1,
+    max_size=4,
+)
+"""Per demand, one or two families: (half-width, guards at 10 and 20 dB, sensitivity, rate)."""
+
+_LENGTHS = st.lists(st.integers(10, 70), min_size=1, max_size=2)
+"""One or two segments."""
+
+
+def _families(specs: list[list[tuple[int, int, int, float, int]]]) -> list[list[_Stepped]]:
+    return [
+        [_family(f"d{i}", 2 * h, (g, g + dg), sens, float(t)) for h, g, dg, sens, t in fams]
+        for i, fams in enumerate(specs)
+    ]
+
+
 def _family(demand: str, width: int, guards: tuple[int, int], sensitivity: float, thr: float):
     config = CarrierConfig(
         demand_id=demand,
@@ -210,33 +238,13 @@ def test_level_search_bound_is_exact_where_free_levels_are_loose() -> None:
 
 
 @settings(max_examples=40, deadline=None)
-@given(
-    st.lists(
-        st.lists(
-            st.tuples(
-                st.integers(2, 15),  # half-width
-                st.integers(0, 6),  # guard at 10 dB
-                st.integers(0, 6),  # extra guard at 20 dB
-                st.sampled_from([10.0, 20.0]),  # sensitivity
-                st.integers(1, 9),  # throughput
-            ),
-            min_size=1,
-            max_size=2,
-        ),
-        min_size=1,
-        max_size=4,
-    ),
-    st.lists(st.integers(10, 70), min_size=1, max_size=2),
-)
+@given(_SPECS, _LENGTHS)
 def test_search_bound_and_rounding_against_brute_force(
     specs: list[list[tuple[int, int, int, float, int]]], lengths: list[int]
 ) -> None:
     """Property: the level search's bound is never below the brute-force optimum, its rounded
     plan fits every segment by the model's own rows, and the packing reaches that optimum."""
-    families = [
-        [_family(f"d{i}", 2 * h, (g, g + dg), sens, float(t)) for h, g, dg, sens, t in fams]
-        for i, fams in enumerate(specs)
-    ]
+    families = _families(specs)
     data = _input(families, lengths)
     keys, linear = _linear(data)
     served, best = _brute_force(data, linear)
@@ -258,33 +266,13 @@ def test_search_bound_and_rounding_against_brute_force(
 
 
 @settings(max_examples=25, deadline=None)
-@given(
-    st.lists(
-        st.lists(
-            st.tuples(
-                st.integers(2, 15),
-                st.integers(0, 6),
-                st.integers(0, 6),
-                st.sampled_from([10.0, 20.0]),
-                st.integers(1, 9),
-            ),
-            min_size=1,
-            max_size=2,
-        ),
-        min_size=1,
-        max_size=4,
-    ),
-    st.lists(st.integers(10, 70), min_size=1, max_size=2),
-)
+@given(_SPECS, _LENGTHS)
 def test_min_bandwidth_matches_brute_force(
     specs: list[list[tuple[int, int, int, float, int]]], lengths: list[int]
 ) -> None:
     """Property: ``min_bandwidth`` (through the level search's spectrum objective) serves as
     many as brute force and leaves the same weighted free spectrum, reported optimal."""
-    families = [
-        [_family(f"d{i}", 2 * h, (g, g + dg), sens, float(t)) for h, g, dg, sens, t in fams]
-        for i, fams in enumerate(specs)
-    ]
+    families = _families(specs)
     data = _input(families, lengths, Objective.MIN_BANDWIDTH)
     served, free = _brute_force_spectrum(data)
     result = solve_packing(data)
