@@ -661,9 +661,10 @@ def solve_packing(
     if progress is not None and begun is not None and proven:
         elapsed = time.perf_counter() - started
         progress(ProgressEvent(elapsed, begun, bound, _gap(begun, bound)))
-    if proven and begun is not None and _gap(begun, bound) <= GAP_TOLERANCE:
+    slack = GAP_TOLERANCE * terms[-1].upper
+    if proven and begun is not None and bound - begun <= slack:
         settled = _from_choice(start, time.perf_counter() - started, begun)
-        return _bounded(settled, bound, proven=True)
+        return _bounded(settled, bound, proven=True, slack=slack)
     model.add(terms[0].expr >= admitted)
     outside = _keep_levels(model, data, v, search, start, stage)
     _hint_solution(model, data, v, start)
@@ -671,9 +672,7 @@ def solve_packing(
     _lexicographic(model, terms[1:])
     reserve = data.time_limit_s * LP_BOUND_SHARE if linear is not None and bound == math.inf else 0
     remaining = max(0.05, deadline - reserve - time.perf_counter())
-    second, second_status = _run(
-        model, data, remaining, GAP_TOLERANCE * terms[-1].upper, progress, cancel
-    )
+    second, second_status = _run(model, data, remaining, slack, progress, cancel)
     elapsed = time.perf_counter() - started
     if second_status in (cp_model.OPTIMAL, cp_model.FEASIBLE):
         done = proven and second_status == cp_model.OPTIMAL and outside is None
@@ -690,10 +689,12 @@ def solve_packing(
     if result.status is SolveStatus.OPTIMAL or stage is None:
         return result
     if bound < math.inf:
-        return _bounded(result, bound, proven=proven)
+        return _bounded(result, bound, proven=proven, slack=slack)
     if linear is None:
         return result
-    return _tighten(result, data, list(v.x), linear, admitted, reserve, started, proven=proven)
+    return _tighten(
+        result, data, list(v.x), linear, admitted, reserve, started, proven=proven, slack=slack
+    )
 
 
 def _keep_levels(
@@ -730,12 +731,14 @@ def _search(
     return search_levels(data, list(v.x), stage, admitted, deadline)
 
 
-def _bounded(result: PackingResult, bound: float, *, proven: bool) -> PackingResult:
-    """``result`` with the tighter of its bound and ``bound``; optimal once the gap closes
-    (when the admission before it was ``proven`` optimal)."""
+def _bounded(result: PackingResult, bound: float, *, proven: bool, slack: float) -> PackingResult:
+    """``result`` with the tighter of its bound and ``bound``; optimal once the bound is within
+    ``slack`` of the objective (the same stopping rule CP-SAT is given; see
+    :data:`GAP_TOLERANCE`) and the admission before it was ``proven`` optimal."""
     best = min(result.best_bound, math.floor(bound + 1e-6))
     gap = _gap(result.objective_value, best)
-    status = SolveStatus.OPTIMAL if proven and gap <= GAP_TOLERANCE else result.status
+    closed = best - result.objective_value <= slack
+    status = SolveStatus.OPTIMAL if proven and closed else result.status
     return replace(result, best_bound=best, optimality_gap=gap, status=status)
 
 
@@ -749,12 +752,13 @@ def _tighten(
     started: float,
     *,
     proven: bool,
+    slack: float,
 ) -> PackingResult:
     """Report the tighter of CP-SAT's bound and the LP relaxation's."""
     from solver.relaxation import throughput_lp_bound  # imports this module
 
     lp = throughput_lp_bound(data, keys, linear, admitted, max(1.0, budget_s))
-    tightened = _bounded(result, lp, proven=proven) if math.isfinite(lp) else result
+    tightened = _bounded(result, lp, proven=proven, slack=slack) if math.isfinite(lp) else result
     return replace(tightened, solve_time_s=time.perf_counter() - started)
 
 
