@@ -18,12 +18,13 @@ Every rule is one small function that says what it enforces and whether it is ha
 
 from __future__ import annotations
 
+import contextlib
 import itertools
 import logging
 import math
 import threading
 import time
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from enum import StrEnum
 from typing import TYPE_CHECKING
@@ -72,6 +73,10 @@ LARGE_MODEL_ITEMS = 1500
 
 SEARCH_SHARE = 0.4
 """Share of the (remaining) time limit the protection-level search may use."""
+
+FULL_MODEL_SHARE = 0.4
+"""Share of stage 2's time the whole model gets before the level combinations are solved one
+by one (when the level search bounded each of them)."""
 
 LP_BOUND_SHARE = 0.15
 """Share of the time limit kept for the LP-relaxation bound when CP-SAT has not proved optimal."""
@@ -672,7 +677,9 @@ def solve_packing(
     _lexicographic(model, terms[1:])
     reserve = data.time_limit_s * LP_BOUND_SHARE if linear is not None and bound == math.inf else 0
     remaining = max(0.05, deadline - reserve - time.perf_counter())
-    second, second_status = _run(model, data, remaining, slack, progress, cancel)
+    by_levels = stage is not None and proven and outside is None and bool(search.bounds)
+    budget = remaining * FULL_MODEL_SHARE if by_levels else remaining
+    second, second_status = _run(model, data, budget, slack, progress, cancel)
     elapsed = time.perf_counter() - started
     if second_status in (cp_model.OPTIMAL, cp_model.FEASIBLE):
         done = proven and second_status == cp_model.OPTIMAL and outside is None
@@ -688,6 +695,17 @@ def solve_packing(
         result = _from_choice(start, elapsed, begun)
     if result.status is SolveStatus.OPTIMAL or stage is None:
         return result
+    if by_levels and not (cancel is not None and cancel.is_set()):
+        found = second_status in (cp_model.OPTIMAL, cp_model.FEASIBLE)
+        incumbent = _chosen(second, v) if found else dict(start)
+        if result.objective_value > stage.value(data, incumbent):  # the start was better
+            incumbent = dict(start)
+        cp_bound = second.best_objective_bound if found else math.inf
+        choice, value, bound = _by_combination(
+            model, data, v, search, incumbent, result.objective_value, slack, deadline, cancel
+        )
+        result = _from_choice(choice, time.perf_counter() - started, value)
+        return _bounded(result, min(bound, cp_bound), proven=proven, slack=slack)
     if bound < math.inf:
         return _bounded(result, bound, proven=proven, slack=slack)
     if linear is None:
@@ -695,6 +713,65 @@ def solve_packing(
     return _tighten(
         result, data, list(v.x), linear, admitted, reserve, started, proven=proven, slack=slack
     )
+
+
+def _chosen(solver: cp_model.CpSolver, v: _Vars) -> dict[Key, int]:
+    """The half-width of every chosen item in a solver's solution."""
+    return {k: int(solver.value(v.half[k])) for k, x in v.x.items() if solver.boolean_value(x)}
+
+
+def _by_combination(
+    model: cp_model.CpModel,
+    data: PackingInput,
+    v: _Vars,
+    search: LevelSearch,
+    incumbent: dict[Key, int],
+    value: float,
+    slack: float,
+    deadline: float,
+    cancel: threading.Event | None,
+) -> tuple[dict[Key, int], float, float]:
+    """Stage 2 one protection-level combination at a time, best LP optimum first, after the
+    whole model could not prove its plan: each solve sees one level per segment (a model a
+    fraction of the size), and none is needed once the incumbent is within ``slack`` of every
+    combination left.  Returns the best choice, its value and a bound on every plan (the
+    solved combinations' proven bounds and the others' LP optima)."""
+    order = sorted(search.bounds, key=lambda cb: (-cb[1], sorted(cb[0])))
+    bounds = dict(order)
+    for n, (combo, lp) in enumerate(order):
+        left = deadline - time.perf_counter()
+        if lp - value <= slack or left <= 0.05 or (cancel is not None and cancel.is_set()):
+            break
+        rivals = sum(1 for _, other in order[n:] if other - value > slack)
+        segments = {s for s, _ in combo}
+        off = [x for k, x in v.x.items() if k[2] in segments and (k[2], k[3]) not in combo]
+        if all((k[2], k[3]) in combo for k in incumbent):
+            _hint_solution(model, data, v, incumbent)
+        else:
+            model.clear_hints()  # type: ignore[no-untyped-call]
+        with _switched_off(model, off):
+            solver, status = _run(model, data, left / rivals, slack, None, cancel)
+        if status == cp_model.INFEASIBLE:
+            bounds[combo] = -math.inf
+        elif status in (cp_model.OPTIMAL, cp_model.FEASIBLE):
+            if solver.objective_value > value:
+                value, incumbent = solver.objective_value, _chosen(solver, v)
+            bounds[combo] = min(lp, solver.best_objective_bound)
+    return incumbent, value, max(value, *bounds.values())
+
+
+@contextlib.contextmanager
+def _switched_off(model: cp_model.CpModel, booleans: Sequence[cp_model.IntVar]) -> Iterator[None]:
+    """Fix ``booleans`` to 0 for the duration (their domains are restored afterwards)."""
+    domains = [model.proto.variables[b.index].domain for b in booleans]
+    saved = [(d[0], d[1]) for d in domains]
+    try:
+        for d in domains:
+            d[0], d[1] = 0, 0
+        yield
+    finally:
+        for d, (lo, hi) in zip(domains, saved, strict=True):
+            d[0], d[1] = lo, hi
 
 
 def _keep_levels(

@@ -331,3 +331,32 @@ def test_too_many_combinations_fall_back_to_the_free_levels(monkeypatch) -> None
         assert search.value <= 80 * per_bps + 1e-6
     result = solve_packing(data)
     assert result.objective_value == pytest.approx(80 * per_bps, abs=1e-6)
+
+
+@settings(max_examples=20, deadline=None)
+@given(_SPECS, _LENGTHS)
+def test_level_by_level_stage_two_reaches_the_optimum(
+    specs: list[list[tuple[int, int, int, float, int]]],
+    lengths: list[int],
+) -> None:
+    """Property: when the whole model gets no time at all, solving the level combinations one
+    by one still reaches the brute-force optimum and proves it."""
+    import solver.packing as packing
+
+    real_run = packing._run
+
+    def run(model, data, budget, *args, **kwargs):  # type: ignore[no-untyped-def]
+        if budget <= 0.0:  # the whole-model stage 2: pretend it found nothing
+            return cp_model.CpSolver(), cp_model.UNKNOWN
+        return real_run(model, data, budget, *args, **kwargs)
+
+    with pytest.MonkeyPatch.context() as patch:
+        patch.setattr(packing, "FULL_MODEL_SHARE", 0.0)
+        patch.setattr(packing, "_run", run)
+        data = _input(_families(specs), lengths)
+        _, linear = _linear(data)
+        served, best = _brute_force(data, linear)
+        result = solve_packing(data)
+    assert sum(len(p) for p in result.chosen.values()) == served
+    assert result.objective_value == pytest.approx(best, abs=1e-6)
+    assert result.status is SolveStatus.OPTIMAL
