@@ -125,6 +125,19 @@ def _input(
     )
 
 
+def _hand_worked() -> PackingInput:
+    """The instance of the hand-worked test: A and B (sensitivity 10, 40 wide, guard 0 at
+    10 dB and 20 at 20 dB), C (sensitivity 20, 20 wide, guard 0), one segment of 100."""
+    return _input(
+        [
+            [_family("d0", 40, (0, 20), 10.0, 40.0)],
+            [_family("d1", 40, (0, 20), 10.0, 40.0)],
+            [_family("d2", 20, (0, 0), 20.0, 20.0)],
+        ],
+        [100],
+    )
+
+
 def _linear(data: PackingInput) -> tuple[list[Key], dict[Key, int]]:
     v = _make_choice_vars(cp_model.CpModel(), data)
     term = _throughput_term(data, v, 2**40)
@@ -218,14 +231,7 @@ def test_level_search_bound_is_exact_where_free_levels_are_loose() -> None:
     admission 2 + (1 − a) ≥ 2 holds, and the value 80 + 20(1 − a) is 86.7 at a = 2/3: the free
     relaxation is 8 % loose here.
     """
-    data = _input(
-        [
-            [_family("d0", 40, (0, 20), 10.0, 40.0)],
-            [_family("d1", 40, (0, 20), 10.0, 40.0)],
-            [_family("d2", 20, (0, 0), 20.0, 20.0)],
-        ],
-        [100],
-    )
+    data = _hand_worked()
     keys, linear = _linear(data)
     per_bps = linear[0, 0, 0, 0] * 20 / 40.0  # units per bit/s (half-width 20 carries 40)
     result = solve_packing(data)
@@ -313,14 +319,7 @@ def test_too_many_combinations_fall_back_to_the_free_levels(monkeypatch) -> None
     import solver.levelsearch as levelsearch
 
     monkeypatch.setattr(levelsearch, "COMBINATION_LIMIT", 1)
-    data = _input(
-        [
-            [_family("d0", 40, (0, 20), 10.0, 40.0)],
-            [_family("d1", 40, (0, 20), 10.0, 40.0)],
-            [_family("d2", 20, (0, 0), 20.0, 20.0)],
-        ],
-        [100],
-    )
+    data = _hand_worked()
     keys, linear = _linear(data)
     per_bps = linear[0, 0, 0, 0] * 20 / 40.0
     search = search_levels(data, keys, StageObjective(linear), 2, math.inf)
