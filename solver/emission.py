@@ -27,7 +27,15 @@ import numpy.typing as npt
 from scipy import fft as sp_fft
 from scipy import signal
 
+from solver import profilecache
 from solver.amplifier import (
+    BRACKET_DECIMATION,
+    DRIVE_GRID_DB,
+    DRIVE_REFINE,
+    SALEH_ALPHA_A,
+    SALEH_ALPHA_PHI,
+    SALEH_BETA_A,
+    SALEH_BETA_PHI,
     amplify,
     rapp_am_am,
     saleh,
@@ -38,6 +46,7 @@ from solver.pulses import rrc_taps
 
 __all__ = [
     "DEFAULT_SEED",
+    "PROFILE_VERSION",
     "EmissionKey",
     "Side",
     "SpectrumProfile",
@@ -73,6 +82,11 @@ AMPLIFIER_SYMBOLS: Final = 32_768
 AMPLIFIER_SEGMENT: Final = 16_384
 WELCH_WINDOW: Final = "blackmanharris"
 DEFAULT_SEED: Final = 20_011
+PROFILE_VERSION: Final = 1
+"""Version of the amplifier simulation in stored profiles (:mod:`solver.profilecache`): raise it
+whenever a change to :func:`simulate_amplifier_psd` or :mod:`solver.amplifier` changes a
+spectrum.  Filter taps, constellation points, the constants above, the seed and the numpy and
+scipy versions enter the file name by themselves."""
 
 
 @dataclass(frozen=True)
@@ -526,24 +540,80 @@ def build_profile(key: EmissionKey, seed: int = DEFAULT_SEED) -> SpectrumProfile
     """
     if key.amplifier is None:
         return _linear_profile(key)
-    from solver.modcod import constellation
-
-    if key.modulation is None:
-        raise ProblemError("modulation", "is required when an amplifier is given")
-    points = constellation(key.modulation).points
-    freq, density = simulate_amplifier_psd(points, key, np.random.default_rng(seed))
-    logger.debug("amplifier profile computed for %s", key)
+    freq, density = _amplifier_density(key, seed)
     return SpectrumProfile.from_density(freq, density, 1.0 + key.rolloff)
 
 
 @functools.lru_cache(maxsize=256)
 def get_profile(key: EmissionKey) -> SpectrumProfile:
-    """Cached :func:`build_profile` with the default seed (thread-safe ``lru_cache``).
+    """Cached :func:`build_profile` with the default seed, bit for bit.
+
+    In memory (thread-safe ``lru_cache``) and, for amplifier profiles, on disk across processes
+    (:mod:`solver.profilecache`, directory from ``BANDWRIGHT_CACHE_DIR``).  Linear profiles
+    are not stored: they take milliseconds, half of it in the leakage table a load would rebuild.
 
     >>> get_profile(EmissionKey(0.2, 16)) is get_profile(EmissionKey(0.2, 16))
     True
     """
-    return build_profile(key)
+    if key.amplifier is None:
+        return build_profile(key)
+    return _stored_amplifier_profile(key, DEFAULT_SEED)
+
+
+def _constellation_points(key: EmissionKey) -> ComplexArray:
+    from solver.modcod import constellation
+
+    if key.modulation is None:
+        raise ProblemError("modulation", "is required when an amplifier is given")
+    return np.asarray(constellation(key.modulation).points, dtype=np.complex128)
+
+
+def _amplifier_density(key: EmissionKey, seed: int) -> tuple[FloatArray, FloatArray]:
+    points = _constellation_points(key)
+    freq, density = simulate_amplifier_psd(points, key, np.random.default_rng(seed))
+    logger.debug("amplifier profile computed for %s", key)
+    return freq, density
+
+
+def _stored_amplifier_profile(key: EmissionKey, seed: int) -> SpectrumProfile:
+    """The amplifier profile from its stored density if there is a usable one, else simulated
+    and stored; :meth:`SpectrumProfile.from_density` runs on the same arrays either way."""
+    fields = _stored_fields(key, seed)
+    stored = profilecache.load_arrays(fields, ("freq", "density"))
+    if stored is not None:
+        try:
+            profile = SpectrumProfile.from_density(
+                stored["freq"], stored["density"], 1.0 + key.rolloff
+            )
+        except ValueError as exc:
+            logger.info("stored amplifier profile for %s rejected (%s); recomputing", key, exc)
+        else:
+            logger.debug("amplifier profile loaded for %s", key)
+            return profile
+    freq, density = _amplifier_density(key, seed)
+    profilecache.store_arrays(fields, {"freq": freq, "density": density})
+    return SpectrumProfile.from_density(freq, density, 1.0 + key.rolloff)
+
+
+def _stored_fields(key: EmissionKey, seed: int) -> dict[str, object]:
+    """Everything the simulated density of ``key`` depends on (see :data:`PROFILE_VERSION`)."""
+    sps = AMPLIFIER_SAMPLES_PER_SYMBOL
+    parameters: dict[str, object] = {
+        "seed": seed,
+        "samples_per_symbol": sps,
+        "symbols": AMPLIFIER_SYMBOLS,
+        "welch_segment": AMPLIFIER_SEGMENT,
+        "welch_window": WELCH_WINDOW,
+        "drive_grid_db": DRIVE_GRID_DB,
+        "drive_decimation": BRACKET_DECIMATION,
+        "drive_refine": DRIVE_REFINE,
+        "saleh": (SALEH_ALPHA_A, SALEH_BETA_A, SALEH_ALPHA_PHI, SALEH_BETA_PHI),
+    }
+    taps = rrc_taps(key.rolloff, key.span_symbols, sps, key.window)
+    inputs = {"points": _constellation_points(key), "taps": taps}
+    return profilecache.key_fields(
+        version=PROFILE_VERSION, key=key, parameters=parameters, inputs=inputs
+    )
 
 
 PROFILE_WORKERS: Final = 2
@@ -555,8 +625,9 @@ def warm_profiles(keys: Iterable[EmissionKey]) -> None:
     """Compute the profiles of ``keys`` that are not cached yet, a few threads at a time.
 
     Amplifier profiles take about 0.3 s each and a plan may need dozens, so the first plan of a
-    process is dominated by them; results are exactly those of :func:`get_profile` (each
-    profile's random symbols come from its own seeded generator).
+    process is dominated by them unless they are stored on disk already; results are exactly
+    those of :func:`get_profile` (each profile's random symbols come from its own seeded
+    generator).
     """
     todo = [k for k in dict.fromkeys(keys) if k.amplifier is not None]
     workers = min(PROFILE_WORKERS, len(os.sched_getaffinity(0)), len(todo))
