@@ -49,6 +49,7 @@ __all__ = [
     "build_candidates",
     "candidate_for",
     "emission_key",
+    "family_for",
 ]
 
 WIDTH_STEP = 1.01
@@ -575,6 +576,20 @@ def candidate_for(
     Used for replans: a carrier may stay as it is only if its link still closes with the
     demand's margin and it still carries the minimum rate.
     """
+    fam = family_for(problem, demand, modulation, code_rate, rolloff, symbol_rate_baud)
+    return None if fam is None else fam.top
+
+
+def family_for(
+    problem: Problem,
+    demand: Demand,
+    modulation: Modulation,
+    code_rate: CodeRate,
+    rolloff: float,
+    symbol_rate_baud: float,
+) -> Family | None:
+    """:func:`candidate_for` as a single-width :class:`Family` that knows its spectrum, its
+    sensitivity and its leakage guard (so its neighbours can be spaced from the pair)."""
     entry = modcod.required_esn0_db(modulation, code_rate, problem.coding)
     if not math.isfinite(entry):
         return None
@@ -585,11 +600,14 @@ def candidate_for(
     esn0 = float(_esn0_db(demand, np.array([symbol_rate_baud]))[0])
     if throughput < demand.min_rate_bps * (1 - 1e-9) or esn0 - entry < demand.margin_db:
         return None
-    profile = emission.get_profile(emission_key(problem, modulation, rolloff))
+    key = emission_key(problem, modulation, rolloff)
+    profile = emission.get_profile(key)
     weakest = max(d.relative_level_db for d in problem.demands) - demand.relative_level_db
-    immunity = _immunity_limit_db(np.array([esn0]), np.array([esn0 - entry]), demand, weakest)
-    limit = max(problem.leakage_limit_db, float(immunity[0]))
-    guard = profile.guard_needed(limit) * symbol_rate_baud
+    immunity = float(
+        _immunity_limit_db(np.array([esn0]), np.array([esn0 - entry]), demand, weakest)[0]
+    )
+    leak_per_baud = profile.guard_needed(problem.leakage_limit_db)
+    guard = max(leak_per_baud, mask_guard_per_baud(key, immunity)) * symbol_rate_baud
     edge = profile.guard_needed(problem.edge_limit_db) * symbol_rate_baud
     if not (math.isfinite(guard) and math.isfinite(edge)):
         return None
@@ -611,6 +629,17 @@ def candidate_for(
         required_esn0_db=entry,
     )
     width = int(_even_units(np.array([allocated]), raster)[0])
-    return Candidate(
+    top = Candidate(
         config, width, math.ceil(guard / raster - 1e-9), math.ceil(edge / raster - 1e-9)
+    )
+    half = max(width // 2, 1)
+    return Family(
+        top,
+        half,
+        half,
+        demand.cn0_dbhz is not None,
+        raster,
+        sensitivity_db=immunity,
+        leakage_guard_per_baud=leak_per_baud,
+        key=key,
     )

@@ -34,6 +34,7 @@ from ortools.sat.python import cp_model
 
 from solver.candidates import Candidate, DemandOptions, Family
 from solver.model import Demand, Objective, ProgressEvent, SolveStatus
+from solver.spacing import Wall
 
 if TYPE_CHECKING:
     from solver.levelsearch import LevelSearch
@@ -106,6 +107,9 @@ class Segment:
     right: Boundary = Boundary.EDGE
     left_guard: int = 0
     right_guard: int = 0
+    left_wall: Wall = field(default_factory=Wall)
+    """The fixed carrier beyond the left end (its family and half-width), if any."""
+    right_wall: Wall = field(default_factory=Wall)
 
     @property
     def length(self) -> int:
@@ -269,7 +273,20 @@ class ItemCoefficients:
     right_x: int
 
     def top(self, hi_half: int) -> tuple[int, int]:
-        return self.delta_h * hi_half + self.delta_x, self.right_h * hi_half + self.right_x
+        return self.delta(hi_half), self.right(hi_half)
+
+    def delta(self, half: int) -> int:
+        """Scaled extra guard towards the left boundary of the member ``half`` wide."""
+        return self.delta_h * half + self.delta_x
+
+    def right(self, half: int) -> int:
+        """Scaled guard towards the right boundary of the member ``half`` wide."""
+        return self.right_h * half + self.right_x
+
+    @property
+    def growth(self) -> int:
+        """Most the segment's need can grow per extra half-width unit of this item."""
+        return self.body_h + self.delta_h + self.right_h
 
 
 def _lin(terms: Sequence[tuple[cp_model.LinearExpr, int]]) -> cp_model.LinearExpr:
@@ -285,19 +302,18 @@ def item_coefficients(seg: Segment, fam: Family, level_db: float | None = None) 
         return ItemCoefficients(
             0, (c.width_units + c.guard_units) * SCALE, 0, delta, 0, seg.right_need(c) * SCALE
         )
-    # A family's boundary needs are taken at its widest member (a constant per item), which
-    # keeps one row per item and family instead of one per half-width: looser by at most the
-    # difference between the top and the chosen member's edge guard.
-    g, e, hi = fam.guard_per_half(level_db), fam.edge_per_half, fam.hi_half
+    # Every need grows linearly with the half-width (guards scale with the symbol rate); the
+    # rounding up of a guard to the raster costs at most one unit, carried by the constant.
+    g, e = fam.guard_per_half(level_db), fam.edge_per_half
     if seg.left is Boundary.EDGE:
-        delta_x = _up(max(e - g, 0.0) * hi) + SCALE
-    else:
-        delta_x = seg.left_guard * SCALE
-    per_half = e if seg.right is Boundary.EDGE else g
-    extra = 0 if seg.right is Boundary.EDGE else seg.right_guard * SCALE
-    return ItemCoefficients(
-        2 * SCALE + _up(g), SCALE, 0, delta_x, 0, _up(per_half * hi) + SCALE + extra
-    )
+        delta_h, delta_x = _up(max(e - g, 0.0)), SCALE
+    else:  # max(g, left_guard) - g never exceeds the pinned neighbour's guard
+        delta_h, delta_x = 0, seg.left_guard * SCALE
+    if seg.right is Boundary.EDGE:
+        right_h, right_x = _up(e), SCALE
+    else:  # max(g, right_guard) <= g + right_guard
+        right_h, right_x = _up(g), SCALE + seg.right_guard * SCALE
+    return ItemCoefficients(2 * SCALE + _up(g), SCALE, delta_h, delta_x, right_h, right_x)
 
 
 def _segment_levels(model: cp_model.CpModel, data: PackingInput, v: _Vars) -> None:
@@ -354,16 +370,24 @@ def _capacity_row(
     delta_max = model.new_int_var(0, max(t[0] for t in tops), f"delta_{name}")
     right_max = model.new_int_var(0, max(t[1] for t in tops), f"right_{name}")
     body_terms: list[tuple[cp_model.LinearExpr, int]] = []
-    needs: dict[tuple[int, int], list[tuple[cp_model.IntVar, int, int]]] = {}
+    needs: dict[tuple[int, int], list[tuple[cp_model.LinearExpr, ItemCoefficients]]] = {}
     for c, key in zip(coefs, keys, strict=True):
         h, x = v.half[key], v.x[key]
         body_terms += [(h, c.body_h), (x, c.body_x)]
-        needs.setdefault((key[0], key[1]), []).append((x, c.delta_x, c.right_x))
-    # One row per (demand, family): at most one of its level items is chosen, so the sum
-    # is that item's own need.
+        needs.setdefault((key[0], key[1]), []).append((x, c))
+        needs[key[0], key[1]].append((h, c))
+    # One row per (demand, family): at most one of its level items is chosen (the others'
+    # x and h are 0), so the sum is that item's own need.
     for group in needs.values():
-        model.add(delta_max >= sum(d * x for x, d, _ in group))
-        model.add(right_max >= sum(r * x for x, _, r in group))
+        pairs = list(zip(group[::2], group[1::2], strict=True))
+        model.add(
+            delta_max
+            >= _lin([t for (x, c), (h, _) in pairs for t in ((x, c.delta_x), (h, c.delta_h))])
+        )
+        model.add(
+            right_max
+            >= _lin([t for (x, c), (h, _) in pairs for t in ((x, c.right_x), (h, c.right_h))])
+        )
     return _lin(body_terms) + delta_max + right_max
 
 
@@ -391,11 +415,14 @@ class StageObjective:
         for s in {k[2] for k in choice} & set(self.segment):
             seg = data.segments[s]
             coefs = [
-                item_coefficients(seg, data.options[k[0]].candidates[k[1]], data.level(k[3]))
-                for k in choice
+                (
+                    item_coefficients(seg, data.options[k[0]].candidates[k[1]], data.level(k[3])),
+                    h,
+                )
+                for k, h in choice.items()
                 if k[2] == s
             ]
-            tops = max(c.delta_x for c in coefs) + max(c.right_x for c in coefs)
+            tops = max(c.delta(h) for c, h in coefs) + max(c.right(h) for c, h in coefs)
             total += self.segment[s] * tops
         return float(total)
 
@@ -926,21 +953,20 @@ def fit_segment(
 
     spare = segment_room(data, seg, fitted)
     for key in sorted(fitted, key=value):
-        step = coefs[key].body_h
+        step = coefs[key].body_h  # narrowing frees at least this much per unit
         if spare >= 0:
             break
         if step > 0:
             cut = min(fitted[key] - fam(key).lo_half, -(spare // step))
             fitted[key] -= cut
-            spare += cut * step
+            spare = segment_room(data, seg, fitted)
     for key in sorted(fitted, key=value, reverse=True):
-        step = coefs[key].body_h
+        step = coefs[key].growth  # widening costs at most this much per unit
         if spare <= 0 or not widen:
             break
         if step > 0:
-            extra = min(fam(key).hi_half - fitted[key], spare // step)
-            fitted[key] += extra
-            spare -= extra * step
+            fitted[key] += min(fam(key).hi_half - fitted[key], spare // step)
+            spare = segment_room(data, seg, fitted)
     return fitted
 
 
@@ -954,7 +980,8 @@ def segment_room(data: PackingInput, seg: Segment, choice: Mapping[Key, int]) ->
         for key in choice
     }
     used = sum(c.body_h * choice[k] + c.body_x for k, c in coefs.items())
-    used += max(c.delta_x for c in coefs.values()) + max(c.right_x for c in coefs.values())
+    used += max(c.delta(choice[k]) for k, c in coefs.items())
+    used += max(c.right(choice[k]) for k, c in coefs.items())
     return seg.length * SCALE - used
 
 

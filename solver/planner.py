@@ -16,12 +16,21 @@ import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 
+from solver.arrangement import (
+    Arrangement,
+    admit_rest,
+    arrangement_bound,
+    from_model,
+    greedy_stretches,
+    refit,
+    to_carriers,
+)
 from solver.candidates import (
     Candidate,
     DemandOptions,
     Family,
     build_candidates,
-    candidate_for,
+    family_for,
 )
 from solver.model import (
     Carrier,
@@ -40,9 +49,9 @@ from solver.packing import (
     PackingResult,
     Segment,
     admission_weights,
-    place_segment,
     solve_packing,
 )
+from solver.spacing import Wall
 from solver.summary import (
     CAUTIONS,
     explain_unserved,
@@ -81,30 +90,41 @@ def _units(problem: Problem, freq_hz: float, *, up: bool) -> int:
     return math.ceil(value - 1e-9) if up else math.floor(value + 1e-9)
 
 
-def _segments(problem: Problem, pinned: Sequence[tuple[Carrier, Candidate]]) -> list[Segment]:
-    """Free stretches between the block edges, exclusions and pinned carriers."""
+@dataclass(frozen=True)
+class _Fixed:
+    """A carrier that does not move (pinned, or kept in place by a replan) and its family."""
+
+    carrier: Carrier
+    candidate: Candidate
+    family: Family
+
+
+def _segments(problem: Problem, fixed: Sequence[_Fixed]) -> list[Segment]:
+    """Free stretches between the block edges, exclusions and fixed carriers."""
     total = _units(problem, problem.block.stop_hz, up=False)
-    walls: list[tuple[int, int, Boundary, int]] = [
+    walls: list[tuple[int, int, Boundary, int, Wall]] = [
         (
             _units(problem, x.start_hz, up=False),
             _units(problem, x.stop_hz, up=True),
             Boundary.EDGE,
             0,
+            Wall(),
         )
         for x in problem.block.exclusions
     ]
-    for carrier, cand in pinned:
-        lo = _units(problem, carrier.lower_edge_hz, up=False)
-        hi = max(_units(problem, carrier.upper_edge_hz, up=True), lo + 1)
-        walls.append((lo, hi, Boundary.CARRIER, cand.guard_units))
-    walls.sort()
+    for f in fixed:
+        lo = _units(problem, f.carrier.lower_edge_hz, up=False)
+        hi = max(_units(problem, f.carrier.upper_edge_hz, up=True), lo + 1)
+        wall = Wall(f.family, f.family.hi_half)
+        walls.append((lo, hi, Boundary.CARRIER, f.candidate.guard_units, wall))
+    walls.sort(key=lambda w: (w[0], w[1]))
     segments: list[Segment] = []
-    cursor, left, left_guard = 0, Boundary.EDGE, 0
-    for start, stop, kind, guard in [*walls, (total, total, Boundary.EDGE, 0)]:
+    cursor, left, left_guard, left_wall = 0, Boundary.EDGE, 0, Wall()
+    for start, stop, kind, guard, wall in [*walls, (total, total, Boundary.EDGE, 0, Wall())]:
         if start > cursor:
-            segments.append(Segment(cursor, start, left, kind, left_guard, guard))
+            segments.append(Segment(cursor, start, left, kind, left_guard, guard, left_wall, wall))
         if stop >= cursor:
-            cursor, left, left_guard = stop, kind, guard
+            cursor, left, left_guard, left_wall = stop, kind, guard, wall
     return segments
 
 
@@ -113,9 +133,9 @@ def _segments(problem: Problem, pinned: Sequence[tuple[Carrier, Candidate]]) -> 
 
 def _fix_pinned(
     problem: Problem, options: dict[str, DemandOptions]
-) -> tuple[list[tuple[Carrier, Candidate]], list[Unserved]]:
+) -> tuple[list[_Fixed], list[Unserved]]:
     """Give each pinned demand its best candidate that fits at its centre, first come first."""
-    placed: list[tuple[Carrier, Candidate]] = []
+    placed: list[_Fixed] = []
     unserved: list[Unserved] = []
     for demand in sorted(
         (d for d in problem.demands if d.pinned_center_hz is not None),
@@ -124,7 +144,7 @@ def _fix_pinned(
         center = demand.pinned_center_hz
         assert center is not None
         fitting = [
-            c
+            (c, fam)
             for fam in options[demand.id].candidates
             if (c := _widest_fitting(problem, center, fam, placed)) is not None
         ]
@@ -139,15 +159,18 @@ def _fix_pinned(
             )
             unserved.append(Unserved(demand.id, reason, detail))
             continue
-        best = max(
-            fitting, key=lambda c: (min(c.throughput_bps, demand.target_rate_bps), -c.width_units)
+        best, fam = max(
+            fitting,
+            key=lambda cf: (min(cf[0].throughput_bps, demand.target_rate_bps), -cf[0].width_units),
         )
-        placed.append((Carrier(best.config, center, 0.0, 0.0), best))
+        half = best.width_units // 2
+        single = replace(fam, top=best, lo_half=half, hi_half=half)
+        placed.append(_Fixed(Carrier(best.config, center, 0.0, 0.0), best, single))
     return placed, unserved
 
 
 def _widest_fitting(
-    problem: Problem, center: float, fam: Family, placed: Sequence[tuple[Carrier, Candidate]]
+    problem: Problem, center: float, fam: Family, placed: Sequence[_Fixed]
 ) -> Candidate | None:
     """The widest member of ``fam`` (in steps of about 2 %) that fits at ``center``."""
     half = fam.hi_half
@@ -160,7 +183,7 @@ def _widest_fitting(
 
 
 def _pinned_fits(
-    problem: Problem, center: float, cand: Candidate, placed: Sequence[tuple[Carrier, Candidate]]
+    problem: Problem, center: float, cand: Candidate, placed: Sequence[_Fixed]
 ) -> bool:
     half = cand.config.allocated_bandwidth_hz / 2
     lo, hi = center - half, center + half
@@ -171,8 +194,9 @@ def _pinned_fits(
     for x in block.exclusions:
         if lo - edge < x.stop_hz and hi + edge > x.start_hz:
             return False
-    for other, other_cand in placed:
-        gap = max(cand.config.guard_hz, other_cand.config.guard_hz)
+    for f in placed:
+        other = f.carrier
+        gap = max(cand.config.guard_hz, f.candidate.config.guard_hz)
         if lo - gap < other.upper_edge_hz and hi + gap > other.lower_edge_hz:
             return False
     return True
@@ -276,19 +300,24 @@ def _hints(
 # ---------------------------------------------------------------- solve and repair
 
 
-def _place(problem: Problem, data: PackingInput, result: PackingResult) -> tuple[Carrier, ...]:
-    raster = problem.block.raster_hz
-    pack_low = problem.objective is Objective.MIN_BANDWIDTH
-    carriers: list[Carrier] = []
-    for s, picks in sorted(result.chosen.items()):
-        seg = data.segments[s]
-        picks = sorted(picks, key=lambda dkh: data.options[dkh[0]].demand.id)
-        level = data.level(result.segment_levels.get(s, 0))
-        cands = [data.options[d].candidates[k].at(h, level) for d, k, h in picks]
-        for cand, low in zip(cands, place_segment(seg, cands, pack_low=pack_low), strict=True):
-            center = problem.block.start_hz + (low + cand.width_units / 2) * raster
-            carriers.append(Carrier(cand.config, center, 0.0, 0.0))
-    return tuple(carriers)
+def _arrange(problem: Problem, data: PackingInput, result: PackingResult) -> Arrangement:
+    """The model's choice made pair-exact, with the demands it left out fitted in where room
+    allows; or the greedy admission peer when that serves more (admission first, then the
+    priority-weighted throughput)."""
+    model = from_model(data, result)
+    admit_rest(data, model)
+    greedy = greedy_stretches(data)
+    for arrangement in (model, greedy):
+        refit(arrangement, problem.objective, problem.seed)
+    if greedy.admission(data) > model.admission(data):
+        return greedy
+    if (
+        problem.objective is Objective.MAX_THROUGHPUT
+        and greedy.admission(data) == model.admission(data)
+        and greedy.value() > model.value()
+    ):
+        return greedy
+    return model
 
 
 def _raise_floors(check: Verification, floors: dict[str, float], fixed: set[str]) -> set[str]:
@@ -356,10 +385,11 @@ def _solve_and_verify(
         round_no += 1
         attempt = replace(data, options=options, time_limit_s=max(budget, 0.2), hints=hints)
         result = solve_packing(attempt, progress=progress, cancel=cancel)
-        if not result.chosen and previous is not None:
+        placed = to_carriers(problem, _arrange(problem, attempt, result))
+        if not placed and previous is not None:
             check, dropped = _drop_until_passing(problem, previous[0])
             return check, previous[1], round_no, dropped
-        check = verify_plan(problem, [*pinned, *_place(problem, attempt, result)])
+        check = verify_plan(problem, [*pinned, *placed])
         if check.passed:
             return check, result, round_no, []
         raised = _raise_floors(check, floors, fixed)
@@ -400,20 +430,20 @@ def _drop_until_passing(
 def _staying(
     problem: Problem,
     options: dict[str, DemandOptions],
-    fixed: Sequence[tuple[Carrier, Candidate]],
-) -> list[tuple[Carrier, Candidate]]:
+    fixed: Sequence[_Fixed],
+) -> list[_Fixed]:
     """Current carriers that can stay exactly as they are (highest priority first)."""
-    keep: list[tuple[Carrier, Candidate]] = []
+    keep: list[_Fixed] = []
     for demand in sorted(problem.demands, key=lambda d: (-d.priority, d.id)):
         cur = demand.current
         if cur is None or demand.pinned_center_hz is not None:
             continue
-        cand = candidate_for(
+        fam = family_for(
             problem, demand, cur.modulation, cur.code_rate, cur.rolloff, cur.symbol_rate_baud
         )
-        if cand is None or not _pinned_fits(problem, cur.center_hz, cand, [*fixed, *keep]):
+        if fam is None or not _pinned_fits(problem, cur.center_hz, fam.top, [*fixed, *keep]):
             continue
-        keep.append((Carrier(cand.config, cur.center_hz, 0.0, 0.0), cand))
+        keep.append(_Fixed(Carrier(fam.top.config, cur.center_hz, 0.0, 0.0), fam.top, fam))
     return keep
 
 
@@ -445,15 +475,41 @@ class _Outcome:
     rounds: int
 
 
+BOUND_TOLERANCE = 1e-4
+"""A plan is reported optimal when its bound lies within this fraction of it (0.01 %)."""
+
+
+def _judged(problem: Problem, data: PackingInput, carriers: Sequence[Carrier]) -> PackingResult:
+    """The plan's own figures for ``max_throughput``: its priority-weighted throughput, the
+    bound on every pair-spaced plan that serves as much (:func:`arrangement_bound`), the gap,
+    and optimal only when no plan can serve more and the bound is within the tolerance."""
+    index = {o.demand.id: d for d, o in enumerate(data.options)}
+    mine = [c for c in carriers if c.demand_id in index]
+    admitted = sum(data.admission_weights[index[c.demand_id]] for c in mine)
+    value = 0.0
+    for c in mine:
+        demand = data.options[index[c.demand_id]].demand
+        value += demand.priority * min(c.config.throughput_bps, demand.target_rate_bps)
+    bound = arrangement_bound(data, admitted)
+    if bound < value:  # the relaxation holds every plan; only rounding can put it below
+        log.warning("bound %.6g below the plan's %.6g: reported as the plan's", bound, value)
+        bound = value
+    proven = arrangement_bound(data, admitted + 1) == -math.inf
+    closed = bound - value <= BOUND_TOLERANCE * max(bound, 1.0)
+    status = SolveStatus.OPTIMAL if proven and closed else SolveStatus.FEASIBLE
+    gap = (bound - value) / max(value, 1.0)
+    return PackingResult(status, {}, {}, value, bound, gap, 0.0, "")
+
+
 def _run(
     problem: Problem,
     options: dict[str, DemandOptions],
-    fixed: Sequence[tuple[Carrier, Candidate]],
+    fixed: Sequence[_Fixed],
     early_unserved: Sequence[Unserved],
     progress: Callable[[ProgressEvent], None] | None,
     cancel: threading.Event | None,
 ) -> _Outcome:
-    fixed_ids = {c.demand_id for c, _ in fixed} | {u.demand_id for u in early_unserved}
+    fixed_ids = {f.carrier.demand_id for f in fixed} | {u.demand_id for u in early_unserved}
     free = [options[d.id] for d in problem.demands if d.id not in fixed_ids]
     segments = _segments(problem, fixed)
     data = PackingInput(
@@ -469,8 +525,17 @@ def _run(
         levels=protection_levels(free),
     )
     check, result, rounds, dropped = _solve_and_verify(
-        problem, data, [c for c, _ in fixed], progress, cancel
+        problem, data, [f.carrier for f in fixed], progress, cancel
     )
+    if problem.objective is Objective.MAX_THROUGHPUT:
+        judged = _judged(problem, data, check.carriers)
+        result = replace(
+            result,
+            status=judged.status,
+            objective_value=judged.objective_value,
+            best_bound=judged.best_bound,
+            optimality_gap=judged.optimality_gap,
+        )
     served = {c.demand_id for c in check.carriers}
     dropped_ids = {u.demand_id for u in dropped}
     explained = explain_unserved(problem, free, served | dropped_ids, segments)

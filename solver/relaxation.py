@@ -19,7 +19,14 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import optimize, sparse
 
-from solver.packing import SCALE, Key, PackingInput, StageObjective, item_coefficients
+from solver.packing import (
+    SCALE,
+    ItemCoefficients,
+    Key,
+    PackingInput,
+    StageObjective,
+    item_coefficients,
+)
 
 __all__ = ["Relaxation", "solve_relaxation", "throughput_lp_bound"]
 
@@ -180,14 +187,32 @@ def _capacity_rows(
     for s, delta in delta_col.items():
         seg = data.segments[s]
         body: list[tuple[int, float]] = []
-        groups: dict[tuple[int, int], list[tuple[int, int, int]]] = {}
+        groups: dict[tuple[int, int], list[tuple[int, ItemCoefficients]]] = {}
         for key in (k for k in keys if k[2] == s):
             j = index[key]
             fam = data.options[key[0]].candidates[key[1]]
             c = item_coefficients(seg, fam, data.level(key[3]))
             body += [(n_items + j, float(c.body_h)), (j, float(c.body_x))]
-            groups.setdefault((key[0], key[1]), []).append((j, c.delta_x, c.right_x))
+            groups.setdefault((key[0], key[1]), []).append((j, c))
         for group in groups.values():
-            rows.add([(delta, 1.0)] + [(j, -float(d)) for j, d, _ in group], 0.0, np.inf)
-            rows.add([(delta + 1, 1.0)] + [(j, -float(r)) for j, _, r in group], 0.0, np.inf)
+            rows.add(
+                [(delta, 1.0)]
+                + [
+                    t
+                    for j, c in group
+                    for t in ((j, -float(c.delta_x)), (n_items + j, -float(c.delta_h)))
+                ],
+                0.0,
+                np.inf,
+            )
+            rows.add(
+                [(delta + 1, 1.0)]
+                + [
+                    t
+                    for j, c in group
+                    for t in ((j, -float(c.right_x)), (n_items + j, -float(c.right_h)))
+                ],
+                0.0,
+                np.inf,
+            )
         rows.add([*body, (delta, 1.0), (delta + 1, 1.0)], -np.inf, float(seg.length * SCALE))

@@ -1,0 +1,391 @@
+"""Spacing from the pair: the gap two neighbours need, and widths refitted to those gaps.
+
+The packing model guards every carrier of a free segment for the segment's one protection
+level, so a robust carrier next to a robust neighbour is spaced as if it sat next to the most
+sensitive carrier of the segment.  Here the gap between two neighbours is what *that pair*
+needs: the larger of
+
+* each one's own leakage guard (its leakage ratio at the plan's limit, or at the floor
+  verification raised it to), and
+* each one's spectral skirt kept below the *other's* sensitivity (the level that keeps the
+  other's margin within its interference allowance; :func:`solver.families.mask_guard_per_baud`),
+
+and towards a block edge or exclusion the carrier's own edge guard.  Since a family's symbol
+rate, and so each of these guards, grows linearly with its half-width, the width a stretch of
+carriers in a fixed order needs is linear in the half-widths but for the maxima;
+:func:`refit_stretch` chooses the half-widths with CP-SAT (a handful of variables per carrier,
+solved in milliseconds) so that the stretch carries the most priority-weighted throughput with
+every gap exact to the raster.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+
+from ortools.sat.python import cp_model
+from scipy import optimize, sparse
+
+from solver.families import Family, mask_guard_per_baud
+
+__all__ = [
+    "Slot",
+    "Stretch",
+    "Wall",
+    "pair_gap_units",
+    "place_stretch",
+    "refit_stretch",
+    "stretch_fits",
+    "stretch_need",
+]
+
+_SCALE = 1000
+"""Guard rows are scaled by this so that per-half-width coefficients stay integers."""
+
+
+@dataclass(frozen=True)
+class Wall:
+    """What bounds a stretch on one side: a block edge or exclusion (``family`` None), or a
+    fixed carrier (pinned, or kept in place by a replan) with its family and half-width."""
+
+    family: Family | None = None
+    half: int = 0
+
+
+@dataclass(frozen=True)
+class Slot:
+    """One carrier of a stretch: its family, the half-width range it may take and its value
+    per half-width unit (priority-weighted throughput, capped at the target)."""
+
+    family: Family
+    lo_half: int
+    hi_half: int
+    value_per_half: float
+    owner: int = -1
+    """Index of the demand this slot serves (the caller's numbering)."""
+
+    def clamp(self, half: int) -> int:
+        return min(max(half, self.lo_half), self.hi_half)
+
+
+def _per_half(family: Family, per_baud: float) -> float:
+    """Raster units per half-width unit of a guard given per baud."""
+    rate_per_half = family.top.config.symbol_rate_baud / family.hi_half
+    return per_baud * rate_per_half / family.raster_hz
+
+
+def _guard_per_half(family: Family, victim: Family) -> float:
+    """Raster units per half-width unit that ``family`` needs towards neighbour ``victim``:
+    its own leakage guard, or its skirt kept below the victim's sensitivity."""
+    if family.key is None:  # a fixed test family: its own guard is all that is known
+        return family.top.guard_units / family.hi_half
+    mask = mask_guard_per_baud(family.key, victim.sensitivity_db)
+    return _per_half(family, max(family.leakage_guard_per_baud, mask))
+
+
+def _edge_per_half(family: Family) -> float:
+    return family.edge_per_half
+
+
+def _units(value: float) -> int:
+    return max(0, math.ceil(value - 1e-9))
+
+
+def pair_gap_units(left: Family, left_half: int, right: Family, right_half: int) -> int:
+    """Raster units the gap between two neighbours needs (each guard rounded up).
+
+    >>> from solver.families import Family
+    """
+    return max(
+        _units(_guard_per_half(left, right) * left_half),
+        _units(_guard_per_half(right, left) * right_half),
+    )
+
+
+def _wall_gap(wall: Wall, family: Family, half: int) -> int:
+    if wall.family is None:
+        return _units(_edge_per_half(family) * half)
+    return pair_gap_units(wall.family, wall.half, family, half)
+
+
+def stretch_need(
+    slots: Sequence[Slot], halves: Sequence[int], left: Wall, right: Wall
+) -> list[int]:
+    """The gaps (raster units) of a stretch in order: left wall, between neighbours, right
+    wall (``len(slots) + 1`` of them; ``[0]`` for an empty stretch)."""
+    if not slots:
+        return [0]
+    gaps = [_wall_gap(left, slots[0].family, halves[0])]
+    for i in range(1, len(slots)):
+        gaps.append(pair_gap_units(slots[i - 1].family, halves[i - 1], slots[i].family, halves[i]))
+    gaps.append(_wall_gap(right, slots[-1].family, halves[-1]))
+    return gaps
+
+
+def stretch_fits(
+    slots: Sequence[Slot], halves: Sequence[int], left: Wall, right: Wall, length: int
+) -> bool:
+    """Whether the carriers at ``halves`` fit a stretch of ``length`` raster units in order."""
+    return sum(stretch_need(slots, halves, left, right)) + 2 * sum(halves) <= length
+
+
+def place_stretch(
+    start: int,
+    length: int,
+    slots: Sequence[Slot],
+    halves: Sequence[int],
+    left: Wall,
+    right: Wall,
+    *,
+    spread: bool,
+) -> list[int]:
+    """Lower edges (raster units) of the carriers in order; slack at the high end, or spread
+    evenly over every gap when ``spread`` (lower leakage and interference, nothing lost)."""
+    gaps = stretch_need(slots, halves, left, right)
+    slack = length - sum(gaps) - 2 * sum(halves)
+    if slack < 0:
+        raise ValueError(f"stretch of {length} raster units overfilled by {-slack}")
+    extra = [0] * len(gaps)
+    if spread and slots:
+        share, rest = divmod(slack, len(gaps))
+        extra = [share + (1 if i < rest else 0) for i in range(len(gaps))]
+    lows, cursor = [], start
+    for i, half in enumerate(halves):
+        cursor += gaps[i] + extra[i]
+        lows.append(cursor)
+        cursor += 2 * half
+    return lows
+
+
+def refit_stretch(
+    slots: Sequence[Slot],
+    start_halves: Sequence[int],
+    left: Wall,
+    right: Wall,
+    length: int,
+    *,
+    time_limit_s: float = 1.0,
+    seed: int = 1,
+) -> list[int]:
+    """Half-widths that carry the most value in a stretch, carriers in the given order, with
+    every gap exactly what its pair needs (to the raster).
+
+    ``start_halves`` must fit (it is the hint and the fallback).  Each gap is an integer
+    variable at least each guard term (scaled coefficient times half-width, so the integer
+    gap is the guard rounded up to the raster); the stretch row is exact.
+    """
+    if not slots:
+        return []
+    model = cp_model.CpModel()
+    halves = [model.new_int_var(s.lo_half, s.hi_half, f"h{i}") for i, s in enumerate(slots)]
+    gaps = [model.new_int_var(0, length, f"g{i}") for i in range(len(slots) + 1)]
+
+    _wall_rows(model, left, slots[0].family, halves[0], gaps[0])
+    _wall_rows(model, right, slots[-1].family, halves[-1], gaps[-1])
+    for i in range(1, len(slots)):
+        a, b = slots[i - 1].family, slots[i].family
+        _at_least(model, gaps[i], _guard_per_half(a, b), halves[i - 1])
+        _at_least(model, gaps[i], _guard_per_half(b, a), halves[i])
+    model.add(sum(gaps) + 2 * sum(halves) <= length)
+    unit = max(s.value_per_half for s in slots) / 1e6 or 1.0
+    model.maximize(
+        sum(round(s.value_per_half / unit) * h for s, h in zip(slots, halves, strict=True))
+    )
+    for var, value in zip(halves, start_halves, strict=True):
+        model.add_hint(var, value)
+    solver = cp_model.CpSolver()
+    solver.parameters.max_time_in_seconds = max(0.05, time_limit_s)
+    solver.parameters.num_workers = 1
+    solver.parameters.random_seed = seed
+    solver.parameters.catch_sigint_signal = False
+    status = solver.solve(model)
+    if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
+        return list(start_halves)
+    found = [int(solver.value(h)) for h in halves]
+    if not stretch_fits(slots, found, left, right, length):  # rounding of a coefficient
+        return list(start_halves)
+    return found
+
+
+@dataclass
+class Stretch:
+    """A free segment (raster units from the block start) and its carriers in order."""
+
+    start: int
+    length: int
+    left: Wall = field(default_factory=Wall)
+    right: Wall = field(default_factory=Wall)
+    slots: list[Slot] = field(default_factory=list)
+    halves: list[int] = field(default_factory=list)
+
+    def slack(self) -> int:
+        """Raster units left over with the carriers at their half-widths."""
+        need = sum(stretch_need(self.slots, self.halves, self.left, self.right))
+        return self.length - need - 2 * sum(self.halves)
+
+    def append(self, options: Sequence[Slot]) -> bool:
+        """First fit at the high end: the first of ``options`` (cheapest first) that fits after
+        the last carrier at its narrowest, the others untouched.  Returns whether one did."""
+        spare = self.slack()
+        last = self.slots[-1] if self.slots else None
+        for slot in options:
+            if last is None:
+                need = sum(stretch_need([slot], [slot.lo_half], self.left, self.right))
+                cost = need + 2 * slot.lo_half
+            else:
+                old = _wall_gap(self.right, last.family, self.halves[-1])
+                cost = (
+                    pair_gap_units(last.family, self.halves[-1], slot.family, slot.lo_half)
+                    + 2 * slot.lo_half
+                    + _wall_gap(self.right, slot.family, slot.lo_half)
+                    - old
+                )
+            if cost <= spare:
+                self.slots.append(slot)
+                self.halves.append(slot.lo_half)
+                return True
+        return False
+
+    def insert(self, options: Sequence[Slot], *, max_positions: int = 64) -> bool:
+        """Fit one of ``options`` anywhere in the order: first with the others as they are,
+        then with every carrier narrowed to its least.  Returns whether one fitted."""
+        if len(self.slots) >= max_positions:
+            return self.append(options)
+        for narrowed in (False, True):
+            for slot in options:
+                for i in range(len(self.slots) + 1):
+                    trial = [*self.slots[:i], slot, *self.slots[i:]]
+                    base = [s.lo_half for s in self.slots] if narrowed else self.halves
+                    halves = [*base[:i], slot.lo_half, *base[i:]]
+                    if stretch_fits(trial, halves, self.left, self.right, self.length):
+                        self.slots, self.halves = trial, halves
+                        return True
+        return False
+
+    def refit(self, *, time_limit_s: float = 1.0, seed: int = 1) -> None:
+        """Half-widths that carry the most value with every gap exact (:func:`refit_stretch`)."""
+        self.halves = refit_stretch(
+            self.slots,
+            self.halves,
+            self.left,
+            self.right,
+            self.length,
+            time_limit_s=time_limit_s,
+            seed=seed,
+        )
+
+    def lows(self, *, spread: bool) -> list[int]:
+        """Lower edges (raster units from the block start) of the carriers in order."""
+        return place_stretch(
+            self.start, self.length, self.slots, self.halves, self.left, self.right, spread=spread
+        )
+
+
+def _at_least(
+    model: cp_model.CpModel, gap: cp_model.IntVar, per_half: float, half: cp_model.IntVar
+) -> None:
+    """Hard: the integer gap is at least ``per_half`` times the half-width (so, on the
+    raster, the guard rounded up; the scaled coefficient is rounded up too)."""
+    model.add(_SCALE * gap >= math.ceil(per_half * _SCALE - 1e-6) * half)
+
+
+def _wall_rows(
+    model: cp_model.CpModel, wall: Wall, family: Family, half: cp_model.IntVar, gap: cp_model.IntVar
+) -> None:
+    """Hard: the gap towards a wall is the edge guard, or the pair's need with a fixed carrier."""
+    if wall.family is None:
+        _at_least(model, gap, _edge_per_half(family), half)
+        return
+    model.add(gap >= _units(_guard_per_half(wall.family, family) * wall.half))
+    _at_least(model, gap, _guard_per_half(family, wall.family), half)
+
+
+@dataclass(frozen=True)
+class BoundItem:
+    """One (demand, family, stretch) choice of the throughput relaxation."""
+
+    owner: int
+    stretch: int
+    lo_half: int
+    hi_half: int
+    value_per_half: float
+    need_per_half: float
+    """Raster units per half-width unit that no gap next to this carrier can fall below, plus
+    its width (2): its leakage guard or its skirt below the least sensitive neighbour's level."""
+    end_per_half: float = 0.0
+    """Raster units per half-width unit of the guard towards a wall, less half the above."""
+
+
+def least_guard_per_half(family: Family, least_sensitivity_db: float) -> float:
+    """Raster units per half-width unit of the smallest guard ``family`` may ever need next to
+    any neighbour: its leakage guard, or its skirt below the least sensitive level."""
+    if family.key is None:
+        return family.top.guard_units / family.hi_half
+    mask = mask_guard_per_baud(family.key, least_sensitivity_db)
+    return _per_half(family, max(family.leakage_guard_per_baud, mask))
+
+
+def throughput_bound(
+    items: Sequence[BoundItem],
+    lengths: Sequence[int],
+    weights: Sequence[int],
+    admitted: int,
+) -> float:
+    """An upper bound on the value any pair-spaced plan can carry while serving at least
+    ``admitted`` admission weight (linear relaxation, HiGHS through scipy).
+
+    In any order each gap between neighbours is at least the mean of their least guards
+    ``a·h``, and each end gap is the end carrier's guard towards the wall ``e·h``, so a
+    stretch's gaps add up to at least Σ a·h plus, for each end, (e − a/2)·h of its end
+    carrier; that is at least twice the smallest such term over the stretch's items, taken at
+    the half-width that makes it smallest.  So a stretch holds
+    Σ (2 + a)·h ≤ length − 2·min (e − a/2)·h.  Every
+    plan :func:`refit_stretch` can make satisfies these rows, so the optimum bounds them all.
+    Returns ``-inf`` when the rows cannot serve ``admitted``.
+    """
+
+    n = len(items)
+    if n == 0:
+        return 0.0 if admitted <= 0 else -math.inf
+    rows: list[tuple[int, int, float]] = []
+    lower: list[float] = []
+    upper: list[float] = []
+
+    def row(entries: Sequence[tuple[int, float]], lo: float, hi: float) -> None:
+        r = len(lower)
+        rows.extend((r, c, v) for c, v in entries)
+        lower.append(lo)
+        upper.append(hi)
+
+    by_owner: dict[int, list[int]] = {}
+    for j, it in enumerate(items):  # columns: x_j = j, h_j = n + j
+        by_owner.setdefault(it.owner, []).append(j)
+        row([(n + j, 1.0), (j, -float(it.hi_half))], -math.inf, 0.0)
+        row([(n + j, 1.0), (j, -float(it.lo_half))], 0.0, math.inf)
+    for cols in by_owner.values():
+        row([(j, 1.0) for j in cols], 0.0, 1.0)
+    row([(j, float(weights[it.owner])) for j, it in enumerate(items)], float(admitted), math.inf)
+    for s, length in enumerate(lengths):
+        mine = [j for j, it in enumerate(items) if it.stretch == s]
+        if mine:
+            ends = min(
+                items[j].end_per_half
+                * (items[j].lo_half if items[j].end_per_half >= 0 else items[j].hi_half)
+                for j in mine
+            )
+            row([(n + j, items[j].need_per_half) for j in mine], -math.inf, length - 2 * ends)
+    r, c, v = zip(*rows, strict=True)
+    matrix = sparse.csr_array((v, (r, c)), shape=(len(lower), 2 * n))
+    cost = [0.0] * n + [-it.value_per_half for it in items]
+    result = optimize.milp(  # no integrality: the linear relaxation
+        cost,
+        constraints=optimize.LinearConstraint(matrix, lower, upper),
+        bounds=optimize.Bounds([0.0] * (2 * n), [1.0] * n + [float(it.hi_half) for it in items]),
+        options={"presolve": True},
+    )
+    if result.status == 2:
+        return -math.inf
+    if result.status != 0 or result.x is None:
+        return math.inf
+    return float(-result.fun)
