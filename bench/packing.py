@@ -1,83 +1,57 @@
-"""Packing benchmark: the optimiser against the rule-of-thumb plan, the Shannon–Nyquist bound
-and the same segment model solved by HiGHS (scipy.optimize.milp).
+"""Packing benchmark: the optimiser against the rule-of-thumb plan, the Shannon–Nyquist bound,
+a greedy admission peer and the same segment model solved by HiGHS (scipy.optimize.milp).
 
 Run by hand (not part of the test suite)::
 
     .venv/bin/python bench/packing.py                 # 12, 50 and 200 demands
     .venv/bin/python bench/packing.py --sizes 10 --width-per-demand-hz 1.9e6 \
         --implementation-loss-db 2.0          # the calibration block: 10 demands in 19 MHz
+    .venv/bin/python bench/packing.py --scenario all  # the named scenarios (bench/scenarios.py)
+    .venv/bin/python bench/packing.py --scenario all --before /tmp/bw-before
+                                              # the same table against an older checkout
 
-Scenarios are invented: a microwave operator's block shared by power-limited links (given
-C/N0) and fixed links (given Es/N0), ambitious targets (2–4 × the minimum) so that spectrum is
-the bottleneck, and one exclusion.  Settings: filter span 12 symbols, no window, linear
-transmitter, roll-offs 0.05–0.35, leakage limit 30 dB, edge limit 35 dB, coded thresholds from
-the finite-length normal approximation (n = 16 200 bits, BLER 1e-5) plus 1 dB implementation
-loss, 2 % framing overhead, 2 CP-SAT workers, fixed seed.
+The size rows: invented blocks shared by power-limited links (given C/N0) and fixed links
+(given Es/N0), ambitious targets (2–4 × the minimum) so that spectrum is the bottleneck, and
+one exclusion.  The named scenarios (over-subscribed, amplifier-limited, fragmented, base) and
+their seeds are described in ``bench/scenarios.py``; their table compares admission with the
+greedy peer of ``bench/audit.py``, throughput with the hand plan and the bound, and measures
+idle spectrum with the verifier alone.  Settings: filter span 12 symbols, no window, roll-offs
+0.05–0.35, leakage limit 30 dB, edge limit 35 dB, coded thresholds from the finite-length normal
+approximation (n = 16 200 bits, BLER 1e-5) plus 1 dB implementation loss, 2 % framing overhead,
+2 CP-SAT workers, fixed seed.
+
+The scenario table reads the solver through its public names only (``from solver import …``,
+plus the candidates' configuration check and the catalogue for the greedy peer), so it also
+runs against older checkouts; the HiGHS columns of the size rows read solver internals and can
+be switched off with ``--no-highs``.
 """
 
 from __future__ import annotations
 
 import argparse
+import hashlib
+import math
+import os
+import subprocess
+import sys
+import threading
 import time
 from dataclasses import dataclass, replace
+from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
+from audit import greedy_admission, idle_gaps, served_by_priority, served_weight
+from scenarios import SCENARIOS, WIDTH_PER_DEMAND_HZ, expand, min_rate_need_hz, scenario
 from scipy import optimize, sparse
 
-from solver import Block, Coding, Demand, Exclusion, Objective, Problem, Transmitter, solve
-from solver.candidates import build_candidates
-from solver.model import ProgressEvent
-from solver.packing import PackingInput, admission_weights, item_coefficients
-from solver.planner import _fix_pinned, _segments, protection_levels
-from solver.rules import rule_of_thumb_plan
+import solver
+from solver import Objective, Plan, Problem, ProgressEvent, SolveStatus, rule_of_thumb_plan, solve
 
-WIDTH_PER_DEMAND_HZ = 1.6e6
+if TYPE_CHECKING:
+    from solver.packing import PackingInput
 
-
-def scenario(
-    count: int,
-    seed: int = 7,
-    objective: Objective = Objective.MAX_THROUGHPUT,
-    width_per_demand_hz: float = WIDTH_PER_DEMAND_HZ,
-    implementation_loss_db: float = 1.0,
-    target_factor: tuple[float, float] = (2.0, 4.0),
-) -> Problem:
-    """An invented, oversubscribed block of ``count`` demands."""
-    rng = np.random.default_rng(seed)
-    width = width_per_demand_hz * count
-    start = 7_125e6
-    raster = 10e3 if count <= 50 else 25e3
-    mid = start + width * rng.uniform(0.3, 0.7)
-    exclusion = Exclusion(mid, mid + 0.03 * width, "protected fixed link")
-    demands = []
-    for i in range(count):
-        minimum = float(rng.uniform(0.5e6, 3e6))
-        power_limited = rng.random() < 0.6
-        demands.append(
-            Demand(
-                id=f"link-{i:03d}",
-                min_rate_bps=minimum,
-                target_rate_bps=minimum * float(rng.uniform(*target_factor)),
-                priority=int(rng.integers(1, 4)),
-                cn0_dbhz=float(rng.uniform(72, 86)) if power_limited else None,
-                esn0_db=None if power_limited else float(rng.uniform(8, 26)),
-                margin_db=float(rng.uniform(1, 4)),
-            )
-        )
-    return Problem(
-        block=Block(start, start + width, raster, (exclusion,), edge_leakage_limit_db=35.0),
-        demands=tuple(demands),
-        name=f"bench-{count}",
-        leakage_limit_db=30.0,
-        transmitter=Transmitter(
-            filter_span_symbols=12, rolloffs=(0.05, 0.1, 0.15, 0.2, 0.25, 0.35)
-        ),
-        coding=Coding(16200, 1e-5, implementation_loss_db, 0.02),
-        objective=objective,
-        time_limit_s={12: 5.0, 50: 5.0, 200: 20.0}.get(count, 10.0),
-        num_workers=2,
-        seed=1,
-    )
+__all__ = ["WIDTH_PER_DEMAND_HZ", "scenario"]
 
 
 # ---------------------------------------------------------------- HiGHS peer
@@ -93,7 +67,16 @@ class HighsResult:
 
 
 def packing_input(problem: Problem) -> PackingInput:
-    """The same PackingInput the planner builds for a fresh plan (no pins, no verification)."""
+    """The same PackingInput the planner builds for a fresh plan (no pins, no verification).
+
+    Reads solver internals (``solver.planner._fix_pinned``, ``_segments``,
+    ``protection_levels``, ``solver.packing``): imported here, so that when they move only the
+    HiGHS columns are lost (``--no-highs`` skips them).
+    """
+    from solver.candidates import build_candidates
+    from solver.packing import PackingInput, admission_weights
+    from solver.planner import _fix_pinned, _segments, protection_levels
+
     options = {d.id: build_candidates(problem, d) for d in problem.demands}
     pinned, _ = _fix_pinned(problem, options)
     free = [options[d.id] for d in problem.demands]
@@ -152,6 +135,8 @@ def solve_with_highs(data: PackingInput, time_limit_s: float) -> HighsResult:
     (solver.packing.item_coefficients): per item x (binary) and h (integer half-width), per
     segment one binary per protection level and per-level capacity rows (big-M), the same
     objective order (admission first, then priority-weighted capped throughput)."""
+    from solver.packing import item_coefficients
+
     m = _Milp()
     target_total = sum(o.demand.priority * o.demand.target_rate_bps for o in data.options) / 1e6
     items: dict[tuple[int, int, int], tuple[int, int]] = {}
@@ -215,11 +200,30 @@ def solve_with_highs(data: PackingInput, time_limit_s: float) -> HighsResult:
     return HighsResult(elapsed, status, throughput, served, gap)
 
 
-# ---------------------------------------------------------------- report
+# ---------------------------------------------------------------- size rows
+
+
+def _highs_columns(problem: Problem) -> dict[str, object]:
+    """HiGHS on the same segment model; 'n/a' and the reason when solver internals moved."""
+    try:
+        data = packing_input(problem)
+        highs = solve_with_highs(data, problem.time_limit_s)
+    except (ImportError, AttributeError, TypeError) as exc:
+        return {"highs_status": f"n/a ({type(exc).__name__}: {exc})"}
+    return {
+        "highs_s": highs.time_s,
+        "highs_status": highs.status,
+        "highs_gap": highs.gap,
+        "highs_thr_Mbps": highs.throughput_bps / 1e6,
+    }
 
 
 def _row(
-    count: int, width_per_demand_hz: float, loss_db: float, target_factor: tuple[float, float]
+    count: int,
+    width_per_demand_hz: float,
+    loss_db: float,
+    target_factor: tuple[float, float],
+    with_highs: bool,
 ) -> dict[str, object]:
     problem = scenario(
         count,
@@ -246,10 +250,8 @@ def _row(
             demands=tuple(replace(d, target_rate_bps=d.min_rate_bps) for d in problem.demands),
         )
     )
-    data = packing_input(problem)
-    highs = solve_with_highs(data, problem.time_limit_s)
     s = plan.summary
-    return {
+    row: dict[str, object] = {
         "demands": count,
         "block_MHz": problem.block.width_hz / 1e6,
         "wall_s": wall,
@@ -268,28 +270,239 @@ def _row(
         "minbw_served": len(lean.carriers),
         "hand_min_used_MHz": hand_min.summary.used_bandwidth_hz / 1e6,
         "hand_min_served": len(hand_min.carriers),
-        "highs_s": highs.time_s,
-        "highs_status": highs.status,
-        "highs_gap": highs.gap,
-        "highs_thr_Mbps": highs.throughput_bps / 1e6,
-        "rounds": plan.stats.verification_rounds,
+    }
+    if with_highs:
+        row.update(_highs_columns(problem))
+    row["rounds"] = plan.stats.verification_rounds
+    return row
+
+
+# ---------------------------------------------------------------- scenario rows
+
+
+@dataclass(frozen=True)
+class _Timed:
+    """A solve with the times the progress callback saw."""
+
+    plan: Plan
+    wall_s: float
+    first_event_s: float  # first improving packing solution (before verification); NaN: none
+
+
+def _timed_solve(problem: Problem, *, stop_at_first: bool = False) -> _Timed:
+    """``solve`` with the wall time and the time of its first progress event (from the call).
+
+    With ``stop_at_first`` the cancel event is set on that first event, so ``solve`` returns
+    the first solution after verification (and repair, which a cancelled solve does by leaving
+    out the carriers to blame): its wall time is the time to a first verified plan.
+    """
+    cancel = threading.Event()
+    first: list[float] = []
+    started = time.perf_counter()
+
+    def note(_: ProgressEvent) -> None:
+        if not first:
+            first.append(time.perf_counter() - started)
+            if stop_at_first:
+                cancel.set()
+
+    plan = solve(problem, progress=note, cancel=cancel)
+    wall = time.perf_counter() - started
+    return _Timed(plan, wall, first[0] if first else math.nan)
+
+
+def _proof(timed: _Timed) -> str:
+    stats = timed.plan.stats
+    if timed.plan.status is SolveStatus.OPTIMAL:
+        return f"{timed.wall_s:.1f} s"
+    if timed.plan.status is SolveStatus.INFEASIBLE:
+        return "no plan"
+    if math.isfinite(stats.optimality_gap):
+        return f"not proven (gap {stats.optimality_gap:.2%})"
+    return "not proven (no bound)"
+
+
+@dataclass(frozen=True)
+class _Idle:
+    percent: float  # closable, % of the block, over the idle gaps
+    beyond_guard_percent: float  # the part beyond the configurations' own guards
+    gaps: int
+    short: int  # demands below target next to an idle gap
+    verify_calls: int
+
+    def cell(self) -> str:
+        return f"{self.percent:.2f} ({self.gaps}; {self.beyond_guard_percent:.2f} beyond guards)"
+
+
+def _idle(problem: Problem, plan: Plan) -> _Idle:
+    gaps = idle_gaps(problem, plan)
+    idle = [g for g in gaps if g.idle]
+    width = problem.block.width_hz
+    return _Idle(
+        100 * sum(g.closable_hz for g in idle) / width,
+        100 * sum(g.beyond_guard_hz for g in idle) / width,
+        len(idle),
+        len({d for g in idle for d in g.below_target}),
+        sum(g.verify_calls for g in gaps),
+    )
+
+
+def _scenario_row(name: str, seed: int, time_limit_s: float | None) -> dict[str, object]:
+    started = time.perf_counter()
+    problem = SCENARIOS[name].build(seed)
+    if time_limit_s is not None:
+        problem = replace(problem, time_limit_s=time_limit_s)
+    need = min_rate_need_hz(problem) / problem.block.usable_width_hz  # also builds the profiles
+    solve(replace(problem, time_limit_s=0.5))  # warm-up: both timed solves see the same caches
+    setup = time.perf_counter() - started
+    full = _timed_solve(problem)
+    early = _timed_solve(problem, stop_at_first=True)
+    hand = rule_of_thumb_plan(problem)
+    greedy = greedy_admission(problem)
+    ours = {c.demand_id for c in full.plan.carriers}
+    peer = {c.demand_id for c in greedy.carriers}
+    total = served_weight(problem, (d.id for d in problem.demands))
+    idle, hand_idle = _idle(problem, full.plan), _idle(problem, hand)
+    s, h = full.plan.summary, hand.summary
+    thr = s.total_throughput_bps
+    return {
+        "scenario": name,
+        "seed": seed,
+        "problem": hashlib.sha1(repr(problem).encode()).hexdigest()[:8],
+        "demands": len(problem.demands),
+        "block_MHz": problem.block.width_hz / 1e6,
+        "need_x": need,
+        "limit_s": problem.time_limit_s,
+        "status": full.plan.status.value,
+        "proof": _proof(full),
+        "first_sol_s": full.first_event_s,
+        "first_verified_s": early.wall_s,
+        "first_thr_pct": 100 * early.plan.summary.total_throughput_bps / max(thr, 1.0),
+        "weight_pct": 100 * served_weight(problem, ours) / total,
+        "greedy_weight_pct": 100 * served_weight(problem, peer) / total,
+        "weight_vs_greedy": served_weight(problem, ours) / max(served_weight(problem, peer), 1.0),
+        "served_by_prio": served_by_priority(problem, ours),
+        "greedy_by_prio": served_by_priority(problem, peer),
+        "thr_Mbps": thr / 1e6,
+        "hand_thr_Mbps": h.total_throughput_bps / 1e6,
+        "thr_vs_hand": thr / max(h.total_throughput_bps, 1.0),
+        "bound_Mbps": s.shannon_bound_bps / 1e6,
+        "eff_vs_bound": s.efficiency_vs_bound,
+        "hand_eff": h.efficiency_vs_bound,
+        "idle_pct": idle.cell(),
+        "hand_idle_pct": hand_idle.cell(),
+        "short_by_idle": idle.short,
+        "free_pct": 100 * s.free_bandwidth_hz / problem.block.width_hz,
+        "rounds": full.plan.stats.verification_rounds,
+        "audit_calls": idle.verify_calls + hand_idle.verify_calls + greedy.verify_calls,
+        "setup_s": setup,
+        "run_s": time.perf_counter() - started,
     }
 
 
-def main() -> None:
+SCENARIO_LEGEND = """\
+problem: first 8 hex digits of the SHA-1 of the problem's repr (same digest, same problem).
+need_x: minimum-rate need / usable width (narrowest footprint = allocated width + guard, summed,
+  with the guards of the solver measured).
+proof: wall time of solve() when the plan is optimal; else the gap at the time limit.
+first_sol_s: solve() call to its first progress event = first improving packing solution,
+  NOT yet verified.  first_verified_s: wall time of a second solve() cancelled at that first
+  event, i.e. the first solution after placement, verification and (cancelled) repair;
+  first_thr_pct: its throughput as % of the full plan's.  Emission profiles and caches are
+  built before either solve (setup_s: footprint pass + a 0.5 s warm-up solve).
+weight_pct: sum(priority x min rate) over served demands, % of all demands; greedy: the
+  verifier-checked first-fit peer (bench/audit.py); weight_vs_greedy: ours / greedy.
+served_by_prio: served/total per priority, highest first.
+idle_pct: gaps the verifier lets close by sliding carriers down (bench/audit.py idle_gaps),
+  % of the block, only gaps closable by more than one raster step; (n) such gaps; "beyond
+  guards": the part of it outside the guards the carriers' own configurations ask for (the
+  rest is guard the verifier does not need).  hand_idle_pct: the same for the hand plan.
+short_by_idle: demands below their target next to an idle gap.  free_pct: the plan summary's
+  free spectrum, % of the block.  audit_calls: verify_plan calls of the idle audit and greedy.
+"""
+
+
+# ---------------------------------------------------------------- output
+
+
+def _table(rows: list[dict[str, object]]) -> None:
+    keys = list(dict.fromkeys(k for row in rows for k in row))
+    print("| " + " | ".join(keys) + " |")
+    print("|" + "---|" * len(keys))
+    for row in rows:
+        cells = [
+            f"{v:.3g}" if isinstance(v, float) else str(v) for v in (row.get(k, "") for k in keys)
+        ]
+        print("| " + " | ".join(cells) + " |")
+
+
+def _solver_origin() -> str:
+    """Where ``solver`` was imported from, with its commit and whether solver/ is modified."""
+    root = Path(solver.__file__).resolve().parent.parent
+    try:
+        commit = subprocess.run(
+            ["git", "-C", str(root), "rev-parse", "--short", "HEAD"],
+            capture_output=True,
+            text=True,
+            check=True,
+        ).stdout.strip()
+        dirty = subprocess.run(
+            ["git", "-C", str(root), "status", "--porcelain", "--", "solver"],
+            capture_output=True,
+            text=True,
+            check=True,
+        ).stdout.strip()
+    except (OSError, subprocess.CalledProcessError):
+        return f"solver from {root} (no git)"
+    return f"solver from {root} at {commit}" + (" + uncommitted changes" if dirty else "")
+
+
+def _rerun_with(before: str, argv: list[str]) -> int:
+    """Run this script again with ``before`` first on PYTHONPATH (its solver, this bench)."""
+    rest, skip = [], False
+    for arg in argv:
+        if skip:
+            skip = False
+        elif arg == "--before":
+            skip = True
+        elif not arg.startswith("--before="):
+            rest.append(arg)
+    path = [str(Path(before).resolve()), os.environ.get("PYTHONPATH", "")]
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join(p for p in path if p))
+    return subprocess.run([sys.executable, __file__, *rest], env=env, check=False).returncode
+
+
+def _parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    parser.add_argument("--sizes", type=int, nargs="+", default=[12, 50, 200])
+    parser.add_argument(
+        "--sizes", type=int, nargs="+", help="size rows (default 12 50 200 without --scenario)"
+    )
+    parser.add_argument(
+        "--scenario",
+        nargs="+",
+        metavar="NAME",
+        help="named scenarios: " + ", ".join([*SCENARIOS, "amplifier", "all"]),
+    )
+    parser.add_argument("--seed", type=int, help="override every named scenario's own seed")
+    parser.add_argument("--time-limit-s", type=float, help="override the scenarios' time limit")
+    parser.add_argument(
+        "--repeats", type=int, default=1, help="rows per named scenario (each a fresh run)"
+    )
+    parser.add_argument("--no-highs", action="store_true", help="skip the HiGHS columns")
+    parser.add_argument(
+        "--before", metavar="PATH", help="run against the solver of another checkout"
+    )
     parser.add_argument(
         "--width-per-demand-hz",
         type=float,
         default=WIDTH_PER_DEMAND_HZ,
-        help="block width / demands",
+        help="size rows: block width / demands",
     )
     parser.add_argument(
         "--implementation-loss-db",
         type=float,
         default=1.0,
-        help="added to every coded threshold",
+        help="size rows: added to every coded threshold",
     )
     parser.add_argument(
         "--target-factor",
@@ -297,20 +510,40 @@ def main() -> None:
         nargs=2,
         default=(2.0, 4.0),
         metavar=("LOW", "HIGH"),
-        help="targets are the minimum rate times a factor drawn from [LOW, HIGH]",
+        help="size rows: targets are the minimum rate times a factor drawn from [LOW, HIGH]",
     )
+    return parser
+
+
+def main() -> int:
+    parser = _parser()
     args = parser.parse_args()
-    factor = (args.target_factor[0], args.target_factor[1])
-    rows = [
-        _row(n, args.width_per_demand_hz, args.implementation_loss_db, factor) for n in args.sizes
-    ]
-    keys = list(rows[0])
-    print("| " + " | ".join(keys) + " |")
-    print("|" + "---|" * len(keys))
-    for row in rows:
-        cells = [f"{v:.3g}" if isinstance(v, float) else str(v) for v in row.values()]
-        print("| " + " | ".join(cells) + " |")
+    if args.before:
+        return _rerun_with(args.before, sys.argv[1:])
+    try:
+        names = expand(args.scenario) if args.scenario else []
+    except ValueError as exc:
+        parser.error(str(exc))
+    sizes = args.sizes if args.sizes or names else [12, 50, 200]
+    print(f"<!-- {_solver_origin()}; load average {os.getloadavg()[0]:.2f} at start -->")
+    if sizes:
+        factor = (args.target_factor[0], args.target_factor[1])
+        loss = args.implementation_loss_db
+        width = args.width_per_demand_hz
+        _table([_row(n, width, loss, factor, not args.no_highs) for n in sizes])
+    if names:
+        rows = []
+        for name in names:
+            seed = SCENARIOS[name].seed if args.seed is None else args.seed
+            for run in range(1, args.repeats + 1):
+                row = _scenario_row(name, seed, args.time_limit_s)
+                rows.append({"scenario": name, "run": run, **row})
+        _table(rows)
+        print()
+        print(SCENARIO_LEGEND)
+    print(f"<!-- load average {os.getloadavg()[0]:.2f} at end -->")
+    return 0
 
 
 if __name__ == "__main__":
-    main()
+    sys.exit(main())
