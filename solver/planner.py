@@ -23,6 +23,7 @@ from solver.arrangement import (
     from_model,
     greedy_stretches,
     refit,
+    tighten,
     to_carriers,
 )
 from solver.candidates import (
@@ -309,15 +310,14 @@ def _arrange(problem: Problem, data: PackingInput, result: PackingResult) -> Arr
     greedy = greedy_stretches(data)
     for arrangement in (model, greedy):
         refit(arrangement, problem.objective, problem.seed)
-    if greedy.admission(data) > model.admission(data):
-        return greedy
-    if (
+    better = greedy.admission(data) > model.admission(data) or (
         problem.objective is Objective.MAX_THROUGHPUT
         and greedy.admission(data) == model.admission(data)
         and greedy.value() > model.value()
-    ):
-        return greedy
-    return model
+    )
+    chosen = greedy if better else model
+    tighten(problem, chosen)
+    return chosen
 
 
 def _raise_floors(check: Verification, floors: dict[str, float], fixed: set[str]) -> set[str]:

@@ -21,7 +21,7 @@ every gap exact to the raster.
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
 from ortools.sat.python import cp_model
@@ -33,6 +33,8 @@ __all__ = [
     "Slot",
     "Stretch",
     "Wall",
+    "leakage_units",
+    "pair_gap_raw",
     "pair_gap_units",
     "place_stretch",
     "refit_stretch",
@@ -84,6 +86,13 @@ def _guard_per_half(family: Family, victim: Family) -> float:
     return _per_half(family, max(family.leakage_guard_per_baud, mask))
 
 
+def leakage_units(family: Family, half: int) -> float:
+    """Raster units (not rounded) of ``family``'s own leakage-ratio guard at ``half``."""
+    if family.key is None:
+        return float(family.top.guard_units) * half / family.hi_half
+    return _per_half(family, family.leakage_guard_per_baud) * half
+
+
 def _edge_per_half(family: Family) -> float:
     return family.edge_per_half
 
@@ -92,15 +101,21 @@ def _units(value: float) -> int:
     return max(0, math.ceil(value - 1e-9))
 
 
-def pair_gap_units(left: Family, left_half: int, right: Family, right_half: int) -> int:
-    """Raster units the gap between two neighbours needs (each guard rounded up).
+Scales = Mapping[tuple[int, int], float]
+"""Per pair of neighbours (owners, low then high): the share of the spectral-mask gap the pair
+really needs, measured by the verifier's own rule (:class:`solver.verify.PairCheck`)."""
 
-    >>> from solver.families import Family
-    """
-    return max(
-        _units(_guard_per_half(left, right) * left_half),
-        _units(_guard_per_half(right, left) * right_half),
-    )
+
+def pair_gap_raw(left: Family, left_half: int, right: Family, right_half: int) -> float:
+    """Raster units (not rounded) of the spectral-mask gap between two neighbours."""
+    return max(_guard_per_half(left, right) * left_half, _guard_per_half(right, left) * right_half)
+
+
+def pair_gap_units(
+    left: Family, left_half: int, right: Family, right_half: int, scale: float = 1.0
+) -> int:
+    """Raster units the gap between two neighbours needs (rounded up), times ``scale``."""
+    return _units(pair_gap_raw(left, left_half, right, right_half) * scale)
 
 
 def _wall_gap(wall: Wall, family: Family, half: int) -> int:
@@ -110,7 +125,11 @@ def _wall_gap(wall: Wall, family: Family, half: int) -> int:
 
 
 def stretch_need(
-    slots: Sequence[Slot], halves: Sequence[int], left: Wall, right: Wall
+    slots: Sequence[Slot],
+    halves: Sequence[int],
+    left: Wall,
+    right: Wall,
+    scales: Scales | None = None,
 ) -> list[int]:
     """The gaps (raster units) of a stretch in order: left wall, between neighbours, right
     wall (``len(slots) + 1`` of them; ``[0]`` for an empty stretch)."""
@@ -118,16 +137,23 @@ def stretch_need(
         return [0]
     gaps = [_wall_gap(left, slots[0].family, halves[0])]
     for i in range(1, len(slots)):
-        gaps.append(pair_gap_units(slots[i - 1].family, halves[i - 1], slots[i].family, halves[i]))
+        a, b = slots[i - 1], slots[i]
+        scale = (scales or {}).get((a.owner, b.owner), 1.0)
+        gaps.append(pair_gap_units(a.family, halves[i - 1], b.family, halves[i], scale))
     gaps.append(_wall_gap(right, slots[-1].family, halves[-1]))
     return gaps
 
 
 def stretch_fits(
-    slots: Sequence[Slot], halves: Sequence[int], left: Wall, right: Wall, length: int
+    slots: Sequence[Slot],
+    halves: Sequence[int],
+    left: Wall,
+    right: Wall,
+    length: int,
+    scales: Scales | None = None,
 ) -> bool:
     """Whether the carriers at ``halves`` fit a stretch of ``length`` raster units in order."""
-    return sum(stretch_need(slots, halves, left, right)) + 2 * sum(halves) <= length
+    return sum(stretch_need(slots, halves, left, right, scales)) + 2 * sum(halves) <= length
 
 
 def place_stretch(
@@ -139,10 +165,11 @@ def place_stretch(
     right: Wall,
     *,
     spread: bool,
+    scales: Scales | None = None,
 ) -> list[int]:
     """Lower edges (raster units) of the carriers in order; slack at the high end, or spread
     evenly over every gap when ``spread`` (lower leakage and interference, nothing lost)."""
-    gaps = stretch_need(slots, halves, left, right)
+    gaps = stretch_need(slots, halves, left, right, scales)
     slack = length - sum(gaps) - 2 * sum(halves)
     if slack < 0:
         raise ValueError(f"stretch of {length} raster units overfilled by {-slack}")
@@ -167,6 +194,7 @@ def refit_stretch(
     *,
     time_limit_s: float = 1.0,
     seed: int = 1,
+    scales: Scales | None = None,
 ) -> list[int]:
     """Half-widths that carry the most value in a stretch, carriers in the given order, with
     every gap exactly what its pair needs (to the raster).
@@ -185,8 +213,9 @@ def refit_stretch(
     _wall_rows(model, right, slots[-1].family, halves[-1], gaps[-1])
     for i in range(1, len(slots)):
         a, b = slots[i - 1].family, slots[i].family
-        _at_least(model, gaps[i], _guard_per_half(a, b), halves[i - 1])
-        _at_least(model, gaps[i], _guard_per_half(b, a), halves[i])
+        scale = (scales or {}).get((slots[i - 1].owner, slots[i].owner), 1.0)
+        _at_least(model, gaps[i], _guard_per_half(a, b) * scale, halves[i - 1])
+        _at_least(model, gaps[i], _guard_per_half(b, a) * scale, halves[i])
     model.add(sum(gaps) + 2 * sum(halves) <= length)
     unit = max(s.value_per_half for s in slots) / 1e6 or 1.0
     model.maximize(
@@ -203,7 +232,7 @@ def refit_stretch(
     if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
         return list(start_halves)
     found = [int(solver.value(h)) for h in halves]
-    if not stretch_fits(slots, found, left, right, length):  # rounding of a coefficient
+    if not stretch_fits(slots, found, left, right, length, scales):  # a rounded coefficient
         return list(start_halves)
     return found
 
@@ -218,10 +247,11 @@ class Stretch:
     right: Wall = field(default_factory=Wall)
     slots: list[Slot] = field(default_factory=list)
     halves: list[int] = field(default_factory=list)
+    scales: dict[tuple[int, int], float] = field(default_factory=dict)
 
     def slack(self) -> int:
         """Raster units left over with the carriers at their half-widths."""
-        need = sum(stretch_need(self.slots, self.halves, self.left, self.right))
+        need = sum(stretch_need(self.slots, self.halves, self.left, self.right, self.scales))
         return self.length - need - 2 * sum(self.halves)
 
     def append(self, options: Sequence[Slot]) -> bool:
@@ -273,12 +303,23 @@ class Stretch:
             self.length,
             time_limit_s=time_limit_s,
             seed=seed,
+            scales=self.scales,
         )
+
+    def fits(self, halves: Sequence[int]) -> bool:
+        return stretch_fits(self.slots, halves, self.left, self.right, self.length, self.scales)
 
     def lows(self, *, spread: bool) -> list[int]:
         """Lower edges (raster units from the block start) of the carriers in order."""
         return place_stretch(
-            self.start, self.length, self.slots, self.halves, self.left, self.right, spread=spread
+            self.start,
+            self.length,
+            self.slots,
+            self.halves,
+            self.left,
+            self.right,
+            spread=spread,
+            scales=self.scales,
         )
 
 

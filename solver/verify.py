@@ -28,6 +28,7 @@ from solver.model import Carrier, Problem
 
 __all__ = [
     "INTERFERENCE_ALLOWANCE_DB",
+    "PairCheck",
     "Verification",
     "Violation",
     "ViolationKind",
@@ -262,6 +263,61 @@ def _interference(
             )
         out.append(replace(v, c_over_i_db=c_over_i, margin_after_interference_db=margin_after))
     return out, found
+
+
+NEIGHBOUR_SHARE_DB = 10.0 * math.log10(2.0)
+"""A victim's interference allowance is shared by its two neighbours (3 dB each)."""
+
+
+class PairCheck:
+    """The interference rule of :func:`verify_plan` for two neighbours alone: each must keep
+    its interference into the other's matched filter within half the other's allowance.
+
+    :meth:`gap_units` finds the smallest gap (raster units) at which both hold, by bisection
+    between 0 and an upper bound known to pass; the leakage-ratio guards are the caller's.
+    """
+
+    def __init__(self, problem: Problem) -> None:
+        self.problem = problem
+        self.levels = {d.id: 10.0 ** (d.relative_level_db / 10.0) for d in problem.demands}
+        self.floors = {d.id: d.margin_db - INTERFERENCE_ALLOWANCE_DB for d in problem.demands}
+
+    def _emitter(self, carrier: Carrier) -> _Emitter:
+        return _Emitter.of(self.problem, carrier, self.levels[carrier.demand_id])
+
+    def _passes(self, low: Carrier, high: Carrier, gap_hz: float) -> bool:
+        centre = low.upper_edge_hz + gap_hz + high.config.allocated_bandwidth_hz / 2
+        high = replace(high, center_hz=centre)
+        pair = [self._emitter(low), self._emitter(high)]
+        for victim, other in ((pair[0], pair[1]), (pair[1], pair[0])):
+            cfg = victim.carrier.config
+            signal, powers = _received(self.problem, victim, [victim, other])
+            interference = powers.get(other.carrier.demand_id, 0.0)
+            if interference <= 0:
+                continue
+            floor = self.floors[victim.carrier.demand_id]
+            needed = _needed_c_over_i_db(cfg.esn0_db, cfg.required_esn0_db, floor)
+            if 10.0 * math.log10(signal / interference) < needed + NEIGHBOUR_SHARE_DB:
+                return False
+        return True
+
+    def gap_units(self, low: Carrier, high: Carrier, upper_units: int) -> int:
+        """Smallest gap in raster units (at most ``upper_units``) at which both pass."""
+        raster = self.problem.block.raster_hz
+        if self._passes(low, high, 0.0):
+            return 0
+        lo, hi = 0, max(upper_units, 1)
+        while not self._passes(low, high, hi * raster):
+            if hi > 1_000_000:
+                return upper_units
+            lo, hi = hi, 2 * hi
+        while hi - lo > 1:
+            mid = (lo + hi) // 2
+            if self._passes(low, high, mid * raster):
+                hi = mid
+            else:
+                lo = mid
+        return hi
 
 
 def verify_plan(problem: Problem, carriers: Sequence[Carrier]) -> Verification:

@@ -1,4 +1,5 @@
-"""Fixtures shared by every test under tests/."""
+"""Fixtures shared by every test and doctest (kept at the root: a second conftest.py under
+tests/ would clash with tests/api/conftest.py in the doctest collection)."""
 
 from __future__ import annotations
 
