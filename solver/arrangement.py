@@ -20,16 +20,20 @@ import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 
+from solver.families import Family
 from solver.model import Carrier, Objective, Problem
 from solver.packing import PackingInput, PackingResult, Segment
 from solver.spacing import (
     BoundItem,
+    PairMeasure,
     Slot,
     Stretch,
     Wall,
+    fill_grid,
     leakage_units,
     least_guard_per_half,
     pair_gap_raw,
+    regrid,
     throughput_bound,
 )
 from solver.verify import PairCheck
@@ -40,6 +44,7 @@ __all__ = [
     "arrangement_bound",
     "from_model",
     "greedy_stretches",
+    "pair_measure",
     "to_carriers",
 ]
 
@@ -68,21 +73,54 @@ class Arrangement:
         )
 
 
-def _slot(data: PackingInput, d: int, k: int) -> Slot:
-    fam = data.options[d].candidates[k]
+FINE = 4
+"""Grid steps per raster step for widths and gaps in this stage: a carrier's centre sits on the
+raster, its width need not fill an even number of raster steps (a modem's symbol rate is set
+far more finely than the channel raster)."""
+
+
+def _slot(data: PackingInput, d: int, k: int) -> Slot | None:
+    """Family ``k`` of demand ``d`` on the fine grid, each width filled by its symbol rate,
+    from the width that carries the minimum rate to the one that carries the target
+    (:func:`~solver.spacing.fill_grid`); None if it cannot close the link there."""
     demand = data.options[d].demand
+    fam = fill_grid(
+        data.options[d].candidates[k],
+        FINE,
+        demand.min_rate_bps,
+        demand.target_rate_bps,
+        demand.margin_db,
+    )
+    if fam is None:
+        return None
     per_half = min(fam.throughput_per_half_bps, demand.target_rate_bps / fam.hi_half)
     return Slot(fam, fam.lo_half, fam.hi_half, data.priorities[d] * per_half, d)
 
 
 def _choices(data: PackingInput, d: int) -> list[Slot]:
     """A demand's families as slots, the least spectrum at the narrowest first."""
-    slots = [_slot(data, d, k) for k in range(len(data.options[d].candidates))]
+    found = (_slot(data, d, k) for k in range(len(data.options[d].candidates)))
+    slots = [s for s in found if s is not None]
     return sorted(slots, key=lambda s: 2 * s.lo_half + s.family.at(s.lo_half).guard_units)
 
 
+def _fine_wall(wall: Wall) -> Wall:
+    if wall.family is None:
+        return wall
+    return Wall(regrid(wall.family, FINE), wall.half * FINE)
+
+
 def _empty(segments: Sequence[Segment]) -> list[Stretch]:
-    return [Stretch(s.start, s.length, s.left_wall, s.right_wall) for s in segments]
+    return [
+        Stretch(
+            FINE * s.start,
+            FINE * s.length,
+            _fine_wall(s.left_wall),
+            _fine_wall(s.right_wall),
+            fine=FINE,
+        )
+        for s in segments
+    ]
 
 
 def from_model(data: PackingInput, result: PackingResult) -> Arrangement:
@@ -97,9 +135,28 @@ def from_model(data: PackingInput, result: PackingResult) -> Arrangement:
             return data.options[d].candidates[k].at(h, lv).guard_units, data.options[d].demand.id
 
         for d, k, h in sorted(picks, key=order):
-            stretches[s].slots.append(_slot(data, d, k))
-            stretches[s].halves.append(h)
+            slot = _slot(data, d, k)
+            if slot is not None:
+                stretches[s].slots.append(slot)
+                stretches[s].halves.append(slot.clamp(h * FINE))
+    for st in stretches:
+        _settle(data, st)
     return Arrangement(stretches)
+
+
+def _settle(data: PackingInput, stretch: Stretch) -> None:
+    """Make the model's choice fit the fine grid: widths filled by their symbol rates and
+    guards rounded finer can differ from the model's by a grid step; if the stretch overflows,
+    its carriers go to their least widths, and the lowest priority leaves while it still does."""
+    if stretch.fits(stretch.halves):
+        return
+    stretch.halves = [slot.lo_half for slot in stretch.slots]
+    while stretch.slots and not stretch.fits(stretch.halves):
+        worst = min(
+            range(len(stretch.slots)),
+            key=lambda i: (data.admission_weights[stretch.slots[i].owner], -i),
+        )
+        del stretch.slots[worst], stretch.halves[worst]
 
 
 def _by_priority(data: PackingInput, owners: set[int]) -> list[int]:
@@ -119,19 +176,50 @@ def admit_rest(data: PackingInput, arrangement: Arrangement) -> list[int]:
     return admitted
 
 
-def greedy_stretches(data: PackingInput) -> Arrangement:
+def greedy_stretches(data: PackingInput, measure: PairMeasure | None = None) -> Arrangement:
     """The admission peer: demands in priority order (ties by id), each at its narrowest
-    family that still fits, first fit from the low end of the block."""
+    family that still fits, first fit from the low end of the block; with ``measure``
+    (:func:`pair_measure`), at the gap the pair really needs where the mask gap is too wide."""
     arrangement = Arrangement(_empty(data.segments))
     for d in _by_priority(data, set()):
         choices = _choices(data, d)
-        any(st.append(choices) for st in arrangement.stretches)
+        any(st.append(choices, measure) for st in arrangement.stretches)
     return arrangement
+
+
+def pair_measure(problem: Problem) -> PairMeasure:
+    """The verifier's interference rule for two neighbours alone (:class:`PairCheck`), as the
+    share of the spectral-mask gap the pair needs (never below either leakage guard);
+    remembered per pair of configurations."""
+    check = PairCheck(problem)
+    seen: dict[tuple[Family, int, Family, int], float] = {}
+
+    def measure(a: Slot, ha: int, b: Slot, hb: int) -> float:
+        key = (a.family, ha, b.family, hb)
+        if key not in seen:
+            seen[key] = _pair_scale(check, a.family, ha, b.family, hb)
+        return seen[key]
+
+    return measure
+
+
+def _pair_scale(check: PairCheck, a: Family, ha: int, b: Family, hb: int) -> float:
+    raw = pair_gap_raw(a, ha, b, hb)
+    if raw <= 0 or a.key is None or b.key is None:
+        return 1.0
+    leak = max(leakage_units(a, ha), leakage_units(b, hb))
+    low = Carrier(a.at(ha).config, 0.0, 0.0, 0.0)
+    high = Carrier(b.at(hb).config, 0.0, 0.0, 0.0)
+    measured = check.gap_units(low, high, math.ceil(raw - 1e-9), a.raster_hz)
+    return min(1.0, max(math.ceil(leak - 1e-9), measured) / raw)
 
 
 def refit(arrangement: Arrangement, objective: Objective, seed: int) -> None:
     """Half-widths refitted to pair-exact gaps (``max_throughput`` only: the other objectives
     keep the model's widths, which pair spacing only makes easier to place)."""
+    if objective is Objective.MIN_BANDWIDTH:
+        for st in arrangement.stretches:
+            st.halves = [slot.lo_half for slot in st.slots]
     if objective is not Objective.MAX_THROUGHPUT:
         return
     for st in arrangement.stretches:
@@ -149,14 +237,9 @@ def _measure(stretch: Stretch, check: PairCheck) -> None:
     for i in range(1, len(stretch.slots)):
         a, b = stretch.slots[i - 1], stretch.slots[i]
         ha, hb = stretch.halves[i - 1], stretch.halves[i]
-        raw = pair_gap_raw(a.family, ha, b.family, hb)
-        if raw <= 0 or a.family.key is None or b.family.key is None:
-            continue
-        leak = max(leakage_units(a.family, ha), leakage_units(b.family, hb))
-        low = Carrier(a.family.at(ha).config, 0.0, 0.0, 0.0)
-        high = Carrier(b.family.at(hb).config, 0.0, 0.0, 0.0)
-        measured = check.gap_units(low, high, math.ceil(raw - 1e-9))
-        stretch.scales[a.owner, b.owner] = min(1.0, max(math.ceil(leak - 1e-9), measured) / raw)
+        if pair_gap_raw(a.family, ha, b.family, hb) > 0:
+            scale = _pair_scale(check, a.family, ha, b.family, hb)
+            stretch.scales[a.owner, b.owner] = scale
 
 
 def tighten(problem: Problem, arrangement: Arrangement) -> None:
@@ -186,14 +269,13 @@ def tighten(problem: Problem, arrangement: Arrangement) -> None:
 def to_carriers(problem: Problem, arrangement: Arrangement) -> tuple[Carrier, ...]:
     """Carriers at their positions: packed low for ``min_bandwidth``, otherwise the slack of a
     stretch spread over its gaps (it lowers leakage and interference and costs nothing)."""
-    raster = problem.block.raster_hz
+    step = problem.block.raster_hz / FINE
     spread = problem.objective is not Objective.MIN_BANDWIDTH
     carriers: list[Carrier] = []
     for st in arrangement.stretches:
-        for slot, half, low in zip(st.slots, st.halves, st.lows(spread=spread), strict=True):
+        for slot, half, centre in zip(st.slots, st.halves, st.centres(spread=spread), strict=True):
             cand = slot.family.at(half)
-            center = problem.block.start_hz + (low + half) * raster
-            carriers.append(Carrier(cand.config, center, 0.0, 0.0))
+            carriers.append(Carrier(cand.config, problem.block.start_hz + centre * step, 0.0, 0.0))
     return tuple(carriers)
 
 
@@ -214,9 +296,11 @@ def arrangement_bound(data: PackingInput, admitted: int) -> float:
     for d, opts in enumerate(data.options):
         for k in range(len(opts.candidates)):
             slot = _slot(data, d, k)
+            if slot is None:
+                continue
             guard = least_guard_per_half(slot.family, least)
             for s, seg in enumerate(data.segments):
-                if 2 * slot.lo_half <= seg.length:
+                if 2 * slot.lo_half <= FINE * seg.length:
                     end = min(
                         _end_per_half(slot, seg.left_wall, guard),
                         _end_per_half(slot, seg.right_wall, guard),
@@ -232,5 +316,5 @@ def arrangement_bound(data: PackingInput, admitted: int) -> float:
                             end - guard / 2,
                         )
                     )
-    lengths = [s.length for s in data.segments]
+    lengths = [FINE * s.length for s in data.segments]
     return throughput_bound(items, lengths, list(data.admission_weights), admitted)

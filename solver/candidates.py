@@ -377,7 +377,9 @@ def build_candidates(
     per_half_cost = 2.0 + np.where(g.usable, g.guard_hz, 0.0) / raster / span.hi_half
     ratio = g.throughput_bps / span.hi_half / per_half_cost
     low_throughput = g.throughput_bps * span.lo_half / span.hi_half
-    kept = [i for i in _family_front(ratio, low_throughput, g.throughput_bps) if g.usable[i]]
+    edge_per_bit = np.where(g.usable, g.edge_hz, np.inf) / g.throughput_bps
+    front = _family_front(ratio, low_throughput, g.throughput_bps, edge_per_bit)
+    kept = [i for i in front if g.usable[i]]
     families = [
         _family(problem, demand, combos, g, i, int(span.hi_half[i]), int(span.lo_half[i]))
         for i in sorted(kept, key=lambda i: (g.throughput_bps[i], -ratio[i]))
@@ -498,17 +500,24 @@ def _family_span(combos: _Combos, demand: Demand, raster_hz: float, max_width_hz
 
 
 def _family_front(
-    ratio: NDArray[np.float64], low: NDArray[np.float64], high: NDArray[np.float64]
+    ratio: NDArray[np.float64],
+    low: NDArray[np.float64],
+    high: NDArray[np.float64],
+    edge_per_bit: NDArray[np.float64],
 ) -> list[int]:
     """Families not beaten by one that is cheaper per bit over their whole throughput range.
 
-    Family j beats i when it reaches at least i's top throughput and costs no more at i's
-    lowest throughput: above j's own minimum its cost per bit (1/ratio) is lower everywhere.
+    Family j beats i when it reaches at least i's top throughput, costs no more at i's
+    lowest throughput (above j's own minimum its cost per bit, 1/ratio, is then lower
+    everywhere) and needs no wider guard towards a block edge or exclusion per bit carried
+    (beside an edge, an exclusion or a pinned carrier the edge guard decides what fits).
     """
     kept: list[int] = []
     for i in np.argsort(-ratio, kind="stable"):
         covered = any(
-            high[j] >= high[i] * (1 - 1e-9) and low[j] / ratio[j] <= low[i] / ratio[i] * (1 + 1e-9)
+            high[j] >= high[i] * (1 - 1e-9)
+            and low[j] / ratio[j] <= low[i] / ratio[i] * (1 + 1e-9)
+            and edge_per_bit[j] <= edge_per_bit[i] * (1 + 1e-9)
             for j in kept
         )
         if not covered:

@@ -110,14 +110,12 @@ class Family:
     def throughput_per_half_bps(self) -> float:
         return self.top.config.throughput_bps / self.hi_half
 
-    def at(self, half: int, level_db: float | None = None) -> Candidate:
-        """The candidate ``half`` half-width units wide, guarded for a segment at ``level_db``."""
-        if not self.lo_half <= half <= self.hi_half:
-            raise ValueError(f"{half=} lies outside [{self.lo_half}, {self.hi_half}]")
+    def config_at(self, scale: float, level_db: float | None = None) -> CarrierConfig:
+        """The top configuration at ``scale`` times its symbol rate (the link re-measured
+        when power-limited), guarded for a segment at ``level_db``."""
         top = self.top.config
-        scale = half / self.hi_half
         esn0 = top.esn0_db - 10.0 * math.log10(scale) if self.power_limited else top.esn0_db
-        config = replace(
+        return replace(
             top,
             symbol_rate_baud=top.symbol_rate_baud * scale,
             allocated_bandwidth_hz=top.allocated_bandwidth_hz * scale,
@@ -127,6 +125,12 @@ class Family:
             throughput_bps=top.throughput_bps * scale,
             esn0_db=esn0,
         )
+
+    def at(self, half: int, level_db: float | None = None) -> Candidate:
+        """The candidate ``half`` half-width units wide, guarded for a segment at ``level_db``."""
+        if not self.lo_half <= half <= self.hi_half:
+            raise ValueError(f"{half=} lies outside [{self.lo_half}, {self.hi_half}]")
+        config = self.config_at(half / self.hi_half, level_db)
         if self.key is None:
             return (
                 replace(self.top, config=config)

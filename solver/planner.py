@@ -22,6 +22,7 @@ from solver.arrangement import (
     arrangement_bound,
     from_model,
     greedy_stretches,
+    pair_measure,
     refit,
     tighten,
     to_carriers,
@@ -132,14 +133,26 @@ def _segments(problem: Problem, fixed: Sequence[_Fixed]) -> list[Segment]:
 # ---------------------------------------------------------------- pinned carriers
 
 
+@dataclass(frozen=True)
+class _PinnedChoice:
+    """How pinned demands are set before the free ones are packed."""
+
+    narrow: bool = False
+    """Each at its least spectrum (else at the most throughput that fits)."""
+    left_out: tuple[tuple[str, str], ...] = ()
+    """Pinned demands left out (id, why), to make room for higher priorities."""
+
+
 def _fix_pinned(
-    problem: Problem, options: dict[str, DemandOptions]
+    problem: Problem, options: dict[str, DemandOptions], choice: _PinnedChoice = _PinnedChoice()
 ) -> tuple[list[_Fixed], list[Unserved]]:
-    """Give each pinned demand its best candidate that fits at its centre, first come first."""
+    """Give each pinned demand a candidate that fits at its centre, highest priority first:
+    its best throughput, or its least spectrum when ``choice.narrow``."""
     placed: list[_Fixed] = []
-    unserved: list[Unserved] = []
+    left_out = dict(choice.left_out)
+    unserved = [Unserved(d, UnservedReason.NO_SPECTRUM, why) for d, why in choice.left_out]
     for demand in sorted(
-        (d for d in problem.demands if d.pinned_center_hz is not None),
+        (d for d in problem.demands if d.pinned_center_hz is not None and d.id not in left_out),
         key=lambda d: (-d.priority, d.id),
     ):
         center = demand.pinned_center_hz
@@ -147,7 +160,7 @@ def _fix_pinned(
         fitting = [
             (c, fam)
             for fam in options[demand.id].candidates
-            if (c := _widest_fitting(problem, center, fam, placed)) is not None
+            if (c := _fitting(problem, center, fam, placed, choice.narrow)) is not None
         ]
         if not fitting:
             reason = (
@@ -160,27 +173,45 @@ def _fix_pinned(
             )
             unserved.append(Unserved(demand.id, reason, detail))
             continue
-        best, fam = max(
-            fitting,
-            key=lambda cf: (min(cf[0].throughput_bps, demand.target_rate_bps), -cf[0].width_units),
-        )
+        if choice.narrow:
+            best, fam = min(
+                fitting,
+                key=lambda cf: (cf[0].width_units + cf[0].guard_units, -cf[0].throughput_bps),
+            )
+        elif problem.objective is Objective.MAX_MARGIN:
+            best, fam = max(
+                fitting, key=lambda cf: cf[0].config.esn0_db - cf[0].config.required_esn0_db
+            )
+        else:
+            best, fam = max(
+                fitting,
+                key=lambda cf: (
+                    min(cf[0].throughput_bps, demand.target_rate_bps),
+                    -cf[0].width_units,
+                ),
+            )
         half = best.width_units // 2
         single = replace(fam, top=best, lo_half=half, hi_half=half)
         placed.append(_Fixed(Carrier(best.config, center, 0.0, 0.0), best, single))
     return placed, unserved
 
 
-def _widest_fitting(
-    problem: Problem, center: float, fam: Family, placed: Sequence[_Fixed]
+def _fitting(
+    problem: Problem, center: float, fam: Family, placed: Sequence[_Fixed], narrow: bool
 ) -> Candidate | None:
-    """The widest member of ``fam`` (in steps of about 2 %) that fits at ``center``."""
+    """The narrowest member of ``fam`` if ``narrow`` (if it fits), else the widest member (in
+    steps of about 2 %) that fits at ``center``."""
+    if narrow:
+        least = fam.at(fam.lo_half)
+        return least if _pinned_fits(problem, center, least, placed) else None
     half = fam.hi_half
-    while half >= fam.lo_half:
+    while True:
         cand = fam.at(half)
         if _pinned_fits(problem, center, cand, placed):
             return cand
-        half = min(half - 1, math.floor(half / 1.02))
-    return None
+        if half == fam.lo_half:
+            return None
+        half = max(fam.lo_half, min(half - 1, math.floor(half / 1.02)))
 
 
 def _pinned_fits(
@@ -307,7 +338,7 @@ def _arrange(problem: Problem, data: PackingInput, result: PackingResult) -> Arr
     priority-weighted throughput)."""
     model = from_model(data, result)
     admit_rest(data, model)
-    greedy = greedy_stretches(data)
+    greedy = greedy_stretches(data, pair_measure(problem))
     for arrangement in (model, greedy):
         refit(arrangement, problem.objective, problem.seed)
     better = greedy.admission(data) > model.admission(data) or (
@@ -473,6 +504,9 @@ class _Outcome:
     unserved: tuple[Unserved, ...]
     result: PackingResult
     rounds: int
+    fixed: tuple[_Fixed, ...] = ()
+    """The carriers that did not move (pinned, or kept in place by a replan)."""
+    choice: _PinnedChoice = _PinnedChoice()
 
 
 BOUND_TOLERANCE = 1e-4
@@ -491,6 +525,9 @@ def _judged(problem: Problem, data: PackingInput, carriers: Sequence[Carrier]) -
         demand = data.options[index[c.demand_id]].demand
         value += demand.priority * min(c.config.throughput_bps, demand.target_rate_bps)
     bound = arrangement_bound(data, admitted)
+    if bound == -math.inf:  # the plan contradicts the relaxation: claim nothing from it
+        log.warning("the relaxation has no room for a plan this plan beats; bound unknown")
+        return PackingResult(SolveStatus.FEASIBLE, {}, {}, value, math.inf, math.inf, 0.0, "")
     if bound < value:  # the relaxation holds every plan; only rounding can put it below
         log.warning("bound %.6g below the plan's %.6g: reported as the plan's", bound, value)
         bound = value
@@ -508,6 +545,7 @@ def _run(
     early_unserved: Sequence[Unserved],
     progress: Callable[[ProgressEvent], None] | None,
     cancel: threading.Event | None,
+    choice: _PinnedChoice = _PinnedChoice(),
 ) -> _Outcome:
     fixed_ids = {f.carrier.demand_id for f in fixed} | {u.demand_id for u in early_unserved}
     free = [options[d.id] for d in problem.demands if d.id not in fixed_ids]
@@ -541,7 +579,12 @@ def _run(
     explained = explain_unserved(problem, free, served | dropped_ids, segments)
     unserved = (*early_unserved, *dropped, *explained)
     return _Outcome(
-        check.carriers, tuple(sorted(unserved, key=lambda u: u.demand_id)), result, rounds
+        check.carriers,
+        tuple(sorted(unserved, key=lambda u: u.demand_id)),
+        result,
+        rounds,
+        tuple(fixed),
+        choice,
     )
 
 
@@ -566,6 +609,22 @@ def _pick_replan(problem: Problem, moved: _Outcome, stayed: _Outcome) -> _Outcom
     r_stayed = sum(c.retuned for c in mark_retunes(problem, stayed.carriers))
     penalty = problem.retune_penalty * scale
     return moved if s_moved - penalty * r_moved > s_stayed - penalty * r_stayed else stayed
+
+
+@dataclass(frozen=True)
+class _Clock:
+    """The caller's time limit for the whole request."""
+
+    started: float
+    limit_s: float
+
+    def elapsed(self) -> float:
+        return time.perf_counter() - self.started
+
+    def share(self, parts: int) -> float:
+        """An equal share of what is left among ``parts`` stages still to run (at least
+        0.2 s, so that a stage can always return its first plan)."""
+        return max(0.2, (self.limit_s - self.elapsed()) / max(parts, 1))
 
 
 def solve(
@@ -597,16 +656,75 @@ def solve(
         When the problem is not valid; its ``field`` names the offending input.
     """
     validate_problem(problem)
-    started = time.perf_counter()
+    clock = _Clock(time.perf_counter(), problem.time_limit_s)
     options = {d.id: build_candidates(problem, d) for d in problem.demands}
-    pinned, pinned_unserved = _fix_pinned(problem, options)
-    outcome = _run(problem, options, pinned, pinned_unserved, progress, cancel)
-    if problem.retune_penalty > 0 and any(d.current is not None for d in problem.demands):
-        staying = _staying(problem, options, pinned)
+    replanning = problem.retune_penalty > 0 and any(d.current is not None for d in problem.demands)
+    stages = 2 if replanning else 1
+    outcome = _with_pinned(problem, options, clock, stages, progress, cancel)
+    if replanning:
+        staying = _staying(problem, options, outcome.fixed)
         if staying:
-            kept = _run(problem, options, [*pinned, *staying], pinned_unserved, progress, cancel)
+            budget = replace(problem, time_limit_s=clock.share(1))
+            fixed = [*outcome.fixed, *staying]
+            pinned = {d.id for d in problem.demands if d.pinned_center_hz is not None}
+            early = [u for u in outcome.unserved if u.demand_id in pinned]
+            kept = _run(budget, options, fixed, early, progress, cancel)
             outcome = _pick_replan(problem, outcome, kept)
-    return _finish(problem, outcome, time.perf_counter() - started)
+    return _finish(problem, outcome, clock.elapsed())
+
+
+def _with_pinned(
+    problem: Problem,
+    options: dict[str, DemandOptions],
+    clock: _Clock,
+    stages: int,
+    progress: Callable[[ProgressEvent], None] | None,
+    cancel: threading.Event | None,
+) -> _Outcome:
+    """The best plan over the ways of setting pinned demands: at their best throughput, at
+    their least spectrum, and without pinned demands that keep out a higher priority."""
+    choices = [_PinnedChoice()]
+    if any(d.pinned_center_hz is not None for d in problem.demands):
+        wide = [f.carrier.config for f in _fix_pinned(problem, options)[0]]
+        narrow = _PinnedChoice(narrow=True)
+        if [f.carrier.config for f in _fix_pinned(problem, options, narrow)[0]] != wide:
+            choices.append(narrow)
+    outcomes: list[_Outcome] = []
+    for i, choice in enumerate(choices):
+        budget = replace(problem, time_limit_s=clock.share(len(choices) - i + stages - 1))
+        fixed, early = _fix_pinned(problem, options, choice)
+        outcomes.append(_run(budget, options, fixed, early, progress, cancel, choice))
+    best = max(outcomes, key=lambda o: _score(problem, o))
+    displacing = _displacing_pinned(problem, options, best)
+    if displacing:
+        choice = replace(best.choice, left_out=displacing)
+        budget = replace(problem, time_limit_s=clock.share(stages))
+        fixed, early = _fix_pinned(problem, options, choice)
+        trial = _run(budget, options, fixed, early, progress, cancel, choice)
+        best = max((best, trial), key=lambda o: _score(problem, o))
+    return best
+
+
+def _displacing_pinned(
+    problem: Problem, options: dict[str, DemandOptions], outcome: _Outcome
+) -> tuple[tuple[str, str], ...]:
+    """Pinned demands served while a free demand of higher priority, with a link, is not:
+    each with the reason it would be left out for them."""
+    served = {c.demand_id for c in outcome.carriers}
+    waiting = [
+        d
+        for d in problem.demands
+        if d.id not in served and d.pinned_center_hz is None and options[d.id].candidates
+    ]
+    out = []
+    for d in problem.demands:
+        if d.id not in served or d.pinned_center_hz is None:
+            continue
+        above = sorted(w.id for w in waiting if w.priority > d.priority)
+        if above:
+            why = f"pinned carrier left out to make room for higher-priority demands {above}"
+            out.append((d.id, why))
+    return tuple(sorted(out))
 
 
 def _finish(problem: Problem, outcome: _Outcome, elapsed_s: float) -> Plan:

@@ -21,28 +21,32 @@ every gap exact to the raster.
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, field, replace
 
 from ortools.sat.python import cp_model
 from scipy import optimize, sparse
 
-from solver.families import Family, mask_guard_per_baud
+from solver.families import Candidate, Family, mask_guard_per_baud
 
 __all__ = [
+    "PairMeasure",
     "Slot",
     "Stretch",
     "Wall",
+    "fill_grid",
     "leakage_units",
+    "packed_centres",
     "pair_gap_raw",
     "pair_gap_units",
     "place_stretch",
     "refit_stretch",
+    "regrid",
     "stretch_fits",
     "stretch_need",
 ]
 
-_SCALE = 1000
+_SCALE = 10_000
 """Guard rows are scaled by this so that per-half-width coefficients stay integers."""
 
 
@@ -101,6 +105,10 @@ def _units(value: float) -> int:
     return max(0, math.ceil(value - 1e-9))
 
 
+PairMeasure = Callable[[Slot, int, Slot, int], float]
+"""The share of the spectral-mask gap two neighbours (low slot and half-width, high slot and
+half-width) really need."""
+
 Scales = Mapping[tuple[int, int], float]
 """Per pair of neighbours (owners, low then high): the share of the spectral-mask gap the pair
 really needs, measured by the verifier's own rule (:class:`solver.verify.PairCheck`)."""
@@ -124,6 +132,59 @@ def _wall_gap(wall: Wall, family: Family, half: int) -> int:
     return pair_gap_units(wall.family, wall.half, family, half)
 
 
+def regrid(family: Family, fine: int) -> Family:
+    """The same carriers on a grid ``fine`` times finer than the raster (a fixed carrier seen
+    from a stretch measured in finer steps)."""
+    if fine == 1:
+        return family
+    raster = family.raster_hz / fine
+    config = family.top.config
+    top = Candidate(
+        config,
+        2 * family.hi_half * fine,
+        math.ceil(config.guard_hz / raster - 1e-9),
+        math.ceil(config.edge_guard_hz / raster - 1e-9),
+    )
+    lo, hi = family.lo_half * fine, family.hi_half * fine
+    return replace(family, top=top, lo_half=lo, hi_half=hi, raster_hz=raster)
+
+
+def fill_grid(
+    family: Family, fine: int, min_rate_bps: float, target_rate_bps: float, margin_db: float
+) -> Family | None:
+    """``family`` on a grid ``fine`` times finer than the raster, each width filled by its
+    symbol rate, from the least width that carries ``min_rate_bps`` to the least that carries
+    ``target_rate_bps`` (lower where a power-limited link would fall below ``margin_db``).
+    None when even the least width misses the margin."""
+    raster = family.raster_hz / fine
+    top = family.top.config
+    per_half = 2.0 * raster / top.allocated_bandwidth_hz  # share of the top per half-step
+    throughput = top.throughput_bps * per_half
+    lo = max(1, math.ceil(min_rate_bps / throughput - 1e-9))
+    hi = max(lo, math.ceil(target_rate_bps / throughput - 1e-9))
+
+    def margin(half: int) -> float:
+        esn0 = (
+            top.esn0_db - 10.0 * math.log10(half * per_half)
+            if family.power_limited
+            else top.esn0_db
+        )
+        return esn0 - top.required_esn0_db
+
+    while hi > lo and margin(hi) < margin_db - 1e-9:
+        hi -= 1
+    if margin(lo) < margin_db - 1e-9:
+        return None
+    at_hi = family.config_at(hi * per_half)
+    fine_top = Candidate(
+        at_hi,
+        2 * hi,
+        math.ceil(at_hi.guard_hz / raster - 1e-9),
+        math.ceil(at_hi.edge_guard_hz / raster - 1e-9),
+    )
+    return replace(family, top=fine_top, lo_half=lo, hi_half=hi, raster_hz=raster)
+
+
 def stretch_need(
     slots: Sequence[Slot],
     halves: Sequence[int],
@@ -131,7 +192,7 @@ def stretch_need(
     right: Wall,
     scales: Scales | None = None,
 ) -> list[int]:
-    """The gaps (raster units) of a stretch in order: left wall, between neighbours, right
+    """The gaps (grid units) of a stretch in order: left wall, between neighbours, right
     wall (``len(slots) + 1`` of them; ``[0]`` for an empty stretch)."""
     if not slots:
         return [0]
@@ -144,6 +205,26 @@ def stretch_need(
     return gaps
 
 
+def _on_grid(value: int, fine: int) -> int:
+    """``value`` rounded up to a multiple of ``fine`` (a raster point)."""
+    return -(-value // fine) * fine
+
+
+def packed_centres(
+    start: int, gaps: Sequence[int], halves: Sequence[int], fine: int = 1
+) -> tuple[list[int], int]:
+    """Centres (grid units) of carriers packed from ``start`` with at least ``gaps`` between
+    them, each centre on the raster (a multiple of ``fine``); and where the last one's right
+    gap ends (``start + gaps[0]`` for none)."""
+    centres: list[int] = []
+    edge = start
+    for gap, half in zip(gaps, halves, strict=False):
+        centre = _on_grid(edge + gap + half, fine)
+        centres.append(centre)
+        edge = centre + half
+    return centres, edge + gaps[len(halves)]
+
+
 def stretch_fits(
     slots: Sequence[Slot],
     halves: Sequence[int],
@@ -151,9 +232,14 @@ def stretch_fits(
     right: Wall,
     length: int,
     scales: Scales | None = None,
+    *,
+    start: int = 0,
+    fine: int = 1,
 ) -> bool:
-    """Whether the carriers at ``halves`` fit a stretch of ``length`` raster units in order."""
-    return sum(stretch_need(slots, halves, left, right, scales)) + 2 * sum(halves) <= length
+    """Whether the carriers at ``halves`` fit a stretch of ``length`` grid units in order,
+    their centres on the raster."""
+    gaps = stretch_need(slots, halves, left, right, scales)
+    return packed_centres(start, gaps, halves, fine)[1] <= start + length
 
 
 def place_stretch(
@@ -166,23 +252,24 @@ def place_stretch(
     *,
     spread: bool,
     scales: Scales | None = None,
+    fine: int = 1,
 ) -> list[int]:
-    """Lower edges (raster units) of the carriers in order; slack at the high end, or spread
-    evenly over every gap when ``spread`` (lower leakage and interference, nothing lost)."""
+    """Centres (grid units, on the raster) of the carriers in order; packed from the low end,
+    or with the whole raster steps left over spread evenly over every gap when ``spread``
+    (lower leakage and interference, nothing lost)."""
     gaps = stretch_need(slots, halves, left, right, scales)
-    slack = length - sum(gaps) - 2 * sum(halves)
+    centres, end = packed_centres(start, gaps, halves, fine)
+    slack = (start + length - end) // fine
     if slack < 0:
-        raise ValueError(f"stretch of {length} raster units overfilled by {-slack}")
-    extra = [0] * len(gaps)
-    if spread and slots:
-        share, rest = divmod(slack, len(gaps))
-        extra = [share + (1 if i < rest else 0) for i in range(len(gaps))]
-    lows, cursor = [], start
-    for i, half in enumerate(halves):
-        cursor += gaps[i] + extra[i]
-        lows.append(cursor)
-        cursor += 2 * half
-    return lows
+        raise ValueError(f"stretch of {length} grid units overfilled by {end - start - length}")
+    if not spread or not slots:
+        return centres
+    share, rest = divmod(slack, len(gaps))
+    shift = 0
+    for i in range(len(centres)):
+        shift += share + (1 if i < rest else 0)
+        centres[i] += shift * fine
+    return centres
 
 
 def refit_stretch(
@@ -195,34 +282,45 @@ def refit_stretch(
     time_limit_s: float = 1.0,
     seed: int = 1,
     scales: Scales | None = None,
+    start: int = 0,
+    fine: int = 1,
 ) -> list[int]:
     """Half-widths that carry the most value in a stretch, carriers in the given order, with
-    every gap exactly what its pair needs (to the raster).
+    every gap exactly what its pair needs (to the grid) and every centre on the raster.
 
     ``start_halves`` must fit (it is the hint and the fallback).  Each gap is an integer
     variable at least each guard term (scaled coefficient times half-width, so the integer
-    gap is the guard rounded up to the raster); the stretch row is exact.
+    gap is the guard rounded up to the grid); each centre is ``fine`` times an integer.
     """
     if not slots:
         return []
     model = cp_model.CpModel()
+    n = len(slots)
     halves = [model.new_int_var(s.lo_half, s.hi_half, f"h{i}") for i, s in enumerate(slots)]
-    gaps = [model.new_int_var(0, length, f"g{i}") for i in range(len(slots) + 1)]
-
+    gaps = [model.new_int_var(0, length, f"g{i}") for i in range(n + 1)]
+    steps = [
+        model.new_int_var(-(-start // fine), (start + length) // fine, f"c{i}") for i in range(n)
+    ]
     _wall_rows(model, left, slots[0].family, halves[0], gaps[0])
     _wall_rows(model, right, slots[-1].family, halves[-1], gaps[-1])
-    for i in range(1, len(slots)):
+    for i in range(1, n):
         a, b = slots[i - 1].family, slots[i].family
         scale = (scales or {}).get((slots[i - 1].owner, slots[i].owner), 1.0)
         _at_least(model, gaps[i], _guard_per_half(a, b) * scale, halves[i - 1])
         _at_least(model, gaps[i], _guard_per_half(b, a) * scale, halves[i])
-    model.add(sum(gaps) + 2 * sum(halves) <= length)
+        model.add(fine * steps[i] - halves[i] - gaps[i] >= fine * steps[i - 1] + halves[i - 1])
+    model.add(fine * steps[0] - halves[0] - gaps[0] >= start)
+    model.add(fine * steps[-1] + halves[-1] + gaps[-1] <= start + length)
     unit = max(s.value_per_half for s in slots) / 1e6 or 1.0
     model.maximize(
         sum(round(s.value_per_half / unit) * h for s, h in zip(slots, halves, strict=True))
     )
+    hint_gaps = stretch_need(slots, start_halves, left, right, scales)
+    hint_centres, _ = packed_centres(start, hint_gaps, start_halves, fine)
     for var, value in zip(halves, start_halves, strict=True):
         model.add_hint(var, value)
+    for var, centre in zip(steps, hint_centres, strict=True):
+        model.add_hint(var, centre // fine)
     solver = cp_model.CpSolver()
     solver.parameters.max_time_in_seconds = max(0.05, time_limit_s)
     solver.parameters.num_workers = 1
@@ -232,14 +330,15 @@ def refit_stretch(
     if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
         return list(start_halves)
     found = [int(solver.value(h)) for h in halves]
-    if not stretch_fits(slots, found, left, right, length, scales):  # a rounded coefficient
-        return list(start_halves)
+    if not stretch_fits(slots, found, left, right, length, scales, start=start, fine=fine):
+        return list(start_halves)  # a rounded coefficient
     return found
 
 
 @dataclass
 class Stretch:
-    """A free segment (raster units from the block start) and its carriers in order."""
+    """A free segment and its carriers in order, on a grid ``fine`` times finer than the
+    raster (``start`` and ``length`` in grid units; centres on multiples of ``fine``)."""
 
     start: int
     length: int
@@ -248,34 +347,53 @@ class Stretch:
     slots: list[Slot] = field(default_factory=list)
     halves: list[int] = field(default_factory=list)
     scales: dict[tuple[int, int], float] = field(default_factory=dict)
+    fine: int = 1
+
+    def _end(self, slots: Sequence[Slot], halves: Sequence[int]) -> int:
+        gaps = stretch_need(slots, halves, self.left, self.right, self.scales)
+        return packed_centres(self.start, gaps, halves, self.fine)[1]
 
     def slack(self) -> int:
-        """Raster units left over with the carriers at their half-widths."""
-        need = sum(stretch_need(self.slots, self.halves, self.left, self.right, self.scales))
-        return self.length - need - 2 * sum(self.halves)
+        """Grid units left over with the carriers packed at their half-widths."""
+        return self.start + self.length - self._end(self.slots, self.halves)
 
-    def append(self, options: Sequence[Slot]) -> bool:
-        """First fit at the high end: the first of ``options`` (cheapest first) that fits after
-        the last carrier at its narrowest, the others untouched.  Returns whether one did."""
-        spare = self.slack()
-        last = self.slots[-1] if self.slots else None
-        for slot in options:
+    def append(
+        self, options: Sequence[Slot], measure: PairMeasure | None = None, *, measured: int = 3
+    ) -> bool:
+        """Fit one of ``options`` (cheapest first) after the last carrier, at its narrowest,
+        the others untouched.  Returns whether one did.
+
+        With ``measure``, the first ``measured`` options are spaced from the last carrier at
+        the gap ``measure`` finds for the pair (kept in :attr:`scales`) and the one that ends
+        lowest is taken; the rest, at the spectral-mask gap, first fit."""
+        stop = self.start + self.length
+        edge, last = self.start, self.slots[-1] if self.slots else None
+        if last is not None:
+            gaps = stretch_need(self.slots, self.halves, self.left, self.right, self.scales)
+            centres, _ = packed_centres(self.start, gaps, self.halves, self.fine)
+            edge = centres[-1] + self.halves[-1]
+        best: tuple[int, int, Slot, float] | None = None
+        for rank, slot in enumerate(options):
+            if best is not None and (measure is None or rank >= measured):
+                break
+            h, scale = slot.lo_half, 1.0
             if last is None:
-                need = sum(stretch_need([slot], [slot.lo_half], self.left, self.right))
-                cost = need + 2 * slot.lo_half
+                gap = _wall_gap(self.left, slot.family, h)
             else:
-                old = _wall_gap(self.right, last.family, self.halves[-1])
-                cost = (
-                    pair_gap_units(last.family, self.halves[-1], slot.family, slot.lo_half)
-                    + 2 * slot.lo_half
-                    + _wall_gap(self.right, slot.family, slot.lo_half)
-                    - old
-                )
-            if cost <= spare:
-                self.slots.append(slot)
-                self.halves.append(slot.lo_half)
-                return True
-        return False
+                if measure is not None and rank < measured:
+                    scale = measure(last, self.halves[-1], slot, h)
+                gap = pair_gap_units(last.family, self.halves[-1], slot.family, h, scale)
+            end = _on_grid(edge + gap + h, self.fine) + h + _wall_gap(self.right, slot.family, h)
+            if end <= stop and (best is None or end < best[0]):
+                best = (end, rank, slot, scale)
+        if best is None:
+            return False
+        _, _, slot, scale = best
+        if last is not None and scale < 1.0:
+            self.scales[last.owner, slot.owner] = scale
+        self.slots.append(slot)
+        self.halves.append(slot.lo_half)
+        return True
 
     def insert(self, options: Sequence[Slot], *, max_positions: int = 64) -> bool:
         """Fit one of ``options`` anywhere in the order: first with the others as they are,
@@ -288,7 +406,7 @@ class Stretch:
                     trial = [*self.slots[:i], slot, *self.slots[i:]]
                     base = [s.lo_half for s in self.slots] if narrowed else self.halves
                     halves = [*base[:i], slot.lo_half, *base[i:]]
-                    if stretch_fits(trial, halves, self.left, self.right, self.length):
+                    if self._end(trial, halves) <= self.start + self.length:
                         self.slots, self.halves = trial, halves
                         return True
         return False
@@ -304,13 +422,15 @@ class Stretch:
             time_limit_s=time_limit_s,
             seed=seed,
             scales=self.scales,
+            start=self.start,
+            fine=self.fine,
         )
 
     def fits(self, halves: Sequence[int]) -> bool:
-        return stretch_fits(self.slots, halves, self.left, self.right, self.length, self.scales)
+        return self._end(self.slots, halves) <= self.start + self.length
 
-    def lows(self, *, spread: bool) -> list[int]:
-        """Lower edges (raster units from the block start) of the carriers in order."""
+    def centres(self, *, spread: bool) -> list[int]:
+        """Centres (grid units from the block start, on the raster) of the carriers in order."""
         return place_stretch(
             self.start,
             self.length,
@@ -320,6 +440,7 @@ class Stretch:
             self.right,
             spread=spread,
             scales=self.scales,
+            fine=self.fine,
         )
 
 

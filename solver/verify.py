@@ -301,9 +301,12 @@ class PairCheck:
                 return False
         return True
 
-    def gap_units(self, low: Carrier, high: Carrier, upper_units: int) -> int:
-        """Smallest gap in raster units (at most ``upper_units``) at which both pass."""
-        raster = self.problem.block.raster_hz
+    def gap_units(
+        self, low: Carrier, high: Carrier, upper_units: int, unit_hz: float | None = None
+    ) -> int:
+        """Smallest gap in units of ``unit_hz`` (the raster unless given; at most
+        ``upper_units``) at which both pass."""
+        raster = self.problem.block.raster_hz if unit_hz is None else unit_hz
         if self._passes(low, high, 0.0):
             return 0
         lo, hi = 0, max(upper_units, 1)
