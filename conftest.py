@@ -7,7 +7,7 @@ from collections.abc import Iterator
 
 import pytest
 
-from solver.profilecache import CACHE_DIR_ENV
+from solver.physics.profilecache import CACHE_DIR_ENV
 
 
 @pytest.fixture(autouse=True, scope="session")

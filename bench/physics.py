@@ -25,7 +25,8 @@ sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 import numpy as np
 from scipy import signal
 
-from solver.emission import (
+from solver.model import Amplifier, AmplifierModel, Modulation
+from solver.physics.emission import (
     LINEAR_FFT_SIZE,
     LINEAR_SAMPLES_PER_SYMBOL,
     EmissionKey,
@@ -34,8 +35,7 @@ from solver.emission import (
     get_profile,
     warm_profiles,
 )
-from solver.model import Amplifier, AmplifierModel, Modulation
-from solver.pulses import rrc_taps
+from solver.physics.pulses import rrc_taps
 
 ROLLOFF, SPAN = 0.2, 12
 LIMIT_DB = 50.0
@@ -141,8 +141,8 @@ def bench_guard(repeats: int) -> list[Row]:
 
 def bench_catalogue(repeats: int) -> list[Row]:
     try:
-        from solver.modcod import catalogue
         from solver.model import Coding
+        from solver.physics.modcod import catalogue
     except ImportError as exc:
         print(f"MODCOD catalogue skipped: {exc}")
         return []

@@ -38,7 +38,7 @@ from service.jobs import plan_to_wire, to_problem
 from service.schemas import DemandIn, PlanOut, PlanRequest
 from service.settings import Settings
 from service.store import utc_now
-from solver.model import ProblemError, ProgressEvent, SolveStatus
+from solver import ProblemError, ProgressEvent, SolveStatus
 
 __all__ = ["ExitCode", "main", "summary_table"]
 

@@ -32,7 +32,7 @@ from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException as StarletteHTTPException
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
-from solver.model import ProblemError
+from solver import ProblemError
 
 __all__ = [
     "PROBLEM_JSON",

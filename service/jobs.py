@@ -46,7 +46,7 @@ from service.schemas import (
 )
 from service.settings import Settings
 from service.store import Store, utc_now
-from solver.model import (
+from solver import (
     Amplifier,
     Block,
     Carrier,

@@ -37,8 +37,7 @@ from matplotlib.patches import Patch
 from matplotlib.text import Text
 from matplotlib.ticker import ScalarFormatter
 
-from solver.emission import EmissionKey, get_profile
-from solver.model import Carrier, Plan, Problem, format_code_rate
+from solver import Carrier, EmissionKey, Plan, Problem, format_code_rate, get_profile
 
 __all__ = [
     "DensityFn",

@@ -17,7 +17,7 @@ from typing import Annotated, Any
 from pydantic import BaseModel, ConfigDict, Field, ValidationInfo, field_validator
 
 from service.errors import FieldIssue
-from solver.model import (
+from solver import (
     AmplifierModel,
     Modulation,
     Objective,

@@ -5,7 +5,7 @@ Examples: ``BANDWRIGHT_DATABASE_URL=postgresql+psycopg://user@db/bandwright``,
 :class:`Settings` to :func:`service.app.create_app` instead.
 
 ``BANDWRIGHT_CACHE_DIR`` (stored spectrum profiles) is not a field here: the solver reads it
-itself (:mod:`solver.profilecache`), so the command line, the service and library use agree.
+itself (:mod:`solver.physics.profilecache`), so the command line, the service and library use agree.
 """
 
 from __future__ import annotations

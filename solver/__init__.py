@@ -1,8 +1,11 @@
 """bandwright's planning library: spectrum, link physics and the carrier packer.
 
-Pure computation: no web, no database.  The public names are listed in ``__all__``.
+Pure computation: no web, no database.  The public names are listed in ``__all__``; the service
+imports only these.  The physics floor (spectra, amplifiers, MODCODs, link budgets) lives in
+:mod:`solver.physics` and depends on nothing in the solver but :mod:`solver.model`.
 """
 
+from solver.evaluate import CarrierEvaluation, LeakageAtGap, evaluate_carrier
 from solver.model import (
     Amplifier,
     AmplifierModel,
@@ -29,6 +32,8 @@ from solver.model import (
     format_code_rate,
     parse_code_rate,
 )
+from solver.physics.emission import EmissionKey, SpectrumProfile, get_profile
+from solver.physics.modcod import ModcodEntry, catalogue
 from solver.planner import solve
 from solver.rules import rule_of_thumb_plan
 from solver.validation import validate_problem
@@ -40,10 +45,14 @@ __all__ = [
     "Block",
     "Carrier",
     "CarrierConfig",
+    "CarrierEvaluation",
     "Coding",
     "CurrentSetting",
     "Demand",
+    "EmissionKey",
     "Exclusion",
+    "LeakageAtGap",
+    "ModcodEntry",
     "Modulation",
     "Objective",
     "Plan",
@@ -53,13 +62,17 @@ __all__ = [
     "ProgressEvent",
     "SolveStats",
     "SolveStatus",
+    "SpectrumProfile",
     "Transmitter",
     "Unserved",
     "UnservedReason",
     "Verification",
     "Violation",
     "Window",
+    "catalogue",
+    "evaluate_carrier",
     "format_code_rate",
+    "get_profile",
     "parse_code_rate",
     "rule_of_thumb_plan",
     "solve",

@@ -26,7 +26,6 @@ from typing import NamedTuple
 import numpy as np
 from numpy.typing import NDArray
 
-from solver import emission, link, modcod
 from solver.families import Candidate, Family, mask_guard_per_baud
 from solver.model import (
     CarrierConfig,
@@ -39,6 +38,7 @@ from solver.model import (
     Transmitter,
     format_code_rate,
 )
+from solver.physics import emission, link, modcod
 from solver.verify import INTERFERENCE_ALLOWANCE_DB
 
 __all__ = [

@@ -1,8 +1,8 @@
 """Figures for one carrier configuration: bandwidths, leakage, guard, link margin, throughput.
 
-Composes :mod:`solver.emission` (spectrum), :mod:`solver.modcod` (thresholds) and
-:mod:`solver.link` (link budget) for a single carrier, without placing it in a block.  This is
-what ``POST /v1/carriers/evaluate`` answers.
+Composes :mod:`solver.physics.emission` (spectrum), :mod:`solver.physics.modcod`
+(thresholds) and :mod:`solver.physics.link` (link budget) for a single carrier, without placing
+it in a block.  This is what ``POST /v1/carriers/evaluate`` answers.
 """
 
 from __future__ import annotations
@@ -13,9 +13,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from solver import emission, link, modcod
-from solver.constellations import constellation
 from solver.model import Amplifier, CodeRate, Coding, Modulation, ProblemError, Window
+from solver.physics import emission, link, modcod
+from solver.physics.constellations import constellation
 
 __all__ = ["CarrierEvaluation", "LeakageAtGap", "evaluate_carrier"]
 
@@ -122,7 +122,7 @@ def evaluate_carrier(
     ----------
     .. [1] ITU Radio Regulations, Article 1, No. 1.153 (occupied bandwidth, 99 % of the power).
     .. [2] Y. Polyanskiy, H. V. Poor, S. Verdú, "Channel coding rate in the finite blocklength
-       regime", IEEE Trans. Inf. Theory 56(5), 2010 (coded thresholds, via solver.modcod).
+       regime", IEEE Trans. Inf. Theory 56(5), 2010 (coded thresholds, via solver.physics.modcod).
 
     Examples
     --------

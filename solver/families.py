@@ -9,8 +9,8 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from solver import emission
 from solver.model import CarrierConfig
+from solver.physics import emission
 
 __all__ = ["Candidate", "Family", "mask_guard_per_baud"]
 

@@ -19,7 +19,6 @@ from __future__ import annotations
 import math
 import time
 
-from solver import modcod
 from solver.candidates import candidate_for
 from solver.model import (
     Carrier,
@@ -32,6 +31,7 @@ from solver.model import (
     Unserved,
     UnservedReason,
 )
+from solver.physics import modcod
 from solver.summary import CAUTIONS, summarise, with_guards
 from solver.validation import validate_problem
 from solver.verify import verify_plan

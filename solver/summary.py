@@ -7,10 +7,10 @@ import math
 from collections.abc import Sequence
 from dataclasses import replace
 
-from solver import bounds
 from solver.candidates import DemandOptions
 from solver.model import Carrier, PlanSummary, Problem, Unserved, UnservedReason
 from solver.packing import Segment
+from solver.physics import bounds
 
 __all__ = [
     "CAUTIONS",

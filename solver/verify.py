@@ -23,8 +23,8 @@ from typing import Literal
 import numpy as np
 from numpy.typing import NDArray
 
-from solver import emission
 from solver.model import Carrier, Problem
+from solver.physics import emission
 
 __all__ = [
     "INTERFERENCE_ALLOWANCE_DB",

@@ -6,8 +6,8 @@ and the independent checks:
 
 * :func:`solver.candidates.candidate_for` fills a :class:`CarrierConfig` for one exact
   (modulation, code rate, roll-off, symbol rate): link figures, guards, throughput;
-* the spectrum profiles of :mod:`solver.emission`, to find where a carrier may sit next to its
-  neighbour (the same leakage ratio :func:`solver.verify_plan` measures);
+* the spectrum profiles of :mod:`solver.physics.emission`, to find where a carrier may sit next
+  to its neighbour (the same leakage ratio :func:`solver.verify_plan` measures);
 * :func:`solver.verify_plan`, which alone decides whether a plan is accepted;
 * :func:`solver.summary.with_guards` and :func:`solver.summary.free_segments_hz`, the
   definition of a plan's used bandwidth (``PlanSummary.used_bandwidth_hz``).
@@ -66,12 +66,10 @@ from solver import (
     Demand,
     Objective,
     Problem,
-    emission,
-    link,
-    modcod,
     verify_plan,
 )
 from solver.candidates import candidate_for
+from solver.physics import emission, link, modcod
 from solver.summary import free_segments_hz, with_guards
 from solver.verify import ViolationKind
 

@@ -10,8 +10,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import optimize
 
-from solver.bounds import shannon_capacity_bps, shannon_nyquist_bound
 from solver.model import Demand
+from solver.physics.bounds import shannon_capacity_bps, shannon_nyquist_bound
 
 UNCAPPED = 1e15
 

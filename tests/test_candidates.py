@@ -7,9 +7,10 @@ import math
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from solver import Block, Demand, Modulation, Objective, Problem, Transmitter, modcod
+from solver import Block, Demand, Modulation, Objective, Problem, Transmitter
 from solver.candidates import build_candidates, candidate_for
-from solver.link import esn0_from_cn0_db
+from solver.physics import modcod
+from solver.physics.link import esn0_from_cn0_db
 
 TX = Transmitter(filter_span_symbols=12, rolloffs=(0.05, 0.2, 0.35))
 BLOCK = Block(start_hz=2_000e6, stop_hz=2_050e6, raster_hz=25e3)

@@ -1,4 +1,5 @@
-"""Unit and property tests of solver.emission (profiles, leakage, guards, amplifier regrowth).
+"""Unit and property tests of solver.physics.emission (profiles, leakage, guards, amplifier
+regrowth).
 
 Published values (occupied bandwidths, compression points, Saleh figures) are checked in
 tests/reference/test_emission_reference.py.
@@ -15,7 +16,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from solver.emission import (
+from solver.model import Amplifier, AmplifierModel, Modulation, ProblemError, Window
+from solver.physics.emission import (
     EmissionKey,
     Side,
     SpectrumProfile,
@@ -27,8 +29,7 @@ from solver.emission import (
     simulate_amplifier_psd,
     warm_profiles,
 )
-from solver.modcod import constellation
-from solver.model import Amplifier, AmplifierModel, Modulation, ProblemError, Window
+from solver.physics.modcod import constellation
 
 LINEAR_KEYS = [
     EmissionKey(rolloff, span, window)

@@ -9,7 +9,7 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from solver.link import (
+from solver.physics.link import (
     cn0_from_esn0_db,
     esn0_from_cn0_db,
     margin_db,

@@ -12,7 +12,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from solver.modcod import (
+from solver.model import Coding, Modulation
+from solver.physics.modcod import (
     CODE_RATES,
     bicm_capacity,
     bit_error_rate,
@@ -25,8 +26,7 @@ from solver.modcod import (
     required_esn0_db,
     symbol_error_rate,
 )
-from solver.modcod import _moments_direct as moments_direct
-from solver.model import Coding, Modulation
+from solver.physics.modcod import _moments_direct as moments_direct
 
 ALL = tuple(Modulation)
 esn0_values = st.floats(min_value=-15.0, max_value=35.0, allow_nan=False)

@@ -1,7 +1,8 @@
-"""Tests of the on-disk profile store (solver.profilecache) and its use by solver.emission.
+"""Tests of the on-disk profile store (solver.physics.profilecache) and its use by
+solver.physics.emission.
 
 Every test points BANDWRIGHT_CACHE_DIR at its own temporary directory.  "Built" is counted by
-wrapping :func:`solver.emission.simulate_amplifier_psd`, the step the store exists to skip.
+wrapping :func:`solver.physics.emission.simulate_amplifier_psd`, the step the store exists to skip.
 """
 
 from __future__ import annotations
@@ -24,10 +25,10 @@ from typing import Any
 import numpy as np
 import pytest
 
-from solver import emission, profilecache
-from solver.emission import EmissionKey, build_profile, get_profile
 from solver.model import Amplifier, AmplifierModel, Modulation, Window
-from solver.profilecache import CACHE_DIR_ENV, cache_dir, load_arrays, store_arrays
+from solver.physics import emission, profilecache
+from solver.physics.emission import EmissionKey, build_profile, get_profile
+from solver.physics.profilecache import CACHE_DIR_ENV, cache_dir, load_arrays, store_arrays
 
 ROOT = Path(__file__).resolve().parents[1]
 KEY = EmissionKey(
@@ -108,7 +109,7 @@ def test_linear_profiles_are_not_stored(store: Path) -> None:
 CHILD = textwrap.dedent(
     """
     import hashlib, json
-    from solver import emission
+    from solver.physics import emission
     from solver.model import Amplifier, AmplifierModel, Modulation
 
     calls = []
@@ -272,7 +273,7 @@ WRITER = textwrap.dedent(
     import sys, time
     from pathlib import Path
     import numpy as np
-    from solver.profilecache import store_arrays
+    from solver.physics.profilecache import store_arrays
 
     ident, size, seconds, gate = int(sys.argv[1]), int(sys.argv[2]), float(sys.argv[3]), sys.argv[4]
     Path(gate, f"ready-{ident}").touch()
@@ -363,7 +364,7 @@ def test_an_unwritable_directory_warns_once_and_keeps_profiles_in_memory(
     monkeypatch.setenv(CACHE_DIR_ENV, str(blocker / "cache"))  # mkdir fails, even for root
     get_profile.cache_clear()
     try:
-        with caplog.at_level(logging.WARNING, logger="solver.profilecache"):
+        with caplog.at_level(logging.WARNING, logger="solver.physics.profilecache"):
             first = get_profile(KEY)
             second = get_profile(VARIANTS["rolloff"])
         assert get_profile(KEY) is first

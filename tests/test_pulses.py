@@ -1,4 +1,4 @@
-"""Unit and property tests of solver.pulses (the raised-cosine family).
+"""Unit and property tests of solver.physics.pulses (the raised-cosine family).
 
 Published values and third-party cross-checks are in tests/reference/test_pulse_reference.py;
 this file checks the analytic properties every input must satisfy.
@@ -12,7 +12,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from solver.model import Window
-from solver.pulses import (
+from solver.physics.pulses import (
     raised_cosine,
     raised_cosine_spectrum,
     rectangular_pulse_spectrum,

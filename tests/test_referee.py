@@ -51,11 +51,11 @@ from solver import (
     SolveStatus,
     Transmitter,
     UnservedReason,
-    modcod,
     solve,
     verify_plan,
 )
 from solver.packing import admission_weights
+from solver.physics import modcod
 
 pytestmark = pytest.mark.slow
 

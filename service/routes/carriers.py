@@ -8,8 +8,7 @@ from starlette.concurrency import run_in_threadpool
 from service.jobs import amplifier_from_wire, coding_from_wire, finite_or_none
 from service.routes.plans import PROBLEM_RESPONSES
 from service.schemas import EvaluateRequest, EvaluateResponse, LeakageAtGap
-from solver.evaluate import evaluate_carrier
-from solver.model import parse_code_rate
+from solver import evaluate_carrier, parse_code_rate
 
 __all__ = ["router"]
 

@@ -8,8 +8,7 @@ from fastapi import APIRouter, Query
 
 from service.routes.plans import PROBLEM_RESPONSES
 from service.schemas import ModcodOut
-from solver import modcod
-from solver.model import Coding, Modulation, format_code_rate
+from solver import Coding, Modulation, catalogue, format_code_rate
 
 __all__ = ["router"]
 
@@ -48,7 +47,7 @@ def list_modcods(
         framing_overhead=DEFAULTS.framing_overhead,
         target_bit_error_rate=target_bit_error_rate,
     )
-    entries = modcod.catalogue(coding, tuple(modulation) if modulation else None)
+    entries = catalogue(coding, tuple(modulation) if modulation else None)
     return [
         ModcodOut(
             modulation=e.modulation,

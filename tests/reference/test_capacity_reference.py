@@ -14,14 +14,14 @@ import numpy as np
 import pytest
 from scipy import optimize
 
-from solver.modcod import (
+from solver.model import Coding
+from solver.physics.modcod import (
     cm_capacity,
     ebn0_from_esn0_db,
     gaussian_capacity_dispersion,
     normal_approximation_bits,
     required_esn0_db,
 )
-from solver.model import Coding
 
 ESN0_GRID_DB = (-5.0, 0.0, 5.0, 10.0, 15.0, 20.0)
 # check-values §2, constellation-constrained capacity, bits per complex symbol (computed).

@@ -24,8 +24,8 @@ from itertools import combinations
 
 import pytest
 
-from solver.modcod import constellation, required_esn0_db
 from solver.model import Coding, Modulation
+from solver.physics.modcod import constellation, required_esn0_db
 
 # (modulation, code rate) → (standard's spectral efficiency b/sym, ideal Es/N0 dB);
 # check-values §3, quoting EN 302 307-1.

@@ -14,8 +14,8 @@ import numpy as np
 import pytest
 from scipy import optimize, special
 
-from solver.emission import EmissionKey, SpectrumProfile, get_profile, rapp_am_am, saleh
-from solver.pulses import raised_cosine_spectrum, rectangular_pulse_spectrum
+from solver.physics.emission import EmissionKey, SpectrumProfile, get_profile, rapp_am_am, saleh
+from solver.physics.pulses import raised_cosine_spectrum, rectangular_pulse_spectrum
 
 HALF_POWER_DB = 10 * math.log10(0.5)
 

@@ -14,7 +14,7 @@ import pytest
 from commpy.modulation import PSKModem, QAMModem
 from scipy import optimize
 
-from solver.modcod import bit_error_rate, esn0_from_ebn0_db, symbol_error_rate
+from solver.physics.modcod import bit_error_rate, esn0_from_ebn0_db, symbol_error_rate
 
 # Exact Gray BER at a given Eb/N0 — check-values §1c (computed from the exact forms).
 # Tolerance: 5e-4 relative; the table prints 5 significant figures (half-unit = 5e-5 relative
@@ -188,7 +188,7 @@ def test_apsk_union_bound_is_tight_and_above_simulation() -> None:
     # Proakis & Salehi §4.2: the union bound is an upper bound and becomes tight at high SNR.
     # Own seeded simulation of the 16APSK constellation (minimum-distance detection):
     # the bound must not be below the observed rate by more than 4.5 σ, and be within 25 %.
-    from solver.modcod import constellation
+    from solver.physics.modcod import constellation
 
     points = constellation("16APSK").points
     rng = np.random.default_rng(7)

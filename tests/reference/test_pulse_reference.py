@@ -12,7 +12,7 @@ import pytest
 from commpy.filters import rcosfilter, rrcosfilter
 from scipy import optimize
 
-from solver.pulses import (
+from solver.physics.pulses import (
     raised_cosine,
     raised_cosine_spectrum,
     rectangular_pulse_spectrum,

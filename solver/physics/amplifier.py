@@ -1,7 +1,8 @@
 """Memoryless power-amplifier models and the drive that sets a given output back-off.
 
 Rapp (1991) AM/AM for solid-state amplifiers, Saleh (1981) AM/AM and AM/PM for travelling-wave
-tubes.  :mod:`solver.emission` passes shaped symbols through them to estimate spectral regrowth.
+tubes.  :mod:`solver.physics.emission` passes shaped symbols through them to estimate spectral
+regrowth.
 """
 
 from __future__ import annotations

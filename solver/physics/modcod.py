@@ -2,7 +2,7 @@
 thresholds at a finite block length, and the MODCOD catalogue.
 
 Conventions: Es/N0 is the energy per symbol over the one-sided noise density, in dB; every
-constellation has unit mean energy (:mod:`solver.constellations`).  One-dimensional formats
+constellation has unit mean energy (:mod:`solver.physics.constellations`).  One-dimensional formats
 (BPSK, M-PAM) only see the in-phase noise (variance N0/2).  Capacities and information
 densities are in bits per symbol (per complex channel use for two-dimensional formats).
 
@@ -29,7 +29,8 @@ import numpy.typing as npt
 from scipy import optimize, special
 from scipy.interpolate import CubicSpline
 
-from solver.constellations import (
+from solver.model import CodeRate, Coding, Modulation
+from solver.physics.constellations import (
     SQUARE_QAM,
     Constellation,
     axis_geometry,
@@ -40,7 +41,6 @@ from solver.constellations import (
     esn0_from_ebn0_db,
     symbol_error_rate,
 )
-from solver.model import CodeRate, Coding, Modulation
 
 __all__ = [
     "CODE_RATES",

@@ -27,8 +27,9 @@ import numpy.typing as npt
 from scipy import fft as sp_fft
 from scipy import signal
 
-from solver import profilecache
-from solver.amplifier import (
+from solver.model import Amplifier, AmplifierModel, Modulation, ProblemError, Transmitter, Window
+from solver.physics import profilecache
+from solver.physics.amplifier import (
     BRACKET_DECIMATION,
     DRIVE_GRID_DB,
     DRIVE_REFINE,
@@ -41,8 +42,8 @@ from solver.amplifier import (
     saleh,
     solve_drive,
 )
-from solver.model import Amplifier, AmplifierModel, Modulation, ProblemError, Transmitter, Window
-from solver.pulses import rrc_taps
+from solver.physics.constellations import constellation
+from solver.physics.pulses import rrc_taps
 
 __all__ = [
     "DEFAULT_SEED",
@@ -83,10 +84,10 @@ AMPLIFIER_SEGMENT: Final = 16_384
 WELCH_WINDOW: Final = "blackmanharris"
 DEFAULT_SEED: Final = 20_011
 PROFILE_VERSION: Final = 1
-"""Version of the amplifier simulation in stored profiles (:mod:`solver.profilecache`): raise it
-whenever a change to :func:`simulate_amplifier_psd` or :mod:`solver.amplifier` changes a
-spectrum.  Filter taps, constellation points, the constants above, the seed and the numpy and
-scipy versions enter the file name by themselves."""
+"""Version of the amplifier simulation in stored profiles (:mod:`solver.physics.profilecache`):
+raise it whenever a change to :func:`simulate_amplifier_psd` or :mod:`solver.physics.amplifier`
+changes a spectrum.  Filter taps, constellation points, the constants above, the seed and the
+numpy and scipy versions enter the file name by themselves."""
 
 
 @dataclass(frozen=True)
@@ -549,7 +550,7 @@ def get_profile(key: EmissionKey) -> SpectrumProfile:
     """Cached :func:`build_profile` with the default seed, bit for bit.
 
     In memory (thread-safe ``lru_cache``) and, for amplifier profiles, on disk across processes
-    (:mod:`solver.profilecache`, directory from ``BANDWRIGHT_CACHE_DIR``).  Linear profiles
+    (:mod:`solver.physics.profilecache`, directory from ``BANDWRIGHT_CACHE_DIR``).  Linear profiles
     are not stored: they take milliseconds, half of it in the leakage table a load would rebuild.
 
     >>> get_profile(EmissionKey(0.2, 16)) is get_profile(EmissionKey(0.2, 16))
@@ -561,8 +562,6 @@ def get_profile(key: EmissionKey) -> SpectrumProfile:
 
 
 def _constellation_points(key: EmissionKey) -> ComplexArray:
-    from solver.modcod import constellation
-
     if key.modulation is None:
         raise ProblemError("modulation", "is required when an amplifier is given")
     return np.asarray(constellation(key.modulation).points, dtype=np.complex128)
