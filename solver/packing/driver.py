@@ -179,9 +179,14 @@ class _Built:
     stage: StageObjective | None
 
     @property
+    def admission(self) -> Term:
+        """The first term: Σ admission weight · served."""
+        return self.terms[0]
+
+    @property
     def everyone(self) -> int:
         """Admission value of a plan that serves every demand with an item."""
-        return self.terms[0].upper
+        return self.admission.upper
 
     @property
     def linear(self) -> dict[Key, int] | None:
@@ -307,7 +312,7 @@ def _admit_by_solve(
     (:func:`~solver.packing.capacity.grown_start`), starts stage 2 unless the level search at
     the admission reached rounds a better one."""
     model, v, stage = built.model, built.v, built.stage
-    model.maximize(built.terms[0].expr)
+    model.maximize(built.admission.expr)
     add_hints(model, data, v)
     budget = max(0.05, data.time_limit_s * STAGE_ONE_SHARE)
     first, status = _run(model, data, budget, 0.5, None, call.cancel)
@@ -368,7 +373,7 @@ def _stage_two_model(data: PackingInput, built: _Built, adm: _Admission) -> floa
     terms are maximised in order.  Returns the bound on the plans outside kept levels (None
     when none are kept)."""
     model = built.model
-    model.add(built.terms[0].expr >= adm.admitted)
+    model.add(built.admission.expr >= adm.admitted)
     outside = _keep_levels(model, data, built.v, adm.search, adm.start, built.stage)
     hint_solution(model, built.v, adm.start)
     model.clear_objective()  # type: ignore[no-untyped-call]

@@ -106,7 +106,7 @@ def search_levels(
     combos = _combinations(keys)
     if len(combos) > COMBINATION_LIMIT:
         return _free_levels(data, keys, objective, admitted, deadline)
-    solved: list[tuple[Relaxation, list[Key]]] = []
+    solved: list[Relaxation] = []
     bounds: list[ComboBound] = []
     bound = -math.inf
     for combo in combos:
@@ -119,7 +119,7 @@ def search_levels(
             return _best(data, solved, objective, admitted, math.inf)
         bound = max(bound, relax.value)
         if relax.solved:
-            solved.append((relax, subset))
+            solved.append(relax)
             bounds.append(ComboBound(combo, relax.value))
     found = _best(data, solved, objective, admitted, max(bound, 0.0))
     return replace(found, bounds=tuple(bounds))
@@ -141,7 +141,7 @@ def _combinations(keys: Sequence[Key]) -> list[frozenset[SegmentLevel]]:
 
 def _best(
     data: PackingInput,
-    solved: list[tuple[Relaxation, list[Key]]],
+    solved: list[Relaxation],
     objective: StageObjective,
     admitted: int,
     bound: float,
@@ -149,7 +149,7 @@ def _best(
     """Round the combinations in order of their LP optimum while one could still beat the best."""
     best: dict[Key, int] | None = None
     value = -math.inf
-    for relax, _ in sorted(solved, key=lambda rs: -rs[0].value):
+    for relax in sorted(solved, key=lambda r: -r.value):
         if relax.value <= value:
             break
         choice = round_relaxation(data, relax, objective, admitted)
@@ -158,6 +158,14 @@ def _best(
             if got > value:
                 best, value = choice, got
     return LevelSearch(bound, best, value if best is not None else 0.0, len(solved))
+
+
+class _Share(NamedTuple):
+    """A level's total share of a segment in the free-level relaxation (the largest wins, ties
+    to the higher level)."""
+
+    total: float
+    level: int
 
 
 def _free_levels(
@@ -174,12 +182,12 @@ def _free_levels(
     share: dict[SegmentLevel, float] = {}
     for key, x in free.x.items():
         share[key.segment_level] = share.get(key.segment_level, 0.0) + x
-    main: dict[int, tuple[float, int]] = {}
+    main: dict[int, _Share] = {}
     for sl, total in share.items():
-        main[sl.segment] = max(main.get(sl.segment, (-1.0, -1)), (total, sl.level))
-    subset = [key for key in keys if main[key.segment][1] == key.level]
+        main[sl.segment] = max(main.get(sl.segment, _Share(-1.0, -1)), _Share(total, sl.level))
+    subset = [key for key in keys if main[key.segment].level == key.level]
     fixed = solve_relaxation(data, subset, objective, admitted, deadline - time.perf_counter())
-    result = _best(data, [(fixed, subset)] if fixed.solved else [], objective, admitted, free.value)
+    result = _best(data, [fixed] if fixed.solved else [], objective, admitted, free.value)
     return LevelSearch(free.value, result.choice, result.value, 2)
 
 
