@@ -17,7 +17,6 @@ from hypothesis import strategies as st
 from ortools.sat.python import cp_model
 
 from solver.candidates import Candidate, DemandOptions, Family
-from solver.levelsearch import round_relaxation, search_levels
 from solver.model import CarrierConfig, Demand, Modulation, Objective, SolveStatus
 from solver.packing import (
     SCALE,
@@ -25,13 +24,15 @@ from solver.packing import (
     PackingInput,
     Segment,
     StageObjective,
-    _make_choice_vars,
-    _throughput_term,
     admission_weights,
+    round_relaxation,
+    search_levels,
     segment_room,
     solve_packing,
+    solve_relaxation,
 )
-from solver.relaxation import solve_relaxation
+from solver.packing.model import make_choice_vars as _make_choice_vars
+from solver.packing.terms import throughput_term as _throughput_term
 
 LEVELS = (10.0, 20.0)
 
@@ -316,7 +317,7 @@ def test_too_many_combinations_fall_back_to_the_free_levels(monkeypatch) -> None
     """Above the combination limit the bound is the free-level relaxation (86.7 on the instance
     of the hand-worked test, still ≥ the optimum 80) and the plan is rounded at each segment's
     level with the largest share; the packing still reaches the optimum."""
-    import solver.levelsearch as levelsearch
+    import solver.packing.levelsearch as levelsearch
 
     monkeypatch.setattr(levelsearch, "COMBINATION_LIMIT", 1)
     data = _hand_worked()
@@ -340,7 +341,7 @@ def test_level_by_level_stage_two_reaches_the_optimum(
 ) -> None:
     """Property: when the whole model gets no time at all, solving the level combinations one
     by one still reaches the brute-force optimum and proves it."""
-    import solver.packing as packing
+    import solver.packing.driver as packing
 
     real_run = packing._run
 

@@ -241,8 +241,9 @@ def test_lp_relaxation_bounds_the_integer_optimum(
     """Property: the LP relaxation of the throughput stage is never below the integer optimum."""
     from ortools.sat.python import cp_model
 
-    from solver.packing import _make_choice_vars, _throughput_term
-    from solver.relaxation import throughput_lp_bound
+    from solver.packing import throughput_lp_bound
+    from solver.packing.model import make_choice_vars as _make_choice_vars
+    from solver.packing.terms import throughput_term as _throughput_term
 
     options = [
         _options(f"d{i}", _cand(f"d{i}", 2 * w, g, float(t)), target=100.0)
