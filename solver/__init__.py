@@ -31,6 +31,7 @@ from solver.model import (
 )
 from solver.planner import solve
 from solver.rules import rule_of_thumb_plan
+from solver.summary import SettingChange, setting_change
 from solver.validation import validate_problem
 from solver.verify import Verification, Violation, verify_plan
 
@@ -51,6 +52,7 @@ __all__ = [
     "Problem",
     "ProblemError",
     "ProgressEvent",
+    "SettingChange",
     "SolveStats",
     "SolveStatus",
     "Transmitter",
@@ -62,6 +64,7 @@ __all__ = [
     "format_code_rate",
     "parse_code_rate",
     "rule_of_thumb_plan",
+    "setting_change",
     "solve",
     "validate_problem",
     "verify_plan",
