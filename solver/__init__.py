@@ -31,11 +31,12 @@ from solver.model import (
 )
 from solver.planner import solve
 from solver.rules import rule_of_thumb_plan
-from solver.summary import SettingChange, setting_change
+from solver.summary import CAUTIONS, SettingChange, setting_change
 from solver.validation import validate_problem
 from solver.verify import Verification, Violation, verify_plan
 
 __all__ = [
+    "CAUTIONS",
     "Amplifier",
     "AmplifierModel",
     "Block",

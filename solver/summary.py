@@ -1,5 +1,5 @@
 """What a plan says about itself: guards per side, free spectrum, totals, the bound, retunes,
-and words for every demand left out."""
+words for every demand left out, and the cautions every plan carries."""
 
 from __future__ import annotations
 
@@ -32,12 +32,13 @@ __all__ = [
     "with_guards",
 ]
 
-CAUTIONS = (
+CAUTIONS: tuple[str, ...] = (
     "This plan is an engineering estimate from models of the pulse shaping, amplifier and link. "
     "Measure real equipment before any carrier goes on air.",
     "Licence conditions, the regulator's emission limits and coordination with neighbouring "
     "licensees decide what may be transmitted, not this tool.",
 )
+"""What every plan's notices and picture say about themselves (the README keeps its own words)."""
 
 SAME_CENTER_TOLERANCE_HZ = 1.0
 """Centres closer than this (Hz) are the same: far below any placement raster, it absorbs
