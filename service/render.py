@@ -3,8 +3,8 @@
 The picture shows the licensed block on a frequency axis, the exclusions (hatched, with their
 note), the guard bands (shaded), every carrier's power spectral density in dB relative to the
 reference level, the leakage limits drawn below the in-band level, and one label per carrier
-(demand id, modulation and code rate, throughput).  A footer states that the plan is a model
-estimate.
+(demand id, modulation and code rate, throughput).  The footer repeats the cautions of every
+plan's notices (:data:`solver.CAUTIONS`).
 
 Drawing uses matplotlib's object interface only (:class:`matplotlib.figure.Figure` on an Agg
 canvas): no pyplot, no global figure state.  matplotlib does not promise thread safety, so the
@@ -37,7 +37,15 @@ from matplotlib.patches import Patch
 from matplotlib.text import Text
 from matplotlib.ticker import ScalarFormatter
 
-from solver import Carrier, EmissionKey, Plan, Problem, format_code_rate, get_profile
+from solver import (
+    CAUTIONS,
+    Carrier,
+    EmissionKey,
+    Plan,
+    Problem,
+    format_code_rate,
+    get_profile,
+)
 
 __all__ = [
     "DensityFn",
@@ -59,11 +67,6 @@ ProfileSource = Callable[[Carrier, Problem], DensityFn]
 ImageFormat = Literal["svg", "png"]
 Colour = tuple[float, float, float, float]
 
-CAUTION: Final = (
-    "Model estimate: spectra, leakage and margins are computed from models, not measured.\n"
-    "Licence conditions, the regulator's emission limits, coordination with neighbours and "
-    "measurement of the real equipment decide before any carrier goes on air."
-)
 _LOCK: Final = threading.Lock()
 _MHZ: Final = 1e6
 _KHZ: Final = 1e3
@@ -550,7 +553,13 @@ def _draw_texts(figure: Figure, plan: Plan, problem: Problem, scale_hz: float, u
         parts.append(f"unserved: {names}{more}")
     figure.text(STYLE.left, 0.897, "   ·   ".join(parts), fontsize=9.5, va="center")
     figure.text(
-        STYLE.left, 0.012, CAUTION, fontsize=8.5, style="italic", color="#444444", linespacing=1.3
+        STYLE.left,
+        0.012,
+        "\n".join(CAUTIONS),
+        fontsize=8.5,
+        style="italic",
+        color="#444444",
+        linespacing=1.3,
     )
 
 

@@ -36,10 +36,12 @@ from solver.physics.emission import EmissionKey, SpectrumProfile, get_profile
 from solver.physics.modcod import ModcodEntry, catalogue
 from solver.planner import solve
 from solver.rules import rule_of_thumb_plan
+from solver.summary import CAUTIONS, SettingChange, setting_change
 from solver.validation import validate_problem
 from solver.verify import Verification, Violation, verify_plan
 
 __all__ = [
+    "CAUTIONS",
     "Amplifier",
     "AmplifierModel",
     "Block",
@@ -60,6 +62,7 @@ __all__ = [
     "Problem",
     "ProblemError",
     "ProgressEvent",
+    "SettingChange",
     "SolveStats",
     "SolveStatus",
     "SpectrumProfile",
@@ -75,6 +78,7 @@ __all__ = [
     "get_profile",
     "parse_code_rate",
     "rule_of_thumb_plan",
+    "setting_change",
     "solve",
     "validate_problem",
     "verify_plan",

@@ -53,6 +53,7 @@ from solver.packing import (
     admission_weights,
     solve_packing,
 )
+from solver.repair import drop_until_passing, dropped_notice
 from solver.spacing import Wall
 from solver.summary import (
     CAUTIONS,
@@ -418,7 +419,7 @@ def _solve_and_verify(
         result = solve_packing(attempt, progress=progress, cancel=cancel)
         placed = to_carriers(problem, _arrange(problem, attempt, result))
         if not placed and previous is not None:
-            check, dropped = _drop_until_passing(problem, previous[0])
+            check, dropped = drop_until_passing(problem, previous[0])
             return check, previous[1], round_no, dropped
         check = verify_plan(problem, [*pinned, *placed])
         if check.passed:
@@ -428,7 +429,7 @@ def _solve_and_verify(
         left = deadline - time.perf_counter()
         stop = cancel is not None and cancel.is_set()
         if round_no > MAX_REPAIR_ROUNDS or not raised or left <= 0.2 or stop:
-            check, dropped = _drop_until_passing(problem, check)
+            check, dropped = drop_until_passing(problem, check)
             return check, result, round_no, dropped
         options = [
             build_candidates(problem, o.demand, min_limit_db=floors[o.demand.id])
@@ -438,21 +439,6 @@ def _solve_and_verify(
         ]
         previous, hints = (check, result), _solution_hints(attempt, result, options)
         budget = left / 2
-
-
-def _drop_until_passing(
-    problem: Problem, check: Verification
-) -> tuple[Verification, list[Unserved]]:
-    """Last resort: leave out the carriers still to blame until the rest passes."""
-    dropped: list[Unserved] = []
-    while not check.passed:
-        blamed = {v.demand_id: v.detail for v in check.violations}
-        dropped += [
-            Unserved(d, UnservedReason.NO_SPECTRUM, f"left out after verification: {why}")
-            for d, why in sorted(blamed.items())
-        ]
-        check = verify_plan(problem, [c for c in check.carriers if c.demand_id not in blamed])
-    return check, dropped
 
 
 # ---------------------------------------------------------------- replans
@@ -504,6 +490,7 @@ class _Outcome:
     unserved: tuple[Unserved, ...]
     result: PackingResult
     rounds: int
+    dropped: tuple[Unserved, ...] = ()
     fixed: tuple[_Fixed, ...] = ()
     """The carriers that did not move (pinned, or kept in place by a replan)."""
     choice: _PinnedChoice = _PinnedChoice()
@@ -583,6 +570,7 @@ def _run(
         tuple(sorted(unserved, key=lambda u: u.demand_id)),
         result,
         rounds,
+        tuple(dropped),
         tuple(fixed),
         choice,
     )
@@ -756,6 +744,8 @@ def _finish(problem: Problem, outcome: _Outcome, elapsed_s: float) -> Plan:
             f"Verification needed {outcome.rounds} rounds: guards were widened where "
             "interference was found."
         )
+    if outcome.dropped:
+        notices.append(dropped_notice(outcome.dropped))
     if status is SolveStatus.FEASIBLE and math.isfinite(result.optimality_gap):
         notices.append(
             "The solver stopped at its time limit; the plan is within "

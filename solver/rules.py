@@ -32,6 +32,7 @@ from solver.model import (
     UnservedReason,
 )
 from solver.physics import modcod
+from solver.repair import drop_until_passing, dropped_notice
 from solver.summary import CAUTIONS, summarise, with_guards
 from solver.validation import validate_problem
 from solver.verify import verify_plan
@@ -131,14 +132,8 @@ def rule_of_thumb_plan(problem: Problem) -> Plan:
         half = config.allocated_bandwidth_hz / 2 * (1 + 2 * HAND_GUARD_FRACTION)
         taken.append((center - half, center + half))
         carriers.append(Carrier(config, center, 0.0, 0.0))
-    check = verify_plan(problem, carriers)
-    while not check.passed:
-        blamed = {v.demand_id: v.detail for v in check.violations}
-        unserved += [
-            Unserved(d, UnservedReason.NO_SPECTRUM, f"fails verification: {why}")
-            for d, why in sorted(blamed.items())
-        ]
-        check = verify_plan(problem, [c for c in check.carriers if c.demand_id not in blamed])
+    check, dropped = drop_until_passing(problem, verify_plan(problem, carriers))
+    unserved += dropped
     final = with_guards(problem, check.carriers)
     total = sum(c.config.throughput_bps for c in final)
     status = SolveStatus.FEASIBLE if final else SolveStatus.INFEASIBLE
@@ -152,5 +147,5 @@ def rule_of_thumb_plan(problem: Problem) -> Plan:
         unserved=tuple(sorted(unserved, key=lambda u: u.demand_id)),
         summary=summarise(problem, final, 0),
         stats=stats,
-        notices=CAUTIONS,
+        notices=(*CAUTIONS, dropped_notice(dropped)) if dropped else CAUTIONS,
     )

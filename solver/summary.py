@@ -1,32 +1,51 @@
 """What a plan says about itself: guards per side, free spectrum, totals, the bound, retunes,
-and words for every demand left out."""
+words for every demand left out, and the cautions every plan carries."""
 
 from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from dataclasses import replace
+from dataclasses import dataclass, replace
 
 from solver.candidates import DemandOptions
-from solver.model import Carrier, PlanSummary, Problem, Unserved, UnservedReason
+from solver.model import (
+    Carrier,
+    CurrentSetting,
+    PlanSummary,
+    Problem,
+    Unserved,
+    UnservedReason,
+)
 from solver.packing import Segment
 from solver.physics import bounds
 
 __all__ = [
     "CAUTIONS",
+    "SAME_CENTER_TOLERANCE_HZ",
+    "SAME_RATE_TOLERANCE",
+    "SettingChange",
     "explain_unserved",
     "free_segments_hz",
     "mark_retunes",
+    "setting_change",
     "summarise",
     "with_guards",
 ]
 
-CAUTIONS = (
+CAUTIONS: tuple[str, ...] = (
     "This plan is an engineering estimate from models of the pulse shaping, amplifier and link. "
     "Measure real equipment before any carrier goes on air.",
     "Licence conditions, the regulator's emission limits and coordination with neighbouring "
     "licensees decide what may be transmitted, not this tool.",
 )
+"""What every plan's notices and picture say about themselves (the README keeps its own words)."""
+
+SAME_CENTER_TOLERANCE_HZ = 1.0
+"""Centres closer than this (Hz) are the same: far below any placement raster, it absorbs
+floating-point round-off only, so a carrier moved by any part of a raster step is retuned."""
+
+SAME_RATE_TOLERANCE = 1e-9
+"""Relative tolerance on symbol rate and roll-off: floating-point round-off only."""
 
 
 def explain_unserved(
@@ -139,17 +158,70 @@ def summarise(problem: Problem, carriers: Sequence[Carrier], retunes: int) -> Pl
     )
 
 
+@dataclass(frozen=True)
+class SettingChange:
+    """How a carrier's setting differs from an earlier one."""
+
+    moved: bool
+    """The centre moved by more than :data:`SAME_CENTER_TOLERANCE_HZ`."""
+    reconfigured: bool
+    """Modulation, code rate, roll-off or symbol rate changed."""
+
+    @property
+    def retuned(self) -> bool:
+        """Anything changed: the carrier must be retuned on air."""
+        return self.moved or self.reconfigured
+
+
+def setting_change(before: CurrentSetting, after: CurrentSetting) -> SettingChange:
+    """Compare two settings of one demand's carrier: the one rule for "retuned".
+
+    Parameters
+    ----------
+    before, after : CurrentSetting
+        The earlier setting (a demand's ``current``, or the parent plan's carrier) and the new.
+
+    Returns
+    -------
+    SettingChange
+        Whether the centre moved (beyond :data:`SAME_CENTER_TOLERANCE_HZ`, Hz) and whether the
+        configuration changed (symbol rate and roll-off beyond the relative
+        :data:`SAME_RATE_TOLERANCE`; modulation and code rate exactly).
+
+    Examples
+    --------
+    >>> from fractions import Fraction
+    >>> from solver.model import Modulation
+    >>> old = CurrentSetting(2.4e9, 1e6, 0.2, Modulation.QPSK, Fraction(1, 2))
+    >>> setting_change(old, replace(old, center_hz=2.4e9 + 2_500.0))
+    SettingChange(moved=True, reconfigured=False)
+    """
+    moved = abs(after.center_hz - before.center_hz) > SAME_CENTER_TOLERANCE_HZ
+    reconfigured = not (
+        after.modulation == before.modulation
+        and after.code_rate == before.code_rate
+        and math.isclose(after.rolloff, before.rolloff, rel_tol=SAME_RATE_TOLERANCE)
+        and math.isclose(
+            after.symbol_rate_baud, before.symbol_rate_baud, rel_tol=SAME_RATE_TOLERANCE
+        )
+    )
+    return SettingChange(moved, reconfigured)
+
+
+def _setting(carrier: Carrier) -> CurrentSetting:
+    cfg = carrier.config
+    return CurrentSetting(
+        carrier.center_hz, cfg.symbol_rate_baud, cfg.rolloff, cfg.modulation, cfg.code_rate
+    )
+
+
 def mark_retunes(problem: Problem, carriers: Sequence[Carrier]) -> list[Carrier]:
+    """Each carrier with ``retuned`` set when it differs from its demand's current setting
+    (:func:`setting_change`)."""
     current = {d.id: d.current for d in problem.demands if d.current is not None}
     out = []
     for c in carriers:
         cur = current.get(c.demand_id)
-        moved = cur is not None and not (
-            math.isclose(c.center_hz, cur.center_hz, abs_tol=problem.block.raster_hz / 2)
-            and math.isclose(c.config.symbol_rate_baud, cur.symbol_rate_baud, rel_tol=1e-6)
-            and math.isclose(c.config.rolloff, cur.rolloff)
-            and c.config.modulation == cur.modulation
-            and c.config.code_rate == cur.code_rate
-        )
+        moved = cur is not None and setting_change(cur, _setting(c)).retuned
         out.append(replace(c, retuned=moved))
     return out

@@ -4,8 +4,10 @@ The packer works with integer guard needs on a raster and a segment-capacity for
 module ignores all of that and looks at the placed carriers only:
 
 * every carrier lies inside the block and outside every exclusion, and no two overlap;
-* every carrier's leakage ratio towards its actual neighbour (or the block edge / exclusion) at
-  the actual gap meets the limit (edge limit towards edges and exclusions);
+* every carrier's leakage ratio towards its actual neighbour at the actual gap meets the
+  leakage limit, and towards every block edge and exclusion it does not overlap — whatever lies
+  between — the edge limit (a carrier that overlaps one is reported as outside the block or in
+  the exclusion);
 * every carrier's margin after the aggregate interference of all others, each at its relative
   level, integrated through the victim's matched receive filter, stays within
   :data:`INTERFERENCE_ALLOWANCE_DB` of the margin the demand asked for.
@@ -43,6 +45,9 @@ Side = Literal["below", "above"]
 
 _LEAKAGE_TOLERANCE_DB = 0.05
 """Numerical slack on leakage ratios (profile interpolation)."""
+
+_PLACEMENT_TOLERANCE_HZ = 1e-6
+"""Numerical slack on edges (floating-point round-off of centres and widths)."""
 
 
 class ViolationKind(StrEnum):
@@ -84,24 +89,55 @@ def _key(problem: Problem, carrier: Carrier, *, linear: bool = False) -> emissio
     )
 
 
-def _obstacles(problem: Problem) -> list[tuple[float, float]]:
-    """Block outside and exclusions as (start, stop) intervals, sorted."""
+@dataclass(frozen=True)
+class _LeakCheck:
+    """One leakage check on one side of a carrier: the gap (Hz) from its nominal edge to what
+    it must protect, which limit applies, and what that is (a demand id or an edge's name)."""
+
+    gap_hz: float
+    kind: Literal[ViolationKind.LEAKAGE, ViolationKind.EDGE_LEAKAGE]
+    towards: str
+
+
+@dataclass(frozen=True)
+class _Obstacle:
+    """Spectrum no carrier may use: outside the block, or an exclusion (Hz)."""
+
+    start_hz: float
+    stop_hz: float
+    name: str
+
+
+def _obstacles(problem: Problem) -> list[_Obstacle]:
+    """Block outside and exclusions, sorted."""
     block = problem.block
-    spans = [(-math.inf, block.start_hz), (block.stop_hz, math.inf)]
-    spans += [(x.start_hz, x.stop_hz) for x in block.exclusions]
-    return sorted(spans)
+    spans = [
+        _Obstacle(-math.inf, block.start_hz, "the lower block edge"),
+        _Obstacle(block.stop_hz, math.inf, "the upper block edge"),
+    ]
+    for x in block.exclusions:
+        spans.append(
+            _Obstacle(x.start_hz, x.stop_hz, f"exclusion ({x.note})" if x.note else "exclusion")
+        )
+    return sorted(spans, key=lambda o: (o.start_hz, o.stop_hz))
 
 
 def _placement_violations(problem: Problem, carriers: Sequence[Carrier]) -> list[Violation]:
     found: list[Violation] = []
     block = problem.block
     for c in carriers:
-        if c.lower_edge_hz < block.start_hz - 1e-6 or c.upper_edge_hz > block.stop_hz + 1e-6:
+        if (
+            c.lower_edge_hz < block.start_hz - _PLACEMENT_TOLERANCE_HZ
+            or c.upper_edge_hz > block.stop_hz + _PLACEMENT_TOLERANCE_HZ
+        ):
             found.append(
                 Violation(c.demand_id, ViolationKind.OUTSIDE_BLOCK, "carrier leaves the block")
             )
         for x in block.exclusions:
-            if c.lower_edge_hz < x.stop_hz - 1e-6 and c.upper_edge_hz > x.start_hz + 1e-6:
+            if (
+                c.lower_edge_hz < x.stop_hz - _PLACEMENT_TOLERANCE_HZ
+                and c.upper_edge_hz > x.start_hz + _PLACEMENT_TOLERANCE_HZ
+            ):
                 note = f" ({x.note})" if x.note else ""
                 found.append(
                     Violation(
@@ -109,17 +145,30 @@ def _placement_violations(problem: Problem, carriers: Sequence[Carrier]) -> list
                     )
                 )
     for a, b in itertools.pairwise(carriers):
-        if b.lower_edge_hz < a.upper_edge_hz - 1e-6:
+        if b.lower_edge_hz < a.upper_edge_hz - _PLACEMENT_TOLERANCE_HZ:
             found.append(Violation(b.demand_id, ViolationKind.OVERLAP, f"overlaps {a.demand_id}"))
     return found
 
 
-def _gap_to_obstacle(problem: Problem, c: Carrier, side: Side) -> float:
+def _obstacle_gaps(obstacles: Sequence[_Obstacle], c: Carrier, side: Side) -> list[_LeakCheck]:
+    """A check against every obstacle wholly on ``side`` of the carrier, nearest first.
+
+    An obstacle the carrier overlaps is left out: the carrier is reported as outside the block
+    or in the exclusion instead, and a leakage ratio at a negative gap would mean nothing.
+    """
     if side == "below":
-        stops = [stop for _, stop in _obstacles(problem) if stop <= c.lower_edge_hz + 1e-6]
-        return c.lower_edge_hz - max(stops)
-    starts = [start for start, _ in _obstacles(problem) if start >= c.upper_edge_hz - 1e-6]
-    return min(starts) - c.upper_edge_hz
+        gaps = [
+            (c.lower_edge_hz - o.stop_hz, o.name)
+            for o in obstacles
+            if o.stop_hz <= c.lower_edge_hz + _PLACEMENT_TOLERANCE_HZ
+        ]
+    else:
+        gaps = [
+            (o.start_hz - c.upper_edge_hz, o.name)
+            for o in obstacles
+            if o.start_hz >= c.upper_edge_hz - _PLACEMENT_TOLERANCE_HZ
+        ]
+    return [_LeakCheck(gap, ViolationKind.EDGE_LEAKAGE, name) for gap, name in sorted(gaps)]
 
 
 def _side_ratio(problem: Problem, c: Carrier, gap_hz: float, side: Side) -> float:
@@ -130,50 +179,58 @@ def _side_ratio(problem: Problem, c: Carrier, gap_hz: float, side: Side) -> floa
     return float(emission.leakage_ratio_db_at(key, rs, gap, side))
 
 
+def _side_checks(
+    obstacles: Sequence[_Obstacle], c: Carrier, side: Side, neighbour: Carrier | None
+) -> list[_LeakCheck]:
+    """What ``c`` must protect on ``side``, nearest first: its neighbour (unless an edge or
+    exclusion lies between them) and every block edge and exclusion, whoever lies between."""
+    checks = _obstacle_gaps(obstacles, c, side)
+    if neighbour is not None:
+        gap = (
+            neighbour.lower_edge_hz - c.upper_edge_hz
+            if side == "above"
+            else c.lower_edge_hz - neighbour.upper_edge_hz
+        )
+        if not checks or gap < checks[0].gap_hz:
+            checks.insert(0, _LeakCheck(gap, ViolationKind.LEAKAGE, neighbour.demand_id))
+    return checks
+
+
 def _leakage(problem: Problem, carriers: list[Carrier]) -> tuple[list[Carrier], list[Violation]]:
-    """Leakage ratio of each carrier towards whatever is nearest on each side."""
+    """Leakage ratio of each carrier towards its neighbour and every edge and exclusion.
+
+    The ratio filled in on each side is the one towards whatever is nearest there.
+    """
+    obstacles = _obstacles(problem)
+    limits = {
+        ViolationKind.LEAKAGE: problem.leakage_limit_db,
+        ViolationKind.EDGE_LEAKAGE: problem.edge_limit_db,
+    }
     found: list[Violation] = []
     out: list[Carrier] = []
     for i, c in enumerate(carriers):
-        ratios = {}
+        ratios: dict[Side, float] = {"below": math.inf, "above": math.inf}
         sides: tuple[tuple[Side, Carrier | None], ...] = (
             ("below", carriers[i - 1] if i else None),
             ("above", carriers[i + 1] if i + 1 < len(carriers) else None),
         )
         for side, neighbour in sides:
-            edge_gap = _gap_to_obstacle(problem, c, side)
-            limit, kind, gap, what = (
-                problem.edge_limit_db,
-                ViolationKind.EDGE_LEAKAGE,
-                edge_gap,
-                "block edge or exclusion",
-            )
-            if neighbour is not None:
-                n_gap = (
-                    neighbour.lower_edge_hz - c.upper_edge_hz
-                    if side == "above"
-                    else c.lower_edge_hz - neighbour.upper_edge_hz
-                )
-                if n_gap < edge_gap:
-                    limit, kind, gap, what = (
-                        problem.leakage_limit_db,
-                        ViolationKind.LEAKAGE,
-                        n_gap,
-                        neighbour.demand_id,
+            for k, check in enumerate(_side_checks(obstacles, c, side, neighbour)):
+                ratio = _side_ratio(problem, c, check.gap_hz, side)
+                if k == 0:
+                    ratios[side] = ratio
+                limit = limits[check.kind]
+                if ratio < limit - _LEAKAGE_TOLERANCE_DB:
+                    found.append(
+                        Violation(
+                            c.demand_id,
+                            check.kind,
+                            f"leakage ratio {ratio:.1f} dB towards {check.towards} ({side}) is "
+                            f"below the {limit:.1f} dB limit",
+                            culprit=c.demand_id,
+                            needed_db=limit,
+                        )
                     )
-            ratio = _side_ratio(problem, c, gap, side)
-            ratios[side] = ratio
-            if ratio < limit - _LEAKAGE_TOLERANCE_DB:
-                found.append(
-                    Violation(
-                        c.demand_id,
-                        kind,
-                        f"leakage ratio {ratio:.1f} dB towards {what} ({side}) is below "
-                        f"the {limit:.1f} dB limit",
-                        culprit=c.demand_id,
-                        needed_db=limit,
-                    )
-                )
         out.append(
             replace(
                 c, leakage_ratio_below_db=ratios["below"], leakage_ratio_above_db=ratios["above"]

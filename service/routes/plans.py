@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import math
 import threading
 from typing import Annotated, Any, Literal
 
@@ -32,6 +31,8 @@ from service.schemas import (
     SettingOut,
 )
 from service.store import StoredPlan
+from solver import setting_change
+from solver.model import CurrentSetting, parse_code_rate
 
 __all__ = ["PROBLEM_RESPONSES", "router"]
 
@@ -39,8 +40,6 @@ router = APIRouter(prefix="/v1/plans", tags=["plans"])
 
 MAX_PAGE = 100
 PlanId = Annotated[str, Path(min_length=1, max_length=64, description="plan id")]
-SAME_CENTER_TOLERANCE_HZ = 1.0  # far below any placement raster; absorbs float round-off
-RELATIVE_TOLERANCE = 1e-9
 
 
 def _problem(description: str) -> dict[str, Any]:
@@ -214,24 +213,26 @@ def compare_settings(
     return retunes
 
 
-def _same_configuration(old: SettingOut, new: SettingOut) -> bool:
-    return (
-        old.modulation == new.modulation
-        and old.code_rate == new.code_rate
-        and math.isclose(old.rolloff, new.rolloff, rel_tol=RELATIVE_TOLERANCE)
-        and math.isclose(old.symbol_rate_baud, new.symbol_rate_baud, rel_tol=RELATIVE_TOLERANCE)
+def _solver_setting(setting: SettingOut) -> CurrentSetting:
+    return CurrentSetting(
+        center_hz=setting.center_hz,
+        symbol_rate_baud=setting.symbol_rate_baud,
+        rolloff=setting.rolloff,
+        modulation=setting.modulation,
+        code_rate=parse_code_rate(setting.code_rate),
     )
 
 
 def _change(old: SettingOut | None, new: SettingOut | None) -> RetuneChange | None:
+    """The solver's rule (:func:`solver.setting_change`), so that this list and the plan's
+    ``retuned`` flags agree."""
     if old is None:
         return RetuneChange.ADDED
     if new is None:
         return RetuneChange.DROPPED
-    moved = abs(new.center_hz - old.center_hz) > SAME_CENTER_TOLERANCE_HZ
-    reconfigured = not _same_configuration(old, new)
-    if moved and reconfigured:
+    change = setting_change(_solver_setting(old), _solver_setting(new))
+    if change.moved and change.reconfigured:
         return RetuneChange.MOVED_AND_RECONFIGURED
-    if moved:
+    if change.moved:
         return RetuneChange.MOVED
-    return RetuneChange.RECONFIGURED if reconfigured else None
+    return RetuneChange.RECONFIGURED if change.reconfigured else None
