@@ -33,7 +33,15 @@ from solver.packing.model import (
 )
 from solver.packing.objective import StageObjective
 from solver.packing.relaxation import throughput_lp_bound
-from solver.packing.results import bounded, extract, from_choice, gap, no_solution
+from solver.packing.results import (
+    RELATIVE_GAP,
+    bounded,
+    closed,
+    extract,
+    from_choice,
+    gap,
+    no_solution,
+)
 from solver.packing.terms import (
     INT_HEADROOM,
     Term,
@@ -110,7 +118,10 @@ def _configure(solver: cp_model.CpSolver, data: PackingInput, gap_units: float, 
     if items > LARGE_MODEL_ITEMS:
         # Presolve probing dominates short budgets on large models (CP-SAT notes, §1.8).
         params.cp_model_probing_level = 0
-    params.absolute_gap_limit = max(gap_units, 1e-4)
+    # Stop within the stage's slack only once also within 0.01 % of the bound itself (an
+    # integer objective: a gap under 0.5 is none).
+    params.absolute_gap_limit = min(max(gap_units, 1e-4), 0.5)
+    params.relative_gap_limit = RELATIVE_GAP
     params.max_time_in_seconds = max(0.05, data.time_limit_s)
     params.num_workers = max(1, data.num_workers)
     params.random_seed = data.seed
@@ -337,7 +348,7 @@ def _improve(data: PackingInput, built: _Built, adm: _Admission, call: _Call) ->
     combinations are solved one by one, or the bound is tightened by the LP relaxation.
     """
     _report_start(adm, call)
-    if adm.proven and adm.value is not None and adm.bound - adm.value <= built.slack:
+    if adm.proven and adm.value is not None and closed(adm.bound, adm.value, built.slack):
         settled = from_choice(adm.start, call.elapsed(), adm.value)
         return bounded(settled, adm.bound, proven=True, slack=built.slack)
     outside = _stage_two_model(data, built, adm)
@@ -446,9 +457,9 @@ def _by_combination(
     bounds = {cb.levels: cb.value for cb in order}
     for n, (combo, lp) in enumerate(order):
         left = call.deadline - time.perf_counter()
-        if lp - value <= slack or left <= 0.05 or call.cancelled():
+        if closed(lp, value, slack) or left <= 0.05 or call.cancelled():
             break
-        rivals = sum(1 for other in order[n:] if other.value - value > slack)
+        rivals = sum(1 for other in order[n:] if not closed(other.value, value, slack))
         if all(k.segment_level in combo for k in incumbent):
             hint_solution(model, v, incumbent)
         else:

@@ -40,6 +40,16 @@ def from_choice(chosen: Mapping[Key, int], elapsed: float, value: float | None) 
     )
 
 
+RELATIVE_GAP = 1e-4
+"""A bound within this fraction of itself (0.01 %) closes a stage, whatever its slack."""
+
+
+def closed(bound: float, value: float, slack: float = math.inf) -> bool:
+    """Whether ``bound`` lies within ``slack`` (units of the term) and within
+    :data:`RELATIVE_GAP` of itself above ``value``."""
+    return bound - value <= min(slack, RELATIVE_GAP * max(abs(bound), 1.0))
+
+
 def no_solution(elapsed: float) -> PackingResult:
     """The result when not even admission found a plan."""
     return PackingResult(SolveStatus.INFEASIBLE, {}, {}, 0.0, 0.0, 0.0, elapsed, _version())
@@ -57,7 +67,7 @@ def extract(
             chosen.setdefault(key.segment, []).append(Pick(key.demand, key.family, half))
             levels[key.segment] = key.level
     obj, bound = solver.objective_value, solver.best_objective_bound
-    state = SolveStatus.OPTIMAL if proven else SolveStatus.FEASIBLE
+    state = SolveStatus.OPTIMAL if proven and closed(bound, obj) else SolveStatus.FEASIBLE
     return PackingResult(state, chosen, levels, obj, bound, gap(obj, bound), elapsed, _version())
 
 
@@ -67,8 +77,8 @@ def bounded(result: PackingResult, bound: float, *, proven: bool, slack: float) 
     :data:`~solver.packing.driver.GAP_TOLERANCE`) and the admission before it was ``proven``
     optimal."""
     best = min(result.best_bound, math.floor(bound + 1e-6))
-    closed = best - result.objective_value <= slack
-    status = SolveStatus.OPTIMAL if proven and closed else result.status
+    done = closed(best, result.objective_value, slack)
+    status = SolveStatus.OPTIMAL if proven and done else SolveStatus.FEASIBLE
     return replace(
         result, best_bound=best, optimality_gap=gap(result.objective_value, best), status=status
     )
