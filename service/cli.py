@@ -34,7 +34,7 @@ import httpx
 import pydantic
 
 from service.errors import FieldIssue, InvalidInputError, field_path
-from service.jobs import plan_to_wire, to_problem
+from service.jobs import finite_or_none, plan_to_wire, to_problem
 from service.schemas import DemandIn, PlanOut, PlanRequest
 from service.settings import Settings
 from service.store import utc_now
@@ -123,25 +123,31 @@ def _load_plan(path: Path) -> PlanOut:
 
 
 class ProgressLine:
-    """Writes elapsed time, best objective and gap to stderr, once a solve runs long."""
+    """Writes to stderr what the solve is computing, at once whenever that changes and at
+    most once a second otherwise; with each verified plan, its objective and gap (the
+    figures the plan reports)."""
 
     def __init__(self) -> None:
         self._started = time.monotonic()
         self._last = -PROGRESS_AFTER_S
+        self._stage: str | None = None
 
     def __call__(self, event: ProgressEvent) -> None:
-        self.show(event.objective_value, event.optimality_gap)
+        self.show(
+            finite_or_none(event.objective_value), finite_or_none(event.optimality_gap), event.stage
+        )
 
-    def show(self, objective: float | None, gap: float | None) -> None:
+    def show(self, objective: float | None, gap: float | None, stage: str | None = None) -> None:
         now = time.monotonic() - self._started
-        if now < PROGRESS_AFTER_S or now - self._last < PROGRESS_AFTER_S:
+        changed = stage != self._stage
+        if not changed and now - self._last < PROGRESS_AFTER_S:
             return
-        self._last = now
+        self._last, self._stage = now, stage
         best = "—" if objective is None else f"{objective:.6g}"
         gap_text = "—" if gap is None else f"{gap * PERCENT:.2f} %"
-        # Wall time since the command started waiting: the solver's own clock restarts with
-        # each verification round.
-        _err(f"solving: elapsed {now:6.1f} s  best objective {best}  gap {gap_text}")
+        # Wall time since the command started waiting (one clock for every stage).
+        what = f"{stage}: " if stage else ""
+        _err(f"solving: elapsed {now:6.1f} s  {what}best objective {best}  gap {gap_text}")
 
 
 # ----------------------------------------------------------------------------- summary
@@ -256,7 +262,7 @@ def _wait_for_job(client: httpx.Client, location: str) -> str:
             raise CliError(ExitCode.FAILED, f"job failed: {error.get('detail', 'unknown')}")
         if job.get("progress"):
             p = job["progress"]
-            progress.show(p["objective_value"], p["optimality_gap"])
+            progress.show(p["objective_value"], p["optimality_gap"], p.get("stage"))
         time.sleep(POLL_INTERVAL_S)
 
 

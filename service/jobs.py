@@ -467,6 +467,7 @@ def _progress_out(event: ProgressEvent) -> JobProgress:
         objective_value=finite_or_none(event.objective_value),
         best_bound=finite_or_none(event.best_bound),
         optimality_gap=finite_or_none(event.optimality_gap),
+        stage=event.stage,
     )
 
 

@@ -512,6 +512,11 @@ class JobProgress(BaseModel):
     objective_value: float | None
     best_bound: float | None
     optimality_gap: float | None
+    stage: str = Field(
+        "searching",
+        description="what is being computed; objective, bound and gap are those of the last "
+        "verified plan (the figures the plan will report) when stage is 'verified plan'",
+    )
 
 
 class JobOut(BaseModel):

@@ -21,27 +21,25 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 from solver.families import Family
-from solver.model import Carrier, Objective, Problem
+from solver.model import Carrier, Demand, Objective, Problem
 from solver.packing import PackingInput, PackingResult, Segment
 from solver.spacing import (
-    BoundItem,
     PairMeasure,
     Slot,
     Stretch,
     Wall,
     fill_grid,
     leakage_units,
-    least_guard_per_half,
     pair_gap_raw,
     regrid,
-    throughput_bound,
 )
 from solver.verify import PairCheck
 
 __all__ = [
+    "FINE",
     "Arrangement",
     "admit_rest",
-    "arrangement_bound",
+    "fine_slot",
     "from_model",
     "greedy_stretches",
     "pair_measure",
@@ -79,28 +77,24 @@ raster, its width need not fill an even number of raster steps (a modem's symbol
 far more finely than the channel raster)."""
 
 
-def _slot(data: PackingInput, d: int, k: int) -> Slot | None:
-    """Family ``k`` of demand ``d`` on the fine grid, each width filled by its symbol rate,
-    from the width that carries the minimum rate to the one that carries the target
-    (:func:`~solver.spacing.fill_grid`); None if it cannot close the link there."""
-    demand = data.options[d].demand
-    fam = fill_grid(
-        data.options[d].candidates[k],
-        FINE,
-        demand.min_rate_bps,
-        demand.target_rate_bps,
-        demand.margin_db,
-    )
-    if fam is None:
-        return None
+def fine_slot(family: Family, demand: Demand, priority: int, owner: int = -1) -> Slot:
+    """``family`` on the fine grid, each width filled by its symbol rate, from the width that
+    carries the minimum rate to the one that carries the target
+    (:func:`~solver.spacing.fill_grid`), valued at ``priority`` × throughput capped at the
+    target."""
+    fam = fill_grid(family, FINE, demand.min_rate_bps, demand.target_rate_bps, demand.margin_db)
     per_half = min(fam.throughput_per_half_bps, demand.target_rate_bps / fam.hi_half)
-    return Slot(fam, fam.lo_half, fam.hi_half, data.priorities[d] * per_half, d)
+    return Slot(fam, fam.lo_half, fam.hi_half, priority * per_half, owner)
+
+
+def _slot(data: PackingInput, d: int, k: int) -> Slot:
+    opts = data.options[d]
+    return fine_slot(opts.candidates[k], opts.demand, data.priorities[d], d)
 
 
 def _choices(data: PackingInput, d: int) -> list[Slot]:
     """A demand's families as slots, the least spectrum at the narrowest first."""
-    found = (_slot(data, d, k) for k in range(len(data.options[d].candidates)))
-    slots = [s for s in found if s is not None]
+    slots = [_slot(data, d, k) for k in range(len(data.options[d].candidates))]
     return sorted(slots, key=lambda s: 2 * s.lo_half + s.family.at(s.lo_half).guard_units)
 
 
@@ -136,9 +130,8 @@ def from_model(data: PackingInput, result: PackingResult) -> Arrangement:
 
         for d, k, h in sorted(picks, key=order):
             slot = _slot(data, d, k)
-            if slot is not None:
-                stretches[s].slots.append(slot)
-                stretches[s].halves.append(slot.clamp(h * FINE))
+            stretches[s].slots.append(slot)
+            stretches[s].halves.append(slot.clamp(h * FINE))
     for st in stretches:
         _settle(data, st)
     return Arrangement(stretches)
@@ -246,23 +239,27 @@ def tighten(problem: Problem, arrangement: Arrangement) -> None:
     """Gaps as the verifier needs them, not as the spectral mask bounds them: each pair's
     interference into the other's matched filter is measured (half of each one's allowance,
     :class:`~solver.verify.PairCheck`) and, for ``max_throughput``, the room it frees goes
-    to the carriers below their targets; a refit that no longer fits at its own measured
+    to the carriers below their targets; a step that no longer fits at its own measured
     gaps is undone."""
     check = PairCheck(problem)
     for st in arrangement.stretches:
         if len(st.slots) < 2:
             continue
+        kept = list(st.halves), dict(st.scales)
         _measure(st, check)
+        if not st.fits(st.halves):
+            st.halves, st.scales = list(kept[0]), dict(kept[1])
+            continue
         if problem.objective is not Objective.MAX_THROUGHPUT:
             continue
         for _ in range(TIGHTEN_ROUNDS):
-            before, scales = list(st.halves), dict(st.scales)
+            kept = list(st.halves), dict(st.scales)
             st.refit(time_limit_s=REFIT_SHARE_S, seed=problem.seed)
             _measure(st, check)
             if not st.fits(st.halves):
-                st.halves, st.scales = before, scales
+                st.halves, st.scales = list(kept[0]), dict(kept[1])
                 break
-            if st.halves == before:
+            if st.halves == kept[0]:
                 break
 
 
@@ -277,44 +274,3 @@ def to_carriers(problem: Problem, arrangement: Arrangement) -> tuple[Carrier, ..
             cand = slot.family.at(half)
             carriers.append(Carrier(cand.config, problem.block.start_hz + centre * step, 0.0, 0.0))
     return tuple(carriers)
-
-
-def _end_per_half(slot: Slot, wall: Wall, least_guard: float) -> float:
-    """The least guard per half-width unit ``slot`` needs towards ``wall``: its edge guard
-    towards an edge or exclusion, its least guard towards a fixed carrier."""
-    return slot.family.edge_per_half if wall.family is None else least_guard
-
-
-def arrangement_bound(data: PackingInput, admitted: int) -> float:
-    """Upper bound on the priority-weighted throughput of any pair-spaced plan of these
-    families that serves at least ``admitted`` admission weight (bit/s);
-    ``-inf`` when none can."""
-    families = [f for o in data.options for f in o.candidates]
-    walls = [w.family for s in data.segments for w in (s.left_wall, s.right_wall) if w.family]
-    least = min((f.sensitivity_db for f in [*families, *walls]), default=-math.inf)
-    items = []
-    for d, opts in enumerate(data.options):
-        for k in range(len(opts.candidates)):
-            slot = _slot(data, d, k)
-            if slot is None:
-                continue
-            guard = least_guard_per_half(slot.family, least)
-            for s, seg in enumerate(data.segments):
-                if 2 * slot.lo_half <= FINE * seg.length:
-                    end = min(
-                        _end_per_half(slot, seg.left_wall, guard),
-                        _end_per_half(slot, seg.right_wall, guard),
-                    )
-                    items.append(
-                        BoundItem(
-                            d,
-                            s,
-                            slot.lo_half,
-                            slot.hi_half,
-                            slot.value_per_half,
-                            2.0 + guard,
-                            end - guard / 2,
-                        )
-                    )
-    lengths = [FINE * s.length for s in data.segments]
-    return throughput_bound(items, lengths, list(data.admission_weights), admitted)

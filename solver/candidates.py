@@ -46,10 +46,13 @@ __all__ = [
     "Candidate",
     "DemandOptions",
     "Family",
+    "best_margin_db",
+    "bound_candidates",
     "build_candidates",
     "candidate_for",
     "emission_key",
     "family_for",
+    "least_width_hz",
 ]
 
 WIDTH_STEP = 1.01
@@ -652,3 +655,48 @@ def family_for(
         leakage_guard_per_baud=leak_per_baud,
         key=key,
     )
+
+
+# ---------------------------------------------------------------- for bounds
+
+
+def bound_candidates(problem: Problem, demand: Demand) -> tuple[Family, ...]:
+    """Families for a bound that holds for every plan the verifier passes: every combination
+    that closes the link and meets the minimum rate, kept unless another carries more per
+    unit of width over its whole range and needs no more towards a block edge per bit
+    (spacing between carriers is left out, so no family is lost to its guards)."""
+    combos = _combos(problem.coding, problem.transmitter, tuple(demand.modulations))
+    span = _family_span(combos, demand, problem.block.raster_hz, problem.block.width_hz)
+    if span.combo_index.size == 0:
+        return ()
+    g = _guards(problem, demand, combos, span.combo_index, span.top_rate_baud, 0.0)
+    placeable = np.isfinite(g.edge_hz)
+    ratio = g.throughput_bps / span.hi_half / 2.0
+    low = g.throughput_bps * span.lo_half / span.hi_half
+    edge_per_bit = np.where(placeable, g.edge_hz, np.inf) / g.throughput_bps
+    front = _family_front(ratio, low, g.throughput_bps, edge_per_bit)
+    return tuple(
+        _family(problem, demand, combos, g, i, int(span.hi_half[i]), int(span.lo_half[i]))
+        for i in front
+        if placeable[i]
+    )
+
+
+def least_width_hz(problem: Problem, demand: Demand) -> float:
+    """The narrowest allocation any configuration needs for the minimum rate with the link
+    closed (Hz; inf when none closes)."""
+    combos = _combos(problem.coding, problem.transmitter, tuple(demand.modulations))
+    rs_min = demand.min_rate_bps / combos.net_bits_per_symbol
+    closes = rs_min <= _max_symbol_rate_baud(demand, combos.required_esn0_db) * (1 + 1e-12)
+    widths = np.where(closes, rs_min * (1 + combos.rolloff), np.inf)
+    return float(widths.min(initial=np.inf))
+
+
+def best_margin_db(problem: Problem, demand: Demand, max_width_hz: float) -> float:
+    """The most link margin beyond the demand's own any configuration can have at the
+    minimum rate within ``max_width_hz``, before interference (dB; -inf when none closes)."""
+    combos = _combos(problem.coding, problem.transmitter, tuple(demand.modulations))
+    rs_min = demand.min_rate_bps / combos.net_bits_per_symbol
+    margin = _esn0_db(demand, rs_min) - combos.required_esn0_db - demand.margin_db
+    fits = (rs_min * (1 + combos.rolloff) <= max_width_hz) & (margin >= -1e-9)
+    return float(np.where(fits, margin, -np.inf).max(initial=-np.inf))

@@ -388,3 +388,6 @@ class ProgressEvent:
     objective_value: float
     best_bound: float
     optimality_gap: float
+    stage: str = "searching"
+    """What is being computed; the figures are a verified plan's only at ``"verified plan"``
+    (the same figures the plan then reports), NaN while none is known."""

@@ -19,7 +19,6 @@ from dataclasses import dataclass, replace
 from solver.arrangement import (
     Arrangement,
     admit_rest,
-    arrangement_bound,
     from_model,
     greedy_stretches,
     pair_measure,
@@ -31,9 +30,11 @@ from solver.candidates import (
     Candidate,
     DemandOptions,
     Family,
+    bound_candidates,
     build_candidates,
     family_for,
 )
+from solver.judge import Judgement, judge
 from solver.model import (
     Carrier,
     Objective,
@@ -449,8 +450,10 @@ def _staying(
     options: dict[str, DemandOptions],
     fixed: Sequence[_Fixed],
 ) -> list[_Fixed]:
-    """Current carriers that can stay exactly as they are (highest priority first)."""
-    keep: list[_Fixed] = []
+    """Current carriers that can stay exactly as they are: all of them when, beside the fixed
+    ones, they pass verification together (an unchanged request keeps its plan); otherwise
+    highest priority first, each while it keeps the guard rule beside those kept."""
+    current: list[_Fixed] = []
     for demand in sorted(problem.demands, key=lambda d: (-d.priority, d.id)):
         cur = demand.current
         if cur is None or demand.pinned_center_hz is not None:
@@ -458,9 +461,15 @@ def _staying(
         fam = family_for(
             problem, demand, cur.modulation, cur.code_rate, cur.rolloff, cur.symbol_rate_baud
         )
-        if fam is None or not _pinned_fits(problem, cur.center_hz, fam.top, [*fixed, *keep]):
-            continue
-        keep.append(_Fixed(Carrier(fam.top.config, cur.center_hz, 0.0, 0.0), fam.top, fam))
+        if fam is not None:
+            current.append(_Fixed(Carrier(fam.top.config, cur.center_hz, 0.0, 0.0), fam.top, fam))
+    together = [f.carrier for f in [*fixed, *current]]
+    if current and verify_plan(problem, together).passed:
+        return current
+    keep: list[_Fixed] = []
+    for f in current:
+        if _pinned_fits(problem, f.carrier.center_hz, f.candidate, [*fixed, *keep]):
+            keep.append(f)
     return keep
 
 
@@ -496,35 +505,6 @@ class _Outcome:
     choice: _PinnedChoice = _PinnedChoice()
 
 
-BOUND_TOLERANCE = 1e-4
-"""A plan is reported optimal when its bound lies within this fraction of it (0.01 %)."""
-
-
-def _judged(problem: Problem, data: PackingInput, carriers: Sequence[Carrier]) -> PackingResult:
-    """The plan's own figures for ``max_throughput``: its priority-weighted throughput, the
-    bound on every pair-spaced plan that serves as much (:func:`arrangement_bound`), the gap,
-    and optimal only when no plan can serve more and the bound is within the tolerance."""
-    index = {o.demand.id: d for d, o in enumerate(data.options)}
-    mine = [c for c in carriers if c.demand_id in index]
-    admitted = sum(data.admission_weights[index[c.demand_id]] for c in mine)
-    value = 0.0
-    for c in mine:
-        demand = data.options[index[c.demand_id]].demand
-        value += demand.priority * min(c.config.throughput_bps, demand.target_rate_bps)
-    bound = arrangement_bound(data, admitted)
-    if bound == -math.inf:  # the plan contradicts the relaxation: claim nothing from it
-        log.warning("the relaxation has no room for a plan this plan beats; bound unknown")
-        return PackingResult(SolveStatus.FEASIBLE, {}, {}, value, math.inf, math.inf, 0.0, "")
-    if bound < value:  # the relaxation holds every plan; only rounding can put it below
-        log.warning("bound %.6g below the plan's %.6g: reported as the plan's", bound, value)
-        bound = value
-    proven = arrangement_bound(data, admitted + 1) == -math.inf
-    closed = bound - value <= BOUND_TOLERANCE * max(bound, 1.0)
-    status = SolveStatus.OPTIMAL if proven and closed else SolveStatus.FEASIBLE
-    gap = (bound - value) / max(value, 1.0)
-    return PackingResult(status, {}, {}, value, bound, gap, 0.0, "")
-
-
 def _run(
     problem: Problem,
     options: dict[str, DemandOptions],
@@ -552,15 +532,6 @@ def _run(
     check, result, rounds, dropped = _solve_and_verify(
         problem, data, [f.carrier for f in fixed], progress, cancel
     )
-    if problem.objective is Objective.MAX_THROUGHPUT:
-        judged = _judged(problem, data, check.carriers)
-        result = replace(
-            result,
-            status=judged.status,
-            objective_value=judged.objective_value,
-            best_bound=judged.best_bound,
-            optimality_gap=judged.optimality_gap,
-        )
     served = {c.demand_id for c in check.carriers}
     dropped_ids = {u.demand_id for u in dropped}
     explained = explain_unserved(problem, free, served | dropped_ids, segments)
@@ -615,6 +586,45 @@ class _Clock:
         return max(0.2, (self.limit_s - self.elapsed()) / max(parts, 1))
 
 
+class _Teller:
+    """Progress for the caller from the first moment: the stage being computed, and each
+    verified plan's own figures (value, bound, gap: what the plan will report)."""
+
+    def __init__(
+        self,
+        clock: _Clock,
+        progress: Callable[[ProgressEvent], None] | None,
+        problem: Problem,
+    ) -> None:
+        self.clock, self.progress, self.problem = clock, progress, problem
+        self.families: dict[str, tuple[Family, ...]] = {}
+        self.free = _segments(problem, [])
+        self.last: tuple[tuple[Carrier, ...], Judgement] | None = None
+
+    def stage(self, what: str) -> None:
+        if self.progress is not None:
+            nan = math.nan
+            self.progress(ProgressEvent(self.clock.elapsed(), nan, nan, nan, what))
+
+    def searching(self, event: ProgressEvent) -> None:
+        """A packing model's improving solution: not yet placed or verified, so only the
+        stage is passed on."""
+        self.stage("searching")
+
+    def verified(self, carriers: Sequence[Carrier]) -> Judgement:
+        key = tuple(carriers)
+        if self.last is None or self.last[0] != key:
+            self.last = key, judge(self.problem, carriers, self.free, self.families)
+        verdict = self.last[1]
+        if self.progress is not None:
+            self.progress(
+                ProgressEvent(
+                    self.clock.elapsed(), verdict.value, verdict.bound, verdict.gap, "verified plan"
+                )
+            )
+        return verdict
+
+
 def solve(
     problem: Problem,
     *,
@@ -645,10 +655,15 @@ def solve(
     """
     validate_problem(problem)
     clock = _Clock(time.perf_counter(), problem.time_limit_s)
+    tell = _Teller(clock, progress, problem)
+    tell.stage("building spectra and candidates")
     options = {d.id: build_candidates(problem, d) for d in problem.demands}
+    tell.families = {d.id: bound_candidates(problem, d) for d in problem.demands}
+    progress = tell.searching
     replanning = problem.retune_penalty > 0 and any(d.current is not None for d in problem.demands)
     stages = 2 if replanning else 1
     outcome = _with_pinned(problem, options, clock, stages, progress, cancel)
+    tell.verified(outcome.carriers)
     if replanning:
         staying = _staying(problem, options, outcome.fixed)
         if staying:
@@ -658,7 +673,8 @@ def solve(
             early = [u for u in outcome.unserved if u.demand_id in pinned]
             kept = _run(budget, options, fixed, early, progress, cancel)
             outcome = _pick_replan(problem, outcome, kept)
-    return _finish(problem, outcome, clock.elapsed())
+            tell.verified(outcome.carriers)
+    return _finish(problem, outcome, tell.verified(outcome.carriers), clock.elapsed())
 
 
 def _with_pinned(
@@ -715,22 +731,20 @@ def _displacing_pinned(
     return tuple(sorted(out))
 
 
-def _finish(problem: Problem, outcome: _Outcome, elapsed_s: float) -> Plan:
+def _finish(problem: Problem, outcome: _Outcome, verdict: Judgement, elapsed_s: float) -> Plan:
     carriers = mark_retunes(problem, with_guards(problem, outcome.carriers))
     retunes = sum(c.retuned for c in carriers)
     result = outcome.result
     status: SolveStatus
     if carriers:
-        status = (
-            result.status if result.status is not SolveStatus.INFEASIBLE else SolveStatus.FEASIBLE
-        )
+        status = verdict.status
     else:
         status = SolveStatus.INFEASIBLE if problem.demands else SolveStatus.OPTIMAL
     stats = SolveStats(
         status=status,
-        objective_value=result.objective_value,
-        best_bound=result.best_bound,
-        optimality_gap=result.optimality_gap,
+        objective_value=verdict.value,
+        best_bound=verdict.bound,
+        optimality_gap=verdict.gap,
         solve_time_s=elapsed_s,
         num_workers=problem.num_workers,
         seed=problem.seed,
@@ -746,13 +760,8 @@ def _finish(problem: Problem, outcome: _Outcome, elapsed_s: float) -> Plan:
         )
     if outcome.dropped:
         notices.append(dropped_notice(outcome.dropped))
-    if status is SolveStatus.FEASIBLE and math.isfinite(result.optimality_gap):
-        notices.append(
-            "The solver stopped at its time limit; the plan is within "
-            f"{result.optimality_gap:.2%} of its bound."
-        )
-    elif status is SolveStatus.FEASIBLE:
-        notices.append("The solver stopped at its time limit before it could bound the plan.")
+    if status is SolveStatus.FEASIBLE:
+        notices.extend(_not_proven(problem, verdict))
     return Plan(
         name=problem.name,
         status=status,
@@ -762,3 +771,24 @@ def _finish(problem: Problem, outcome: _Outcome, elapsed_s: float) -> Plan:
         stats=stats,
         notices=tuple(notices),
     )
+
+
+def _not_proven(problem: Problem, verdict: Judgement) -> list[str]:
+    """Why a plan is not called optimal, in the plan's own figures."""
+    said = []
+    if not verdict.proven_admission:
+        said.append(
+            "Not proven to serve the most demands: a relaxation that leaves out the spacing "
+            "between carriers still has room for more."
+        )
+    if math.isfinite(verdict.gap):
+        if problem.objective is Objective.MAX_MARGIN:
+            figure = f"{verdict.bound - verdict.value:.2f} dB"
+        else:
+            figure = f"{verdict.gap:.2%} of the plan's value"
+        said.append(
+            f"The plan is within {figure} of a bound that holds for every plan verification "
+            "passes; the bound leaves out the spacing between carriers, so not all of that "
+            "gap can be reached."
+        )
+    return said

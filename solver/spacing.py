@@ -34,7 +34,9 @@ __all__ = [
     "Slot",
     "Stretch",
     "Wall",
+    "edge_reach",
     "fill_grid",
+    "layout",
     "leakage_units",
     "packed_centres",
     "pair_gap_raw",
@@ -151,11 +153,12 @@ def regrid(family: Family, fine: int) -> Family:
 
 def fill_grid(
     family: Family, fine: int, min_rate_bps: float, target_rate_bps: float, margin_db: float
-) -> Family | None:
+) -> Family:
     """``family`` on a grid ``fine`` times finer than the raster, each width filled by its
     symbol rate, from the least width that carries ``min_rate_bps`` to the least that carries
     ``target_rate_bps`` (lower where a power-limited link would fall below ``margin_db``).
-    None when even the least width misses the margin."""
+    When even the least filled width misses the margin, the family as it is, on the finer
+    grid (:func:`regrid`)."""
     raster = family.raster_hz / fine
     top = family.top.config
     per_half = 2.0 * raster / top.allocated_bandwidth_hz  # share of the top per half-step
@@ -173,8 +176,8 @@ def fill_grid(
 
     while hi > lo and margin(hi) < margin_db - 1e-9:
         hi -= 1
-    if margin(lo) < margin_db - 1e-9:
-        return None
+    if margin(lo) < margin_db - 1e-9:  # a link with no room to round the width up: as it was
+        return regrid(family, fine)
     at_hi = family.config_at(hi * per_half)
     fine_top = Candidate(
         at_hi,
@@ -211,18 +214,57 @@ def _on_grid(value: int, fine: int) -> int:
 
 
 def packed_centres(
-    start: int, gaps: Sequence[int], halves: Sequence[int], fine: int = 1
+    start: int,
+    gaps: Sequence[int],
+    halves: Sequence[int],
+    fine: int = 1,
+    reach: Sequence[tuple[int, int]] = (),
 ) -> tuple[list[int], int]:
     """Centres (grid units) of carriers packed from ``start`` with at least ``gaps`` between
-    them, each centre on the raster (a multiple of ``fine``); and where the last one's right
-    gap ends (``start + gaps[0]`` for none)."""
+    them, each centre on the raster (a multiple of ``fine``); and how far the stretch must
+    reach: past the last one's right gap, and past every carrier's own guard towards the
+    stretch's ends (``reach``: per carrier, its guard towards the left and the right end,
+    when those are a block edge or an exclusion; a neighbour between does not shelter it).
+    """
     centres: list[int] = []
-    edge = start
-    for gap, half in zip(gaps, halves, strict=False):
-        centre = _on_grid(edge + gap + half, fine)
+    edge, end = start, start
+    for i, (gap, half) in enumerate(zip(gaps, halves, strict=False)):
+        left, right = reach[i] if reach else (0, 0)
+        centre = _on_grid(max(edge + gap, start + left) + half, fine)
         centres.append(centre)
         edge = centre + half
-    return centres, edge + gaps[len(halves)]
+        end = max(end, edge + right)
+    return centres, max(end, edge + gaps[len(halves)])
+
+
+def edge_reach(
+    slots: Sequence[Slot], halves: Sequence[int], left: Wall, right: Wall
+) -> list[tuple[int, int]]:
+    """Per carrier, the guard (grid units) it needs towards each end of its stretch that is a
+    block edge or an exclusion (0 towards a fixed carrier)."""
+    return [
+        (
+            _units(_edge_per_half(slot.family) * half) if left.family is None else 0,
+            _units(_edge_per_half(slot.family) * half) if right.family is None else 0,
+        )
+        for slot, half in zip(slots, halves, strict=True)
+    ]
+
+
+def layout(
+    slots: Sequence[Slot],
+    halves: Sequence[int],
+    left: Wall,
+    right: Wall,
+    scales: Scales | None = None,
+    *,
+    start: int = 0,
+    fine: int = 1,
+) -> tuple[list[int], int]:
+    """Centres of the carriers packed from the low end, and how far the stretch must reach
+    (:func:`packed_centres` with every pair's gap and every carrier's edge guards)."""
+    gaps = stretch_need(slots, halves, left, right, scales)
+    return packed_centres(start, gaps, halves, fine, edge_reach(slots, halves, left, right))
 
 
 def stretch_fits(
@@ -238,8 +280,7 @@ def stretch_fits(
 ) -> bool:
     """Whether the carriers at ``halves`` fit a stretch of ``length`` grid units in order,
     their centres on the raster."""
-    gaps = stretch_need(slots, halves, left, right, scales)
-    return packed_centres(start, gaps, halves, fine)[1] <= start + length
+    return layout(slots, halves, left, right, scales, start=start, fine=fine)[1] <= start + length
 
 
 def place_stretch(
@@ -258,7 +299,7 @@ def place_stretch(
     or with the whole raster steps left over spread evenly over every gap when ``spread``
     (lower leakage and interference, nothing lost)."""
     gaps = stretch_need(slots, halves, left, right, scales)
-    centres, end = packed_centres(start, gaps, halves, fine)
+    centres, end = layout(slots, halves, left, right, scales, start=start, fine=fine)
     slack = (start + length - end) // fine
     if slack < 0:
         raise ValueError(f"stretch of {length} grid units overfilled by {end - start - length}")
@@ -311,12 +352,12 @@ def refit_stretch(
         model.add(fine * steps[i] - halves[i] - gaps[i] >= fine * steps[i - 1] + halves[i - 1])
     model.add(fine * steps[0] - halves[0] - gaps[0] >= start)
     model.add(fine * steps[-1] + halves[-1] + gaps[-1] <= start + length)
+    _edge_rows(model, slots, halves, steps, (left, right), (start, start + length), fine)
     unit = max(s.value_per_half for s in slots) / 1e6 or 1.0
     model.maximize(
         sum(round(s.value_per_half / unit) * h for s, h in zip(slots, halves, strict=True))
     )
-    hint_gaps = stretch_need(slots, start_halves, left, right, scales)
-    hint_centres, _ = packed_centres(start, hint_gaps, start_halves, fine)
+    hint_centres, _ = layout(slots, start_halves, left, right, scales, start=start, fine=fine)
     for var, value in zip(halves, start_halves, strict=True):
         model.add_hint(var, value)
     for var, centre in zip(steps, hint_centres, strict=True):
@@ -349,9 +390,13 @@ class Stretch:
     scales: dict[tuple[int, int], float] = field(default_factory=dict)
     fine: int = 1
 
+    def _layout(self, slots: Sequence[Slot], halves: Sequence[int]) -> tuple[list[int], int]:
+        return layout(
+            slots, halves, self.left, self.right, self.scales, start=self.start, fine=self.fine
+        )
+
     def _end(self, slots: Sequence[Slot], halves: Sequence[int]) -> int:
-        gaps = stretch_need(slots, halves, self.left, self.right, self.scales)
-        return packed_centres(self.start, gaps, halves, self.fine)[1]
+        return self._layout(slots, halves)[1]
 
     def slack(self) -> int:
         """Grid units left over with the carriers packed at their half-widths."""
@@ -367,11 +412,14 @@ class Stretch:
         the gap ``measure`` finds for the pair (kept in :attr:`scales`) and the one that ends
         lowest is taken; the rest, at the spectral-mask gap, first fit."""
         stop = self.start + self.length
-        edge, last = self.start, self.slots[-1] if self.slots else None
+        edge, last, reached = self.start, self.slots[-1] if self.slots else None, self.start
         if last is not None:
-            gaps = stretch_need(self.slots, self.halves, self.left, self.right, self.scales)
-            centres, _ = packed_centres(self.start, gaps, self.halves, self.fine)
+            centres, _ = self._layout(self.slots, self.halves)
             edge = centres[-1] + self.halves[-1]
+            reach = edge_reach(self.slots, self.halves, self.left, self.right)
+            reached = max(
+                c + h + r for c, h, (_, r) in zip(centres, self.halves, reach, strict=True)
+            )
         best: tuple[int, int, Slot, float] | None = None
         for rank, slot in enumerate(options):
             if best is not None and (measure is None or rank >= measured):
@@ -383,7 +431,9 @@ class Stretch:
                 if measure is not None and rank < measured:
                     scale = measure(last, self.halves[-1], slot, h)
                 gap = pair_gap_units(last.family, self.halves[-1], slot.family, h, scale)
-            end = _on_grid(edge + gap + h, self.fine) + h + _wall_gap(self.right, slot.family, h)
+            ((floor, _),) = edge_reach([slot], [h], self.left, self.right)
+            centre = _on_grid(max(edge + gap, self.start + floor) + h, self.fine)
+            end = max(reached, centre + h + _wall_gap(self.right, slot.family, h))
             if end <= stop and (best is None or end < best[0]):
                 best = (end, rank, slot, scale)
         if best is None:
@@ -450,6 +500,29 @@ def _at_least(
     """Hard: the integer gap is at least ``per_half`` times the half-width (so, on the
     raster, the guard rounded up; the scaled coefficient is rounded up too)."""
     model.add(_SCALE * gap >= math.ceil(per_half * _SCALE - 1e-6) * half)
+
+
+def _edge_rows(
+    model: cp_model.CpModel,
+    slots: Sequence[Slot],
+    halves: Sequence[cp_model.IntVar],
+    steps: Sequence[cp_model.IntVar],
+    walls: tuple[Wall, Wall],
+    ends: tuple[int, int],
+    fine: int,
+) -> None:
+    """Hard: every carrier keeps its own edge guard towards an end of the stretch that is a
+    block edge or an exclusion, whatever lies between (the verifier checks each one)."""
+    if len(slots) < 2:
+        return  # the end gaps already hold it
+    for i, (slot, half, step) in enumerate(zip(slots, halves, steps, strict=True)):
+        per_half = math.ceil(_edge_per_half(slot.family) * _SCALE - 1e-6)
+        if per_half <= 0:
+            continue
+        if walls[0].family is None and i > 0:
+            model.add(_SCALE * (fine * step - half - ends[0]) >= per_half * half)
+        if walls[1].family is None and i < len(slots) - 1:
+            model.add(_SCALE * (ends[1] - fine * step - half) >= per_half * half)
 
 
 def _wall_rows(

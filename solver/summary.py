@@ -7,10 +7,11 @@ import math
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
 
-from solver.candidates import DemandOptions
+from solver.candidates import DemandOptions, family_for
 from solver.model import (
     Carrier,
     CurrentSetting,
+    Demand,
     PlanSummary,
     Problem,
     Unserved,
@@ -82,19 +83,58 @@ def explain_unserved(
                 )
             )
         else:
-            detail = (
-                f"left out for higher-priority demands: the minimum rates together need "
-                f"{shortfall_hz:,.0f} Hz more than the free spectrum"
-                if shortfall_hz > 0
-                else "left out for higher-priority demands: the free spectrum is too fragmented"
+            need = need_units[demand_id] * raster
+            out.append(
+                Unserved(
+                    demand_id,
+                    UnservedReason.NOT_ADMITTED,
+                    _displaced(problem, opts.demand, served, need, shortfall_hz),
+                )
             )
-            out.append(Unserved(demand_id, UnservedReason.NOT_ADMITTED, detail))
     return out
 
 
+NAMED_DISPLACERS = 6
+"""At most this many displacing demands are named in an unserved reason."""
+
+
+def _displaced(
+    problem: Problem, demand: Demand, served: set[str], need_hz: float, shortfall_hz: float
+) -> str:
+    """Who holds the spectrum a demand that fits alone would have needed."""
+    above = sorted(
+        (d for d in problem.demands if d.id in served and d.priority >= demand.priority),
+        key=lambda d: (-d.priority, d.id),
+    )
+    names = ", ".join(d.id for d in above[:NAMED_DISPLACERS])
+    if len(above) > NAMED_DISPLACERS:
+        names += f" and {len(above) - NAMED_DISPLACERS} more"
+    wanted = f"it needs {need_hz:,.0f} Hz (its narrowest minimum-rate carrier with guards)"
+    short = (
+        f"; the minimum rates of all demands together need {shortfall_hz:,.0f} Hz more than "
+        "the free spectrum"
+        if shortfall_hz > 0
+        else ""
+    )
+    if not above:
+        return f"not admitted: {wanted} and no free stretch that wide is left{short}"
+    return (
+        f"displaced by demands of priority {demand.priority} or higher ({names}): "
+        f"{wanted} and no free stretch that wide is left beside them{short}"
+    )
+
+
 def with_guards(problem: Problem, carriers: Sequence[Carrier]) -> list[Carrier]:
-    """Fill in each carrier's guards: the larger guard of a pair, or its own edge guard."""
-    ordered = sorted(carriers, key=lambda c: c.center_hz)
+    """Fill in each carrier's guards: the larger guard of a pair (never more than the gap the
+    plan leaves), or its own edge guard.
+
+    Each configuration's own guards are first recomputed from its settings alone
+    (:func:`~solver.candidates.family_for`), so the same carrier reports the same guards in
+    every plan, whichever stage of the planner chose it.
+    """
+    demands = {d.id: d for d in problem.demands}
+    settled = (_settled(problem, demands.get(c.demand_id), c) for c in carriers)
+    ordered = sorted(settled, key=lambda c: c.center_hz)
     out = []
     for i, c in enumerate(ordered):
         below = ordered[i - 1] if i else None
@@ -109,6 +149,22 @@ def with_guards(problem: Problem, carriers: Sequence[Carrier]) -> list[Carrier]:
     return out
 
 
+def _settled(problem: Problem, demand: Demand | None, carrier: Carrier) -> Carrier:
+    """``carrier`` with the guards its settings alone give it."""
+    cfg = carrier.config
+    if demand is None:
+        return carrier
+    fam = family_for(
+        problem, demand, cfg.modulation, cfg.code_rate, cfg.rolloff, cfg.symbol_rate_baud
+    )
+    if fam is None:
+        return carrier
+    own = fam.top.config
+    return replace(
+        carrier, config=replace(cfg, guard_hz=own.guard_hz, edge_guard_hz=own.edge_guard_hz)
+    )
+
+
 def _pair_guard(problem: Problem, c: Carrier, other: Carrier | None, side: str) -> float:
     edge = c.config.edge_guard_hz
     if other is None:
@@ -120,7 +176,9 @@ def _pair_guard(problem: Problem, c: Carrier, other: Carrier | None, side: str) 
     )
     pair = max(c.config.guard_hz, other.config.guard_hz)
     # A neighbour farther away than an edge or exclusion means the edge is what this side faces.
-    return pair if gap <= pair + edge else edge
+    if gap > pair + edge:
+        return edge
+    return min(pair, max(gap, 0.0))
 
 
 def free_segments_hz(problem: Problem, carriers: Sequence[Carrier]) -> list[float]:

@@ -9,6 +9,7 @@ verifier; the demo carries more than before), not a published figure.
 from __future__ import annotations
 
 import json
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -18,6 +19,7 @@ from solver import (
     Amplifier,
     AmplifierModel,
     Block,
+    CurrentSetting,
     Demand,
     Objective,
     Plan,
@@ -76,6 +78,11 @@ def test_over_subscription_serves_the_highest_priority_that_fits() -> None:
     assert [c.demand_id for c in plan.carriers] == ["d0"]
     reasons = {u.demand_id: u.reason for u in plan.unserved}
     assert reasons == {"d1": UnservedReason.NOT_ADMITTED, "d2": UnservedReason.NOT_ADMITTED}
+    # Each reason names who holds the spectrum and how much the demand needed.
+    details = {u.demand_id: u.detail for u in plan.unserved}
+    assert details["d1"].startswith("displaced by demands of priority 2 or higher (d0)")
+    assert details["d2"].startswith("displaced by demands of priority 1 or higher (d0)")
+    assert " Hz (its narrowest minimum-rate carrier with guards)" in details["d1"]
 
 
 def _crowd(count: int, seed: int = 3) -> Problem:
@@ -181,17 +188,48 @@ def test_demo_plan_is_verified_and_serves_every_demand(demo: tuple[Problem, Plan
 
 
 @pytest.mark.slow
-@pytest.mark.xfail(
-    strict=False,
-    reason="open: the 62.9 Mb/s plan that met this broke the 40 dB edge limit at three carriers "
-    "(ami-collector-west 36.5 dB and cctv-yard-depot 38.3 dB towards the lower block edge, "
-    "substation-bh-birch 39.7 dB towards the upper one), hidden from the verifier by the "
-    "narrower carriers between them and the edge.  Spacing keeps the edge guard only for the "
-    "carrier next to the edge; the repair that now catches it raises the culprits' limit "
-    "towards every neighbour (41 dB) and the plan drops to 51.2 Mb/s.",
-)
 def test_demo_carries_more_than_the_segment_level_model_did(demo: tuple[Problem, Plan]) -> None:
     # Before: 51.7 Mb/s reported optimal while 2.6 MHz sat idle between carriers; the issue
     # asked for at least 12 % more.
     _, plan = demo
     assert plan.summary.total_throughput_bps >= 1.12 * 51.7e6
+
+
+@pytest.mark.slow
+def test_an_unchanged_request_replanned_keeps_every_carrier_and_its_guards(
+    demo: tuple[Problem, Plan],
+) -> None:
+    # Before: a replan moved the reported guards of carriers that stayed (81.4 -> 0.5 kHz).
+    problem, plan = demo
+    current = {
+        c.demand_id: CurrentSetting(
+            c.center_hz,
+            c.config.symbol_rate_baud,
+            c.config.rolloff,
+            c.config.modulation,
+            c.config.code_rate,
+        )
+        for c in plan.carriers
+    }
+    again = replace(
+        problem, demands=tuple(replace(d, current=current.get(d.id)) for d in problem.demands)
+    )
+    replanned = solve(again)
+
+    def settings(p: Plan) -> dict[str, tuple[object, ...]]:
+        return {
+            c.demand_id: (
+                c.center_hz,
+                c.config.symbol_rate_baud,
+                c.config.modulation,
+                c.config.code_rate,
+                c.config.rolloff,
+                c.guard_below_hz,
+                c.guard_above_hz,
+            )
+            for c in p.carriers
+        }
+
+    assert replanned.summary.retune_count == 0
+    assert not any(c.retuned for c in replanned.carriers)
+    assert settings(replanned) == settings(plan)

@@ -203,7 +203,9 @@ def test_lowest_priority_is_left_out_when_minimums_do_not_fit() -> None:
     assert "p3" in served
     reasons = {u.demand_id: u for u in plan.unserved}
     assert reasons["p1"].reason is UnservedReason.NOT_ADMITTED
-    assert "higher-priority" in reasons["p1"].detail
+    # The reason names the higher-priority demands that hold the spectrum.
+    assert reasons["p1"].detail.startswith("displaced by demands of priority 1 or higher (")
+    assert "p3" in reasons["p1"].detail
 
 
 def test_min_bandwidth_uses_less_spectrum_than_max_throughput() -> None:

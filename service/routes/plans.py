@@ -31,8 +31,7 @@ from service.schemas import (
     SettingOut,
 )
 from service.store import StoredPlan
-from solver import setting_change
-from solver.model import CurrentSetting, parse_code_rate
+from solver import CurrentSetting, parse_code_rate, setting_change
 
 __all__ = ["PROBLEM_RESPONSES", "router"]
 

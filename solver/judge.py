@@ -1,0 +1,161 @@
+"""How good a verified plan is: its objective value, a bound that holds for every plan the
+verifier passes, the gap between them, and whether the plan is proven optimal.
+
+The bound must hold for plans the planner cannot make (other configurations, other orders,
+other positions), or an "optimal" plan could be beaten.  So it leaves out everything the
+verifier does not demand of *every* plan:
+
+* carriers need no spacing between them (the verifier's interference rule can let two
+  neighbours touch), but each carrier keeps its own guard towards a block edge or an
+  exclusion, which the verifier always checks;
+* pinned carriers and carriers kept in place by a replan may sit anywhere;
+* every configuration that closes its link counts, pruned only where another carries more
+  per unit of width and needs no more towards an edge (:func:`bound_candidates`).
+
+Admission comes first: a plan is *proven* to serve the most it can when the relaxation cannot
+serve more (admission weight one higher is infeasible).  Then, by objective:
+
+* ``max_throughput``: Σ priority × min(throughput, target), bounded by the linear relaxation of
+  :func:`~solver.spacing.throughput_bound`;
+* ``min_bandwidth``: free spectrum, bounded by the usable width less the narrowest minimum-rate
+  allocation of as many demands of each priority as the plan serves;
+* ``max_margin``: the least margin beyond each demand's own after interference, bounded by
+  the best clear-sky margin of the demands of each priority that could be served.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+
+from solver.arrangement import FINE, fine_slot
+from solver.candidates import best_margin_db, least_width_hz
+from solver.families import Family
+from solver.model import Carrier, Objective, Problem, SolveStatus
+from solver.packing import Segment, admission_weights
+from solver.spacing import BoundItem, throughput_bound
+from solver.summary import free_segments_hz, with_guards
+
+__all__ = ["BOUND_TOLERANCE", "Judgement", "judge"]
+
+BOUND_TOLERANCE = 1e-4
+"""A plan is optimal when its bound lies within this fraction of it (0.01 %)."""
+
+MARGIN_TOLERANCE_DB = 0.01
+"""For ``max_margin``: optimal when the bound lies within this many dB."""
+
+
+@dataclass(frozen=True)
+class Judgement:
+    status: SolveStatus
+    value: float
+    bound: float
+    gap: float
+    proven_admission: bool
+
+
+def judge(
+    problem: Problem,
+    carriers: Sequence[Carrier],
+    segments: Sequence[Segment],
+    families: Mapping[str, Sequence[Family]],
+) -> Judgement:
+    """Judge verified ``carriers`` (with their margins after interference) of ``problem``.
+
+    ``segments`` are the free stretches of the block with no carrier fixed (edges and
+    exclusions only); ``families`` are each demand's :func:`bound_candidates`.
+    """
+    weights = dict(
+        zip((d.id for d in problem.demands), admission_weights(problem.demands), strict=True)
+    )
+    served = [c.demand_id for c in carriers]
+    admitted = sum(weights[d] for d in served)
+    items = _items(problem, segments, families)
+    lengths = [FINE * s.length for s in segments]
+    order = [weights[d.id] for d in problem.demands]
+    proven = throughput_bound(items, lengths, order, admitted + 1) == -math.inf
+    if problem.objective is Objective.MAX_THROUGHPUT:
+        value = _throughput(problem, carriers)
+        bound = max(throughput_bound(items, lengths, order, admitted), value)
+        closed = bound - value <= BOUND_TOLERANCE * max(bound, 1.0)
+        gap = (bound - value) / max(value, 1.0)
+    elif problem.objective is Objective.MIN_BANDWIDTH:
+        value = sum(free_segments_hz(problem, with_guards(problem, carriers)))
+        bound = max(_free_bound(problem, served), value)
+        closed = bound - value <= BOUND_TOLERANCE * max(bound, 1.0)
+        gap = (bound - value) / max(value, problem.block.raster_hz)
+    else:
+        demands = {d.id: d for d in problem.demands}
+        excess = [c.margin_after_interference_db - demands[c.demand_id].margin_db for c in carriers]
+        value = min(excess, default=0.0)
+        bound = max(_margin_bound(problem, served, segments), value)
+        closed = bound - value <= MARGIN_TOLERANCE_DB
+        gap = (bound - value) / max(abs(value), 0.1)
+    status = SolveStatus.OPTIMAL if proven and closed else SolveStatus.FEASIBLE
+    return Judgement(status, value, bound, gap, proven)
+
+
+def _throughput(problem: Problem, carriers: Sequence[Carrier]) -> float:
+    demands = {d.id: d for d in problem.demands}
+    return sum(
+        demands[c.demand_id].priority
+        * min(c.config.throughput_bps, demands[c.demand_id].target_rate_bps)
+        for c in carriers
+    )
+
+
+def _items(
+    problem: Problem, segments: Sequence[Segment], families: Mapping[str, Sequence[Family]]
+) -> list[BoundItem]:
+    """Relaxation columns: each demand's families in each stretch they fit, no spacing, the
+    edge guard towards each end that is a block edge or exclusion."""
+    items = []
+    for d, demand in enumerate(problem.demands):
+        for family in families.get(demand.id, ()):
+            slot = fine_slot(family, demand, demand.priority)
+            for s, seg in enumerate(segments):
+                if 2 * slot.lo_half > FINE * seg.length:
+                    continue
+                edge = slot.family.edge_per_half
+                walls = (seg.left_wall.family, seg.right_wall.family)
+                end = edge if walls == (None, None) else 0.0
+                items.append(
+                    BoundItem(d, s, slot.lo_half, slot.hi_half, slot.value_per_half, 2.0, end)
+                )
+    return items
+
+
+def _served_per_priority(problem: Problem, served: Sequence[str]) -> dict[int, int]:
+    ids = set(served)
+    counts: dict[int, int] = {}
+    for d in problem.demands:
+        if d.id in ids:
+            counts[d.priority] = counts.get(d.priority, 0) + 1
+    return counts
+
+
+def _free_bound(problem: Problem, served: Sequence[str]) -> float:
+    """Usable width less, per priority, the narrowest allocations of as many demands as the
+    plan serves there (any plan of the same admission serves as many per priority)."""
+    used = 0.0
+    for priority, count in _served_per_priority(problem, served).items():
+        widths = sorted(
+            least_width_hz(problem, d) for d in problem.demands if d.priority == priority
+        )
+        used += sum(widths[:count])
+    return problem.block.usable_width_hz - used
+
+
+def _margin_bound(problem: Problem, served: Sequence[str], segments: Sequence[Segment]) -> float:
+    """Per priority, the ``count``-th best clear-sky margin among its demands; the least of
+    those over the priorities (any plan of the same admission serves as many per priority)."""
+    widest = max((s.length for s in segments), default=0) * problem.block.raster_hz
+    bound = math.inf
+    for priority, count in _served_per_priority(problem, served).items():
+        margins = sorted(
+            (best_margin_db(problem, d, widest) for d in problem.demands if d.priority == priority),
+            reverse=True,
+        )
+        bound = min(bound, margins[count - 1])
+    return 0.0 if math.isinf(bound) else bound
