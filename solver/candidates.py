@@ -26,7 +26,6 @@ from typing import NamedTuple
 import numpy as np
 from numpy.typing import NDArray
 
-from solver.families import Candidate, Family, mask_guard_per_baud
 from solver.model import (
     CarrierConfig,
     CodeRate,
@@ -38,6 +37,7 @@ from solver.model import (
     Transmitter,
     format_code_rate,
 )
+from solver.packing.families import Candidate, DemandOptions, Family, mask_guard_per_baud
 from solver.physics import emission, link, modcod
 from solver.verify import INTERFERENCE_ALLOWANCE_DB
 
@@ -60,15 +60,6 @@ WIDTH_STEP = 1.01
 
 DEFAULT_MAX_PER_DEMAND = 40
 """Candidates kept per demand after Pareto pruning (thinned evenly in log-throughput)."""
-
-
-@dataclass(frozen=True)
-class DemandOptions:
-    """Every kept family of one demand, and why there are none when the list is empty."""
-
-    demand: Demand
-    candidates: tuple[Family, ...]
-    best_link_detail: str
 
 
 @dataclass(frozen=True)

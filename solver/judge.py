@@ -16,7 +16,7 @@ Admission comes first: a plan is *proven* to serve the most it can when the rela
 serve more (admission weight one higher is infeasible).  Then, by objective:
 
 * ``max_throughput``: Σ priority × min(throughput, target), bounded by the linear relaxation of
-  :func:`~solver.spacing.throughput_bound`;
+  :func:`~solver.packing.spacing.throughput_bound`;
 * ``min_bandwidth``: free spectrum, bounded by the usable width less the narrowest minimum-rate
   allocation of as many demands of each priority as the plan serves;
 * ``max_margin``: the least margin beyond each demand's own after interference, bounded by
@@ -29,12 +29,12 @@ import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
-from solver.arrangement import FINE, fine_slot
 from solver.candidates import best_margin_db, least_width_hz
-from solver.families import Family
 from solver.model import Carrier, Objective, Problem, SolveStatus
 from solver.packing import Segment, admission_weights
-from solver.spacing import BoundItem, throughput_bound
+from solver.packing.arrangement import FINE, fine_slot
+from solver.packing.families import Family
+from solver.packing.spacing import BoundItem, throughput_bound
 from solver.summary import free_segments_hz, with_guards
 
 __all__ = ["BOUND_TOLERANCE", "Judgement", "judge"]

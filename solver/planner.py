@@ -16,16 +16,6 @@ import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 
-from solver.arrangement import (
-    Arrangement,
-    admit_rest,
-    from_model,
-    greedy_stretches,
-    pair_measure,
-    refit,
-    tighten,
-    to_carriers,
-)
 from solver.candidates import (
     Candidate,
     DemandOptions,
@@ -54,8 +44,18 @@ from solver.packing import (
     admission_weights,
     solve_packing,
 )
+from solver.packing.arrangement import (
+    Arrangement,
+    admit_rest,
+    from_model,
+    greedy_stretches,
+    pair_measure,
+    refit,
+    tighten,
+    to_carriers,
+)
+from solver.packing.spacing import Wall
 from solver.repair import drop_until_passing, dropped_notice
-from solver.spacing import Wall
 from solver.summary import (
     CAUTIONS,
     explain_unserved,
@@ -65,7 +65,7 @@ from solver.summary import (
     with_guards,
 )
 from solver.validation import validate_problem
-from solver.verify import Verification, verify_plan
+from solver.verify import PairCheck, Verification, verify_plan
 
 __all__ = [
     "CAUTIONS",
@@ -340,7 +340,8 @@ def _arrange(problem: Problem, data: PackingInput, result: PackingResult) -> Arr
     priority-weighted throughput)."""
     model = from_model(data, result)
     admit_rest(data, model)
-    greedy = greedy_stretches(data, pair_measure(problem))
+    check = PairCheck(problem)
+    greedy = greedy_stretches(data, pair_measure(check))
     for arrangement in (model, greedy):
         refit(arrangement, problem.objective, problem.seed)
     better = greedy.admission(data) > model.admission(data) or (
@@ -349,7 +350,7 @@ def _arrange(problem: Problem, data: PackingInput, result: PackingResult) -> Arr
         and greedy.value() > model.value()
     )
     chosen = greedy if better else model
-    tighten(problem, chosen)
+    tighten(problem, chosen, check)
     return chosen
 
 

@@ -30,8 +30,8 @@ from solver import (
     solve,
     verify_plan,
 )
-from solver.arrangement import greedy_stretches
-from solver.spacing import Slot, Stretch, Wall
+from solver.packing.arrangement import greedy_stretches
+from solver.packing.spacing import Slot, Stretch, Wall
 
 RAPP_6DB = Transmitter(amplifier=Amplifier(AmplifierModel.RAPP, 2.0, 6.0))
 

@@ -16,7 +16,6 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from ortools.sat.python import cp_model
 
-from solver.candidates import Candidate, DemandOptions, Family
 from solver.model import CarrierConfig, Demand, Modulation, Objective, SolveStatus
 from solver.packing import (
     GAP_TOLERANCE,
@@ -32,6 +31,7 @@ from solver.packing import (
     solve_packing,
     solve_relaxation,
 )
+from solver.packing.families import Candidate, DemandOptions, Family
 from solver.packing.model import make_choice_vars as _make_choice_vars
 from solver.packing.terms import throughput_term as _throughput_term
 

@@ -12,7 +12,6 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from solver.candidates import Candidate, DemandOptions, Family
 from solver.model import CarrierConfig, Demand, Modulation, Objective, SolveStatus
 from solver.packing import (
     Boundary,
@@ -22,6 +21,7 @@ from solver.packing import (
     place_segment,
     solve_packing,
 )
+from solver.packing.families import Candidate, DemandOptions, Family
 
 
 def _cand(

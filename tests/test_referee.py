@@ -372,28 +372,7 @@ RUNS = settings(
 # ---------------------------------------------------------------- properties
 
 
-# Known, open defects these properties found (issue 8 stays open until they pass).  They run
-# every time and report XFAIL; once the planner is fixed they report XPASS and the marks go.
-OPEN_PINNED = pytest.mark.xfail(
-    reason=(
-        "open (issue 8): pinned carriers are fixed first, at their best-throughput "
-        "configuration and before priorities are weighed; e.g. a lone QPSK demand pinned at "
-        "400.25 MHz beside an exclusion is reported no_spectrum while the referee serves it"
-    ),
-    strict=False,
-)
-OPEN_MIN_BANDWIDTH = pytest.mark.xfail(
-    reason=(
-        "open (issue 8): min_bandwidth keeps the segment model's status; families are ranked "
-        "without their edge guards, so an 8PSK family with a 6-8 kHz edge guard is pruned and "
-        "a plan 190 kHz of free spectrum short of the referee's is called optimal"
-    ),
-    strict=False,
-)
-
-
 @RUNS
-@OPEN_PINNED
 @seed(SHARED_SEED)
 @given(problem=instances())
 @example(problem=BUG_THREE)
@@ -413,7 +392,6 @@ def test_planner_admits_at_least_what_the_referee_admits(problem: Problem) -> No
 
 
 @RUNS
-@OPEN_MIN_BANDWIDTH
 @seed(SHARED_SEED)
 @given(problem=instances())
 @example(problem=replace(BUG_ONE, objective=Objective.MIN_BANDWIDTH))
@@ -442,7 +420,6 @@ def test_optimal_plans_are_within_their_gap_of_the_referee(problem: Problem) -> 
 
 
 @RUNS
-@OPEN_PINNED
 @seed(SHARED_SEED)
 @given(problem=instances())
 @example(problem=BUG_ONE)

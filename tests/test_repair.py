@@ -23,7 +23,7 @@ from solver import (
     verify_plan,
 )
 from solver import planner as planner_module
-from solver.arrangement import Arrangement, to_carriers
+from solver.packing.arrangement import Arrangement, to_carriers
 from solver.verify import ViolationKind
 
 BLOCK = Block(start_hz=1_000e6, stop_hz=1_010e6, raster_hz=10e3, edge_leakage_limit_db=45.0)

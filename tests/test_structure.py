@@ -32,6 +32,8 @@ PHYSICS = SOLVER / "physics"
 SERVICE = ROOT / "service"
 FIRST_PARTY = ("solver", "service")
 PHYSICS_MAY_IMPORT = ("solver.model", "solver.physics")
+PACKING = SOLVER / "packing"
+PACKING_MAY_IMPORT = ("solver.model", "solver.physics", "solver.packing")
 
 
 @dataclass(frozen=True)
@@ -222,22 +224,42 @@ def test_cycles_are_real_and_cover_every_loop() -> None:
 # --------------------------------------------------------------------------- the rules
 
 
-def test_physics_imports_only_the_model_and_itself() -> None:
+def _above_the_floor(root: Path, allowed: tuple[str, ...]) -> tuple[list[str], list[str]]:
+    """First-party modules the package at ``root`` reaches, and those outside ``allowed``."""
     modules = {module_name(path) for path in python_files(SOLVER)}
-    refs = [ref for path in python_files(PHYSICS) for ref in module_imports(path)]
+    refs = [ref for path in python_files(root) for ref in module_imports(path)]
     ours = [
         (ref, dep)
         for ref in refs
         for dep in dependencies(ref, modules)
         if any(within(dep, top) for top in FIRST_PARTY)
     ]
-    assert any(dep == "solver.model" for _, dep in ours), "scan found no import of solver.model"
     bad = [
         f"{ref} (reaches {dep})"
         for ref, dep in ours
-        if not any(within(dep, allowed) for allowed in PHYSICS_MAY_IMPORT)
+        if not any(within(dep, floor) for floor in allowed)
     ]
+    return [dep for _, dep in ours], bad
+
+
+def test_physics_imports_only_the_model_and_itself() -> None:
+    reached, bad = _above_the_floor(PHYSICS, PHYSICS_MAY_IMPORT)
+    assert "solver.model" in reached, "scan found no import of solver.model"
     assert bad == [], "solver/physics/ imports above the floor:\n" + "\n".join(bad)
+
+
+def test_packing_imports_only_the_model_physics_and_itself() -> None:
+    """The second floor: solver/packing/ stands on the model and the physics only (the
+    planning layer, verify included, reaches it through arguments)."""
+    reached, bad = _above_the_floor(PACKING, PACKING_MAY_IMPORT)
+    assert any(within(dep, "solver.physics") for dep in reached), "no physics import found"
+    assert bad == [], "solver/packing/ imports above the floor:\n" + "\n".join(bad)
+
+
+def test_solver_has_no_import_cycle() -> None:
+    graph = import_graph(SOLVER)
+    assert "solver.packing" in graph.get("solver.planner", set())
+    assert cycles(graph) == []
 
 
 def test_service_uses_only_the_public_solver_names() -> None:

@@ -15,7 +15,7 @@ import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
-from solver.candidates import Candidate, Family
+from solver.packing.families import Candidate, Family
 from solver.packing.items import Boundary, Key, PackingInput, Seat, Segment
 
 __all__ = [

@@ -13,9 +13,9 @@ from dataclasses import dataclass, field
 from enum import StrEnum
 from typing import NamedTuple
 
-from solver.candidates import Candidate, DemandOptions, Family
 from solver.model import Demand, Objective, SolveStatus
-from solver.spacing import Wall
+from solver.packing.families import Candidate, DemandOptions, Family
+from solver.packing.spacing import Wall
 
 __all__ = [
     "Boundary",

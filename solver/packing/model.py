@@ -15,8 +15,8 @@ from typing import Literal
 
 from ortools.sat.python import cp_model
 
-from solver.candidates import Family
 from solver.packing.capacity import SCALE, ItemCoefficients, key_coefficients
+from solver.packing.families import Family
 from solver.packing.items import DemandFamily, Key, PackingInput, SegmentLevel
 
 __all__ = [

@@ -3,7 +3,8 @@
 The model chooses each demand's family, half-width and segment, guarding a segment's carriers
 for its most sensitive member.  This stage takes that choice as a start and makes it exact:
 
-1. each segment becomes a :class:`~solver.spacing.Stretch`, carriers in ascending guard order
+1. each segment becomes a :class:`~solver.packing.spacing.Stretch`, carriers in ascending
+   guard order
    (the model's order);
 2. demands the model left out are fitted in where pair-exact gaps leave room, highest
    priority first (:func:`admit_rest`);
@@ -19,11 +20,12 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Protocol
 
-from solver.families import Family
 from solver.model import Carrier, Demand, Objective, Problem
 from solver.packing import PackingInput, PackingResult, Segment
-from solver.spacing import (
+from solver.packing.families import Family
+from solver.packing.spacing import (
     PairMeasure,
     Slot,
     Stretch,
@@ -33,11 +35,11 @@ from solver.spacing import (
     pair_gap_raw,
     regrid,
 )
-from solver.verify import PairCheck
 
 __all__ = [
     "FINE",
     "Arrangement",
+    "PairGap",
     "admit_rest",
     "fine_slot",
     "from_model",
@@ -80,7 +82,7 @@ far more finely than the channel raster)."""
 def fine_slot(family: Family, demand: Demand, priority: int, owner: int = -1) -> Slot:
     """``family`` on the fine grid, each width filled by its symbol rate, from the width that
     carries the minimum rate to the one that carries the target
-    (:func:`~solver.spacing.fill_grid`), valued at ``priority`` × throughput capped at the
+    (:func:`~solver.packing.spacing.fill_grid`), valued at ``priority`` × throughput capped at the
     target."""
     fam = fill_grid(family, FINE, demand.min_rate_bps, demand.target_rate_bps, demand.margin_db)
     per_half = min(fam.throughput_per_half_bps, demand.target_rate_bps / fam.hi_half)
@@ -180,11 +182,18 @@ def greedy_stretches(data: PackingInput, measure: PairMeasure | None = None) -> 
     return arrangement
 
 
-def pair_measure(problem: Problem) -> PairMeasure:
-    """The verifier's interference rule for two neighbours alone (:class:`PairCheck`), as the
-    share of the spectral-mask gap the pair needs (never below either leakage guard);
-    remembered per pair of configurations."""
-    check = PairCheck(problem)
+class PairGap(Protocol):
+    """The verifier's interference rule for two neighbours alone
+    (:class:`solver.verify.PairCheck`): the least gap at which both pass."""
+
+    def gap_units(
+        self, low: Carrier, high: Carrier, upper_units: int, unit_hz: float | None = None
+    ) -> int: ...
+
+
+def pair_measure(check: PairGap) -> PairMeasure:
+    """``check`` as the share of the spectral-mask gap a pair needs (never below either
+    leakage guard); remembered per pair of configurations."""
     seen: dict[tuple[Family, int, Family, int], float] = {}
 
     def measure(a: Slot, ha: int, b: Slot, hb: int) -> float:
@@ -196,7 +205,7 @@ def pair_measure(problem: Problem) -> PairMeasure:
     return measure
 
 
-def _pair_scale(check: PairCheck, a: Family, ha: int, b: Family, hb: int) -> float:
+def _pair_scale(check: PairGap, a: Family, ha: int, b: Family, hb: int) -> float:
     raw = pair_gap_raw(a, ha, b, hb)
     if raw <= 0 or a.key is None or b.key is None:
         return 1.0
@@ -224,7 +233,7 @@ TIGHTEN_ROUNDS = 2
 """Measure-and-refit rounds of :func:`tighten`."""
 
 
-def _measure(stretch: Stretch, check: PairCheck) -> None:
+def _measure(stretch: Stretch, check: PairGap) -> None:
     """Each pair's gap as the verifier's rule needs it at the current half-widths, stored as a
     share of the spectral-mask gap (never more than all of it)."""
     for i in range(1, len(stretch.slots)):
@@ -235,13 +244,12 @@ def _measure(stretch: Stretch, check: PairCheck) -> None:
             stretch.scales[a.owner, b.owner] = scale
 
 
-def tighten(problem: Problem, arrangement: Arrangement) -> None:
+def tighten(problem: Problem, arrangement: Arrangement, check: PairGap) -> None:
     """Gaps as the verifier needs them, not as the spectral mask bounds them: each pair's
     interference into the other's matched filter is measured (half of each one's allowance,
     :class:`~solver.verify.PairCheck`) and, for ``max_throughput``, the room it frees goes
     to the carriers below their targets; a step that no longer fits at its own measured
     gaps is undone."""
-    check = PairCheck(problem)
     for st in arrangement.stretches:
         if len(st.slots) < 2:
             continue

@@ -8,7 +8,8 @@ needs: the larger of
 * each one's own leakage guard (its leakage ratio at the plan's limit, or at the floor
   verification raised it to), and
 * each one's spectral skirt kept below the *other's* sensitivity (the level that keeps the
-  other's margin within its interference allowance; :func:`solver.families.mask_guard_per_baud`),
+  other's margin within its interference allowance;
+  :func:`solver.packing.families.mask_guard_per_baud`),
 
 and towards a block edge or exclusion the carrier's own edge guard.  Since a family's symbol
 rate, and so each of these guards, grows linearly with its half-width, the width a stretch of
@@ -27,7 +28,7 @@ from dataclasses import dataclass, field, replace
 from ortools.sat.python import cp_model
 from scipy import optimize, sparse
 
-from solver.families import Candidate, Family, mask_guard_per_baud
+from solver.packing.families import Candidate, Family, mask_guard_per_baud
 
 __all__ = [
     "PairMeasure",
@@ -362,6 +363,19 @@ def refit_stretch(
         model.add_hint(var, value)
     for var, centre in zip(steps, hint_centres, strict=True):
         model.add_hint(var, centre // fine)
+    solved = _solve(model, halves, time_limit_s, seed)
+    if solved is None:
+        return list(start_halves)
+    found = solved
+    if not stretch_fits(slots, found, left, right, length, scales, start=start, fine=fine):
+        return list(start_halves)  # a rounded coefficient
+    return found
+
+
+def _solve(
+    model: cp_model.CpModel, halves: Sequence[cp_model.IntVar], time_limit_s: float, seed: int
+) -> list[int] | None:
+    """The half-widths of the best solution found in time (one worker), or None."""
     solver = cp_model.CpSolver()
     solver.parameters.max_time_in_seconds = max(0.05, time_limit_s)
     solver.parameters.num_workers = 1
@@ -369,11 +383,8 @@ def refit_stretch(
     solver.parameters.catch_sigint_signal = False
     status = solver.solve(model)
     if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
-        return list(start_halves)
-    found = [int(solver.value(h)) for h in halves]
-    if not stretch_fits(slots, found, left, right, length, scales, start=start, fine=fine):
-        return list(start_halves)  # a rounded coefficient
-    return found
+        return None
+    return [int(solver.value(h)) for h in halves]
 
 
 @dataclass
@@ -552,55 +563,40 @@ class BoundItem:
     """Raster units per half-width unit of the guard towards a wall, less half the above."""
 
 
-def least_guard_per_half(family: Family, least_sensitivity_db: float) -> float:
-    """Raster units per half-width unit of the smallest guard ``family`` may ever need next to
-    any neighbour: its leakage guard, or its skirt below the least sensitive level."""
-    if family.key is None:
-        return family.top.guard_units / family.hi_half
-    mask = mask_guard_per_baud(family.key, least_sensitivity_db)
-    return _per_half(family, max(family.leakage_guard_per_baud, mask))
+class _Rows:
+    """Sparse constraint rows of a linear programme, built one at a time."""
+
+    def __init__(self) -> None:
+        self.entries: list[tuple[int, int, float]] = []
+        self.lower: list[float] = []
+        self.upper: list[float] = []
+
+    def add(self, entries: Sequence[tuple[int, float]], lo: float, hi: float) -> None:
+        r = len(self.lower)
+        self.entries.extend((r, c, v) for c, v in entries)
+        self.lower.append(lo)
+        self.upper.append(hi)
+
+    def constraint(self, columns: int) -> optimize.LinearConstraint:
+        r, c, v = zip(*self.entries, strict=True)
+        matrix = sparse.csr_array((v, (r, c)), shape=(len(self.lower), columns))
+        return optimize.LinearConstraint(matrix, self.lower, self.upper)
 
 
-def throughput_bound(
-    items: Sequence[BoundItem],
-    lengths: Sequence[int],
-    weights: Sequence[int],
-    admitted: int,
-) -> float:
-    """An upper bound on the value any pair-spaced plan can carry while serving at least
-    ``admitted`` admission weight (linear relaxation, HiGHS through scipy).
-
-    In any order each gap between neighbours is at least the mean of their least guards
-    ``a·h``, and each end gap is the end carrier's guard towards the wall ``e·h``, so a
-    stretch's gaps add up to at least Σ a·h plus, for each end, (e − a/2)·h of its end
-    carrier; that is at least twice the smallest such term over the stretch's items, taken at
-    the half-width that makes it smallest.  So a stretch holds
-    Σ (2 + a)·h ≤ length − 2·min (e − a/2)·h.  Every
-    plan :func:`refit_stretch` can make satisfies these rows, so the optimum bounds them all.
-    Returns ``-inf`` when the rows cannot serve ``admitted``.
-    """
-
-    n = len(items)
-    if n == 0:
-        return 0.0 if admitted <= 0 else -math.inf
-    rows: list[tuple[int, int, float]] = []
-    lower: list[float] = []
-    upper: list[float] = []
-
-    def row(entries: Sequence[tuple[int, float]], lo: float, hi: float) -> None:
-        r = len(lower)
-        rows.extend((r, c, v) for c, v in entries)
-        lower.append(lo)
-        upper.append(hi)
-
+def _bound_rows(
+    items: Sequence[BoundItem], lengths: Sequence[int], weights: Sequence[int], admitted: int
+) -> _Rows:
+    """Columns x_j = j (share of item j), h_j = n + j (its half-width times that share)."""
+    n, rows = len(items), _Rows()
     by_owner: dict[int, list[int]] = {}
-    for j, it in enumerate(items):  # columns: x_j = j, h_j = n + j
+    for j, it in enumerate(items):
         by_owner.setdefault(it.owner, []).append(j)
-        row([(n + j, 1.0), (j, -float(it.hi_half))], -math.inf, 0.0)
-        row([(n + j, 1.0), (j, -float(it.lo_half))], 0.0, math.inf)
+        rows.add([(n + j, 1.0), (j, -float(it.hi_half))], -math.inf, 0.0)
+        rows.add([(n + j, 1.0), (j, -float(it.lo_half))], 0.0, math.inf)
     for cols in by_owner.values():
-        row([(j, 1.0) for j in cols], 0.0, 1.0)
-    row([(j, float(weights[it.owner])) for j, it in enumerate(items)], float(admitted), math.inf)
+        rows.add([(j, 1.0) for j in cols], 0.0, 1.0)
+    weighted = [(j, float(weights[it.owner])) for j, it in enumerate(items)]
+    rows.add(weighted, float(admitted), math.inf)
     for s, length in enumerate(lengths):
         mine = [j for j, it in enumerate(items) if it.stretch == s]
         if mine:
@@ -609,13 +605,34 @@ def throughput_bound(
                 * (items[j].lo_half if items[j].end_per_half >= 0 else items[j].hi_half)
                 for j in mine
             )
-            row([(n + j, items[j].need_per_half) for j in mine], -math.inf, length - 2 * ends)
-    r, c, v = zip(*rows, strict=True)
-    matrix = sparse.csr_array((v, (r, c)), shape=(len(lower), 2 * n))
-    cost = [0.0] * n + [-it.value_per_half for it in items]
+            need = [(n + j, items[j].need_per_half) for j in mine]
+            rows.add(need, -math.inf, length - 2 * ends)
+    return rows
+
+
+def throughput_bound(
+    items: Sequence[BoundItem],
+    lengths: Sequence[int],
+    weights: Sequence[int],
+    admitted: int,
+) -> float:
+    """An upper bound on the value any plan of these items can carry while serving at least
+    ``admitted`` admission weight (linear relaxation, HiGHS through scipy).
+
+    Each item needs ``need_per_half`` grid units per half-width unit (its width, 2, plus
+    whatever spacing the caller can prove every plan keeps) and, at each end of its stretch,
+    ``end_per_half`` (a guard towards an edge less half the spacing already counted).  A
+    stretch's ends add at least twice the smallest such term over its items, at the
+    half-width that makes it smallest, so a stretch holds Σ need·h ≤ length − 2·min end·h.
+    Returns ``-inf`` when the rows cannot serve ``admitted``.
+    """
+    n = len(items)
+    if n == 0:
+        return 0.0 if admitted <= 0 else -math.inf
+    rows = _bound_rows(items, lengths, weights, admitted)
     result = optimize.milp(  # no integrality: the linear relaxation
-        cost,
-        constraints=optimize.LinearConstraint(matrix, lower, upper),
+        [0.0] * n + [-it.value_per_half for it in items],
+        constraints=rows.constraint(2 * n),
         bounds=optimize.Bounds([0.0] * (2 * n), [1.0] * n + [float(it.hi_half) for it in items]),
         options={"presolve": True},
     )

@@ -9,10 +9,10 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from solver.model import CarrierConfig
+from solver.model import CarrierConfig, Demand
 from solver.physics import emission
 
-__all__ = ["Candidate", "Family", "mask_guard_per_baud"]
+__all__ = ["Candidate", "DemandOptions", "Family", "mask_guard_per_baud"]
 
 
 @dataclass(frozen=True)
@@ -148,3 +148,12 @@ class Family:
             math.ceil(config.guard_hz / self.raster_hz - 1e-9),
             math.ceil(config.edge_guard_hz / self.raster_hz - 1e-9),
         )
+
+
+@dataclass(frozen=True)
+class DemandOptions:
+    """Every kept family of one demand, and why there are none when the list is empty."""
+
+    demand: Demand
+    candidates: tuple[Family, ...]
+    best_link_detail: str
