@@ -50,6 +50,7 @@ __all__ = [
     "bound_candidates",
     "build_candidates",
     "candidate_for",
+    "candidate_sets",
     "emission_key",
     "family_for",
     "least_width_hz",
@@ -360,14 +361,41 @@ def build_candidates(
         return _discrete_candidates(
             problem, demand, max_width_hz=max_width_hz, min_limit_db=min_limit_db
         )
-    raster = problem.block.raster_hz
-    combos = _combos(problem.coding, problem.transmitter, tuple(demand.modulations))
     widest = problem.block.width_hz if max_width_hz is None else max_width_hz
-    span = _family_span(combos, demand, raster, widest)
+    return _kept_families(problem, demand, _basis(problem, demand, widest, min_limit_db))
+
+
+class _Basis(NamedTuple):
+    """Every combination's family span and guards, before any is pruned."""
+
+    combos: _Combos
+    span: _Span
+    guards: _Guards | None
+
+
+def _basis(problem: Problem, demand: Demand, widest_hz: float, min_limit_db: float) -> _Basis:
+    combos = _combos(problem.coding, problem.transmitter, tuple(demand.modulations))
+    span = _family_span(combos, demand, problem.block.raster_hz, widest_hz)
     if span.combo_index.size == 0:
+        return _Basis(combos, span, None)
+    g = _guards(problem, demand, combos, span.combo_index, span.top_rate_baud, min_limit_db)
+    return _Basis(combos, span, g)
+
+
+def candidate_sets(problem: Problem, demand: Demand) -> tuple[DemandOptions, tuple[Family, ...]]:
+    """:func:`build_candidates` and :func:`bound_candidates` of one demand, sharing the work
+    (spans and guards of every combination) where the objective allows."""
+    if problem.objective is Objective.MAX_MARGIN:
+        return build_candidates(problem, demand), bound_candidates(problem, demand)
+    basis = _basis(problem, demand, problem.block.width_hz, 0.0)
+    return _kept_families(problem, demand, basis), _bound_families(problem, demand, basis)
+
+
+def _kept_families(problem: Problem, demand: Demand, basis: _Basis) -> DemandOptions:
+    combos, span, g = basis
+    if g is None:
         return DemandOptions(demand, (), _no_link_detail(problem, demand, combos))
-    idx, rs = span.combo_index, span.top_rate_baud
-    g = _guards(problem, demand, combos, idx, rs, min_limit_db)
+    raster = problem.block.raster_hz
     per_half_cost = 2.0 + np.where(g.usable, g.guard_hz, 0.0) / raster / span.hi_half
     ratio = g.throughput_bps / span.hi_half / per_half_cost
     low_throughput = g.throughput_bps * span.lo_half / span.hi_half
@@ -590,9 +618,13 @@ def family_for(
     code_rate: CodeRate,
     rolloff: float,
     symbol_rate_baud: float,
+    strongest_level_db: float | None = None,
 ) -> Family | None:
     """:func:`candidate_for` as a single-width :class:`Family` that knows its spectrum, its
-    sensitivity and its leakage guard (so its neighbours can be spaced from the pair)."""
+    sensitivity and its leakage guard (so its neighbours can be spaced from the pair).
+
+    ``strongest_level_db`` is the highest ``relative_level_db`` among the problem's demands
+    (found here when not given; callers with many carriers pass it once)."""
     entry = modcod.required_esn0_db(modulation, code_rate, problem.coding)
     if not math.isfinite(entry):
         return None
@@ -605,7 +637,12 @@ def family_for(
         return None
     key = emission_key(problem, modulation, rolloff)
     profile = emission.get_profile(key)
-    weakest = max(d.relative_level_db for d in problem.demands) - demand.relative_level_db
+    strongest = (
+        max(d.relative_level_db for d in problem.demands)
+        if strongest_level_db is None
+        else strongest_level_db
+    )
+    weakest = strongest - demand.relative_level_db
     immunity = float(
         _immunity_limit_db(np.array([esn0]), np.array([esn0 - entry]), demand, weakest)[0]
     )
@@ -656,11 +693,13 @@ def bound_candidates(problem: Problem, demand: Demand) -> tuple[Family, ...]:
     that closes the link and meets the minimum rate, kept unless another carries more per
     unit of width over its whole range and needs no more towards a block edge per bit
     (spacing between carriers is left out, so no family is lost to its guards)."""
-    combos = _combos(problem.coding, problem.transmitter, tuple(demand.modulations))
-    span = _family_span(combos, demand, problem.block.raster_hz, problem.block.width_hz)
-    if span.combo_index.size == 0:
+    return _bound_families(problem, demand, _basis(problem, demand, problem.block.width_hz, 0.0))
+
+
+def _bound_families(problem: Problem, demand: Demand, basis: _Basis) -> tuple[Family, ...]:
+    combos, span, g = basis
+    if g is None:
         return ()
-    g = _guards(problem, demand, combos, span.combo_index, span.top_rate_baud, 0.0)
     placeable = np.isfinite(g.edge_hz)
     ratio = g.throughput_bps / span.hi_half / 2.0
     low = g.throughput_bps * span.lo_half / span.hi_half

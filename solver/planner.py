@@ -20,8 +20,8 @@ from solver.candidates import (
     Candidate,
     DemandOptions,
     Family,
-    bound_candidates,
     build_candidates,
+    candidate_sets,
     family_for,
 )
 from solver.judge import Judgement, judge
@@ -334,14 +334,16 @@ def _hints(
 # ---------------------------------------------------------------- solve and repair
 
 
-def _arrange(problem: Problem, data: PackingInput, result: PackingResult) -> Arrangement:
+def _arrange(
+    problem: Problem, data: PackingInput, result: PackingResult, deadline: float
+) -> Arrangement:
     """The model's choice made pair-exact, with the demands it left out fitted in where room
     allows; or the greedy admission peer when that serves more (admission first, then the
     priority-weighted throughput)."""
     model = from_model(data, result)
-    admit_rest(data, model)
+    admit_rest(data, model, deadline)
     check = PairCheck(problem)
-    greedy = greedy_stretches(data, pair_measure(check))
+    greedy = greedy_stretches(data, pair_measure(check), deadline)
     for arrangement in (model, greedy):
         refit(arrangement, problem.objective, problem.seed)
     better = greedy.admission(data) > model.admission(data) or (
@@ -419,7 +421,7 @@ def _solve_and_verify(
         round_no += 1
         attempt = replace(data, options=options, time_limit_s=max(budget, 0.2), hints=hints)
         result = solve_packing(attempt, progress=progress, cancel=cancel)
-        placed = to_carriers(problem, _arrange(problem, attempt, result))
+        placed = to_carriers(problem, _arrange(problem, attempt, result, deadline))
         if not placed and previous is not None:
             check, dropped = drop_until_passing(problem, previous[0])
             return check, previous[1], round_no, dropped
@@ -455,12 +457,19 @@ def _staying(
     ones, they pass verification together (an unchanged request keeps its plan); otherwise
     highest priority first, each while it keeps the guard rule beside those kept."""
     current: list[_Fixed] = []
+    strongest = max(d.relative_level_db for d in problem.demands)
     for demand in sorted(problem.demands, key=lambda d: (-d.priority, d.id)):
         cur = demand.current
         if cur is None or demand.pinned_center_hz is not None:
             continue
         fam = family_for(
-            problem, demand, cur.modulation, cur.code_rate, cur.rolloff, cur.symbol_rate_baud
+            problem,
+            demand,
+            cur.modulation,
+            cur.code_rate,
+            cur.rolloff,
+            cur.symbol_rate_baud,
+            strongest,
         )
         if fam is not None:
             current.append(_Fixed(Carrier(fam.top.config, cur.center_hz, 0.0, 0.0), fam.top, fam))
@@ -658,8 +667,9 @@ def solve(
     clock = _Clock(time.perf_counter(), problem.time_limit_s)
     tell = _Teller(clock, progress, problem)
     tell.stage("building spectra and candidates")
-    options = {d.id: build_candidates(problem, d) for d in problem.demands}
-    tell.families = {d.id: bound_candidates(problem, d) for d in problem.demands}
+    sets = {d.id: candidate_sets(problem, d) for d in problem.demands}
+    options = {d: kept for d, (kept, _) in sets.items()}
+    tell.families = {d: bounding for d, (_, bounding) in sets.items()}
     progress = tell.searching
     replanning = problem.retune_penalty > 0 and any(d.current is not None for d in problem.demands)
     stages = 2 if replanning else 1

@@ -133,7 +133,8 @@ def with_guards(problem: Problem, carriers: Sequence[Carrier]) -> list[Carrier]:
     every plan, whichever stage of the planner chose it.
     """
     demands = {d.id: d for d in problem.demands}
-    settled = (_settled(problem, demands.get(c.demand_id), c) for c in carriers)
+    strongest = max((d.relative_level_db for d in problem.demands), default=0.0)
+    settled = (_settled(problem, demands.get(c.demand_id), c, strongest) for c in carriers)
     ordered = sorted(settled, key=lambda c: c.center_hz)
     out = []
     for i, c in enumerate(ordered):
@@ -149,13 +150,21 @@ def with_guards(problem: Problem, carriers: Sequence[Carrier]) -> list[Carrier]:
     return out
 
 
-def _settled(problem: Problem, demand: Demand | None, carrier: Carrier) -> Carrier:
+def _settled(
+    problem: Problem, demand: Demand | None, carrier: Carrier, strongest_db: float
+) -> Carrier:
     """``carrier`` with the guards its settings alone give it."""
     cfg = carrier.config
     if demand is None:
         return carrier
     fam = family_for(
-        problem, demand, cfg.modulation, cfg.code_rate, cfg.rolloff, cfg.symbol_rate_baud
+        problem,
+        demand,
+        cfg.modulation,
+        cfg.code_rate,
+        cfg.rolloff,
+        cfg.symbol_rate_baud,
+        strongest_db,
     )
     if fam is None:
         return carrier

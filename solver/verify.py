@@ -15,6 +15,8 @@ module ignores all of that and looks at the placed carriers only:
 
 from __future__ import annotations
 
+import bisect
+import functools
 import itertools
 import math
 from collections.abc import Sequence
@@ -260,25 +262,44 @@ class _Emitter:
         return self.level * self.profile.psd_at((freq_hz - c.center_hz) / c.config.symbol_rate_baud)
 
 
+@functools.lru_cache(maxsize=256)
+def _response(key: emission.EmissionKey) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """The matched filter's power response (normalised to 1 at the centre) on its profile's
+    grid (Rs units)."""
+    matched = emission.get_profile(key)
+    return matched.freq, matched.psd / float(matched.psd_at(np.zeros(1))[0])
+
+
 def _received(
     problem: Problem, victim: _Emitter, emitters: Sequence[_Emitter]
 ) -> tuple[float, dict[str, float]]:
-    """Signal power and each other carrier's power through the victim's matched filter."""
+    """Signal power and each other carrier's power through the victim's matched filter
+    (``emitters`` sorted by centre frequency, or few)."""
     rs = victim.carrier.config.symbol_rate_baud
-    matched = emission.get_profile(_key(problem, victim.carrier, linear=True))
-    freq = victim.carrier.center_hz + matched.freq * rs
-    response = matched.psd / float(matched.psd_at(np.zeros(1))[0])
+    grid, response = _response(_key(problem, victim.carrier, linear=True))
+    freq = victim.carrier.center_hz + grid * rs
     signal = float(np.trapezoid(victim.density(freq) * response, freq))
-    reach = float(np.max(np.abs(matched.freq))) * rs
+    reach = float(np.max(np.abs(grid), initial=0.0)) * rs
     powers: dict[str, float] = {}
-    for other in emitters:
-        if other is victim:
-            continue
+    for other in _near(victim, emitters, reach):
         if abs(other.carrier.center_hz - victim.carrier.center_hz) > reach + other.reach_hz:
             continue
         density = other.density(freq)
         powers[other.carrier.demand_id] = float(np.trapezoid(density * response, freq))
     return signal, powers
+
+
+def _near(victim: _Emitter, emitters: Sequence[_Emitter], reach_hz: float) -> list[_Emitter]:
+    """The other emitters whose centres lie within ``reach_hz`` plus the farthest reach of
+    any emitter from the victim's centre (``emitters`` sorted by centre, when many)."""
+    if len(emitters) <= 8:
+        return [e for e in emitters if e is not victim]
+    centre = victim.carrier.center_hz
+    widest = max(e.reach_hz for e in emitters)
+    centres = [e.carrier.center_hz for e in emitters]
+    lo = bisect.bisect_left(centres, centre - reach_hz - widest)
+    hi = bisect.bisect_right(centres, centre + reach_hz + widest)
+    return [e for e in emitters[lo:hi] if e is not victim]
 
 
 def _needed_c_over_i_db(esn0_db: float, required_db: float, floor_db: float) -> float:
@@ -296,8 +317,9 @@ def _interference(
     found: list[Violation] = []
     out: list[Carrier] = []
     emitters = [_Emitter.of(problem, c, levels[c.demand_id]) for c in carriers]
+    by_centre = sorted(emitters, key=lambda e: e.carrier.center_hz)
     for v, emitter in zip(carriers, emitters, strict=True):
-        signal, powers = _received(problem, emitter, emitters)
+        signal, powers = _received(problem, emitter, by_centre)
         interference = sum(powers.values())
         ci_lin = math.inf if interference <= 0 else signal / interference
         c_over_i = 10.0 * math.log10(ci_lin)

@@ -9,6 +9,7 @@ verifier; the demo carries more than before), not a published figure.
 from __future__ import annotations
 
 import json
+import math
 from dataclasses import replace
 from pathlib import Path
 
@@ -24,6 +25,7 @@ from solver import (
     Objective,
     Plan,
     Problem,
+    ProgressEvent,
     SolveStatus,
     Transmitter,
     UnservedReason,
@@ -233,3 +235,20 @@ def test_an_unchanged_request_replanned_keeps_every_carrier_and_its_guards(
     assert replanned.summary.retune_count == 0
     assert not any(c.retuned for c in replanned.carriers)
     assert settings(replanned) == settings(plan)
+
+
+def test_progress_starts_at_once_and_ends_with_the_plans_own_gap() -> None:
+    # Before: nothing was shown until the packing model's first solution, and the gap shown
+    # was the packing model's, not the one the plan then reported.
+    events: list[ProgressEvent] = []
+    plan = solve(_one_mhz(3), progress=events.append)
+    assert events[0].stage == "building spectra and candidates"
+    assert events[0].elapsed_s < 1.0
+    verified = [e for e in events if e.stage == "verified plan"]
+    assert verified, [e.stage for e in events]
+    last = verified[-1]
+    assert last.optimality_gap == plan.stats.optimality_gap
+    assert last.objective_value == plan.stats.objective_value
+    assert last.best_bound == plan.stats.best_bound
+    # Only verified plans carry figures; the rest say what is being computed.
+    assert all(math.isnan(e.optimality_gap) for e in events if e.stage != "verified plan")

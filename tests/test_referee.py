@@ -8,9 +8,10 @@ Properties (hypothesis; each with an explicit example from a known bug):
    best (the referee's grid is coarse, so its best is a lower bound on the optimum);
 3. the planner never says ``infeasible``, and never leaves out a demand the referee serves alone
    without serving a demand of at least its priority instead;
-4. every plan the planner returns passes ``verify_plan``.
+4. every plan the planner returns passes ``verify_plan``;
+5. the bound a plan states is never below the referee's best plan of the same admission.
 
-The four properties draw the same instances (one shared seed, see :data:`SHARED_SEED`) and share
+The five properties draw the same instances (one shared seed, see :data:`SHARED_SEED`) and share
 one planner run and one referee run per instance (:func:`_outcome`), which keeps the module
 within its time budget on two cores.  Plain unit tests of the referee itself come first.
 """
@@ -455,3 +456,22 @@ def test_every_plan_passes_verification(problem: Problem) -> None:
     out = _outcome(problem)
     check = verify_plan(problem, out.plan.carriers)
     assert check.passed, [v.detail for v in check.violations]
+
+
+@RUNS
+@seed(SHARED_SEED)
+@given(problem=instances())
+@example(problem=BUG_THREE)
+def test_the_stated_bound_holds_for_the_referees_best(problem: Problem) -> None:
+    """Property 5: the bound a plan states is never below the referee's best plan of the same
+    admission (so its gap, optimal or not, is honest)."""
+    out = _outcome(problem)
+    plan, found = out.plan, out.found
+    served = [c.demand_id for c in plan.carriers]
+    if not served or admission_key(problem, served) != found.best.admission:
+        return
+    assert math.isfinite(plan.stats.best_bound)
+    assert plan.stats.best_bound >= found.best.value - _tolerance(problem, plan), (
+        f"{problem.objective}: bound {plan.stats.best_bound:.6g} below the referee's "
+        f"{found.best.value:.6g}"
+    )

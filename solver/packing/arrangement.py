@@ -18,6 +18,7 @@ order, first fit at their narrowest, through the same pair spacing.
 from __future__ import annotations
 
 import math
+import time
 from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Protocol
@@ -159,24 +160,33 @@ def _by_priority(data: PackingInput, owners: set[int]) -> list[int]:
     return sorted(left, key=lambda d: (-data.priorities[d], data.options[d].demand.id))
 
 
-def admit_rest(data: PackingInput, arrangement: Arrangement) -> list[int]:
+def admit_rest(
+    data: PackingInput, arrangement: Arrangement, deadline: float = math.inf
+) -> list[int]:
     """Fit every demand left out where the pair-exact gaps leave room, highest priority
-    first, anywhere in a stretch's order (narrowing the others to their least if needed).
-    Returns the demands admitted."""
+    first, anywhere in a stretch's order (narrowing the others to their least if needed),
+    until ``deadline`` (``time.perf_counter()``).  Returns the demands admitted."""
     admitted = []
     for d in _by_priority(data, arrangement.owners()):
+        if time.perf_counter() > deadline:
+            break
         choices = _choices(data, d)
         if any(st.insert(choices) for st in arrangement.stretches):
             admitted.append(d)
     return admitted
 
 
-def greedy_stretches(data: PackingInput, measure: PairMeasure | None = None) -> Arrangement:
+def greedy_stretches(
+    data: PackingInput, measure: PairMeasure | None = None, deadline: float = math.inf
+) -> Arrangement:
     """The admission peer: demands in priority order (ties by id), each at its narrowest
     family that still fits, first fit from the low end of the block; with ``measure``
-    (:func:`pair_measure`), at the gap the pair really needs where the mask gap is too wide."""
+    (:func:`pair_measure`), at the gap the pair really needs where the mask gap is too wide;
+    those not reached by ``deadline`` (``time.perf_counter()``) are left out."""
     arrangement = Arrangement(_empty(data.segments))
     for d in _by_priority(data, set()):
+        if time.perf_counter() > deadline:
+            break
         choices = _choices(data, d)
         any(st.append(choices, measure) for st in arrangement.stretches)
     return arrangement

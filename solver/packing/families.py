@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import functools
 import math
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -79,6 +79,11 @@ class Family:
     sensitivity_db: float = 0.0
     leakage_guard_per_baud: float = 0.0
     key: emission.EmissionKey | None = None
+    memo: dict[object, float] = field(
+        default_factory=dict, init=False, compare=False, hash=False, repr=False
+    )
+    """Per-family results of pure functions of it (e.g. its guard towards a neighbour of
+    a given sensitivity); never part of its identity."""
 
     @classmethod
     def single(cls, cand: Candidate, raster_hz: float = 1.0) -> Family:

@@ -89,8 +89,12 @@ def _guard_per_half(family: Family, victim: Family) -> float:
     its own leakage guard, or its skirt kept below the victim's sensitivity."""
     if family.key is None:  # a fixed test family: its own guard is all that is known
         return family.top.guard_units / family.hi_half
-    mask = mask_guard_per_baud(family.key, victim.sensitivity_db)
-    return _per_half(family, max(family.leakage_guard_per_baud, mask))
+    found = family.memo.get(victim.sensitivity_db)
+    if found is None:
+        mask = mask_guard_per_baud(family.key, victim.sensitivity_db)
+        found = _per_half(family, max(family.leakage_guard_per_baud, mask))
+        family.memo[victim.sensitivity_db] = found
+    return found
 
 
 def leakage_units(family: Family, half: int) -> float:
@@ -400,6 +404,29 @@ class Stretch:
     halves: list[int] = field(default_factory=list)
     scales: dict[tuple[int, int], float] = field(default_factory=dict)
     fine: int = 1
+    _tail: tuple[object, int, int] | None = field(default=None, init=False, repr=False)
+    """(state, last carrier's upper edge, reach): :meth:`append`'s memory of the layout."""
+
+    def _state(self) -> object:
+        return (
+            len(self.slots),
+            tuple(map(id, self.slots)),
+            tuple(self.halves),
+            tuple(self.scales.items()),
+        )
+
+    def _tail_of_layout(self) -> tuple[int, int]:
+        """The last carrier's upper edge and how far the carriers reach with their guards
+        towards the stretch's ends, packed from the low end (remembered between appends)."""
+        state = self._state()
+        if self._tail is not None and self._tail[0] == state:
+            return self._tail[1], self._tail[2]
+        centres, _ = self._layout(self.slots, self.halves)
+        edge = centres[-1] + self.halves[-1]
+        reach = edge_reach(self.slots, self.halves, self.left, self.right)
+        reached = max(c + h + r for c, h, (_, r) in zip(centres, self.halves, reach, strict=True))
+        self._tail = (state, edge, reached)
+        return edge, reached
 
     def _layout(self, slots: Sequence[Slot], halves: Sequence[int]) -> tuple[list[int], int]:
         return layout(
@@ -425,13 +452,8 @@ class Stretch:
         stop = self.start + self.length
         edge, last, reached = self.start, self.slots[-1] if self.slots else None, self.start
         if last is not None:
-            centres, _ = self._layout(self.slots, self.halves)
-            edge = centres[-1] + self.halves[-1]
-            reach = edge_reach(self.slots, self.halves, self.left, self.right)
-            reached = max(
-                c + h + r for c, h, (_, r) in zip(centres, self.halves, reach, strict=True)
-            )
-        best: tuple[int, int, Slot, float] | None = None
+            edge, reached = self._tail_of_layout()
+        best: tuple[int, int, Slot, float, int] | None = None
         for rank, slot in enumerate(options):
             if best is not None and (measure is None or rank >= measured):
                 break
@@ -446,14 +468,17 @@ class Stretch:
             centre = _on_grid(max(edge + gap, self.start + floor) + h, self.fine)
             end = max(reached, centre + h + _wall_gap(self.right, slot.family, h))
             if end <= stop and (best is None or end < best[0]):
-                best = (end, rank, slot, scale)
+                best = (end, rank, slot, scale, centre)
         if best is None:
             return False
-        _, _, slot, scale = best
+        _, _, slot, scale, centre = best
         if last is not None and scale < 1.0:
             self.scales[last.owner, slot.owner] = scale
         self.slots.append(slot)
         self.halves.append(slot.lo_half)
+        ((_, ahead),) = edge_reach([slot], [slot.lo_half], self.left, self.right)
+        upper = centre + slot.lo_half
+        self._tail = (self._state(), upper, max(reached, upper + ahead))
         return True
 
     def insert(self, options: Sequence[Slot], *, max_positions: int = 64) -> bool:

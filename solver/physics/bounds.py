@@ -19,6 +19,7 @@ steps in order of slope and solves each continuous piece with ``scipy.optimize.b
 
 from __future__ import annotations
 
+import itertools
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
@@ -181,26 +182,42 @@ def _solve_level(
 
 
 def _allocate(shares: Sequence[_Share], usable_hz: float) -> list[float]:
-    """Water-filling on the marginal rate λ, walking the fixed demands' slopes downwards."""
+    """Water-filling on the marginal rate λ over the fixed demands' slopes, highest first.
+
+    Walking down the slopes, the width taken at each slope (the power-limited widths there,
+    plus every fixed demand of a higher slope at its cap, plus those tied at it) only grows, so
+    the first slope at which the block is full is found by bisection; the solution lies
+    strictly above it, or at it with the tied demands sharing the rest.
+    """
     if sum(s.cap_hz for s in shares) <= usable_hz:
         return [s.cap_hz for s in shares]
-    slopes = sorted({s.slope for s in shares if s.slope is not None}, reverse=True)
-    upper, full_hz = math.inf, 0.0
-    for level in [*slopes, 0.0]:
-        at_level = sum(s.width_at(level) for s in shares if s.slope is None) + full_hz
-        if at_level >= usable_hz:  # the solution lies strictly above this slope
-            found = _solve_level(shares, full_hz, usable_hz, level, upper)
-            return [
-                s.width_at(found) if s.slope is None else (s.cap_hz if s.slope >= upper else 0.0)
-                for s in shares
-            ]
-        tied_hz = sum(s.cap_hz for s in shares if s.slope == level)
-        if at_level + tied_hz >= usable_hz:  # λ* equals this slope: the tied demands share
-            fraction = (usable_hz - at_level) / tied_hz
-            return [_width_at_tie(s, level, upper, fraction) for s in shares]
-        full_hz += tied_hz
-        upper = level
-    return [s.cap_hz for s in shares]
+    slopes = [*sorted({s.slope for s in shares if s.slope is not None}, reverse=True), 0.0]
+    tied = [sum(s.cap_hz for s in shares if s.slope == level) for level in slopes]
+    before = list(itertools.accumulate(tied[:-1], initial=0.0))  # caps of higher slopes
+
+    def below(k: int) -> float:  # at slope k, without the demands tied there
+        level = slopes[k]
+        return sum(s.width_at(level) for s in shares if s.slope is None) + before[k]
+
+    lo, hi = 0, len(slopes)  # first k full with its tied demands at their caps, if any
+    while lo < hi:
+        mid = (lo + hi) // 2
+        if below(mid) + tied[mid] >= usable_hz:
+            hi = mid
+        else:
+            lo = mid + 1
+    if lo == len(slopes):
+        return [s.cap_hz for s in shares]
+    level, upper = slopes[lo], (slopes[lo - 1] if lo else math.inf)
+    at_level = below(lo)
+    if at_level >= usable_hz:  # the solution lies strictly above this slope
+        found = _solve_level(shares, before[lo], usable_hz, level, upper)
+        return [
+            s.width_at(found) if s.slope is None else (s.cap_hz if s.slope >= upper else 0.0)
+            for s in shares
+        ]
+    fraction = (usable_hz - at_level) / tied[lo]  # λ* equals this slope: the tied share
+    return [_width_at_tie(s, level, upper, fraction) for s in shares]
 
 
 def _width_at_tie(share: _Share, level: float, upper: float, fraction: float) -> float:
