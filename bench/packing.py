@@ -300,7 +300,11 @@ def _timed_solve(problem: Problem, *, stop_at_first: bool = False) -> _Timed:
     first: list[float] = []
     started = time.perf_counter()
 
-    def note(_: ProgressEvent) -> None:
+    def note(event: ProgressEvent) -> None:
+        # Packing solutions only: stage reports ("building spectra and candidates", the
+        # verified plans) are not solutions; older solvers' events have no stage.
+        if getattr(event, "stage", "searching") != "searching":
+            return
         if not first:
             first.append(time.perf_counter() - started)
             if stop_at_first:

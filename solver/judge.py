@@ -5,9 +5,10 @@ The bound must hold for plans the planner cannot make (other configurations, oth
 other positions), or an "optimal" plan could be beaten.  So it leaves out everything the
 verifier does not demand of *every* plan:
 
-* carriers need no spacing between them (the verifier's interference rule can let two
-  neighbours touch), but each carrier keeps its own guard towards a block edge or an
-  exclusion, which the verifier always checks;
+* carriers need no more spacing between them than their own leakage guards (the verifier's
+  interference rule can let two neighbours closer than their spectral masks suggest), and
+  each keeps its own guard towards a block edge or an exclusion, which the verifier always
+  checks;
 * pinned carriers and carriers kept in place by a replan may sit anywhere;
 * every configuration that closes its link counts, pruned only where another carries more
   per unit of width and needs no more towards an edge (:func:`bound_candidates`).
@@ -35,7 +36,9 @@ from solver.packing import Segment, admission_weights
 from solver.packing.arrangement import FINE, fine_slot
 from solver.packing.families import Family
 from solver.packing.spacing import BoundItem, throughput_bound
+from solver.physics import emission
 from solver.summary import free_segments_hz, with_guards
+from solver.verify import LEAKAGE_TOLERANCE_DB
 
 __all__ = ["BOUND_TOLERANCE", "Judgement", "judge"]
 
@@ -108,22 +111,44 @@ def _throughput(problem: Problem, carriers: Sequence[Carrier]) -> float:
 def _items(
     problem: Problem, segments: Sequence[Segment], families: Mapping[str, Sequence[Family]]
 ) -> list[BoundItem]:
-    """Relaxation columns: each demand's families in each stretch they fit, no spacing, the
-    edge guard towards each end that is a block edge or exclusion."""
+    """Relaxation columns: each demand's families in each stretch they fit.
+
+    Verification holds every carrier's leakage ratio towards its neighbour at the gap between
+    them (measured in a band of the carrier's own width, whatever the neighbour), so a gap is
+    at least the larger of the two carriers' leakage guards, and so at least their mean ``a``;
+    towards a block edge or exclusion each keeps its edge guard ``e``.  Both are taken on the
+    kinder side and at the verifier's tolerance below the limit.
+    """
     items = []
     for d, demand in enumerate(problem.demands):
         for family in families.get(demand.id, ()):
             slot = fine_slot(family, demand, demand.priority)
+            fam = slot.family
+            per_half = fam.top.config.symbol_rate_baud / fam.hi_half / fam.raster_hz
+            leak = _least_guard_per_baud(fam, problem.leakage_limit_db) * per_half
+            edge = _least_guard_per_baud(fam, problem.edge_limit_db) * per_half
+            leak = 0.0 if math.isinf(leak) else leak  # alone in its reach: no neighbour gap
             for s, seg in enumerate(segments):
                 if 2 * slot.lo_half > FINE * seg.length:
                     continue
-                edge = slot.family.edge_per_half
                 walls = (seg.left_wall.family, seg.right_wall.family)
-                end = edge if walls == (None, None) else 0.0
+                end = edge - leak / 2 if walls == (None, None) else -leak / 2
                 items.append(
-                    BoundItem(d, s, slot.lo_half, slot.hi_half, slot.value_per_half, 2.0, end)
+                    BoundItem(
+                        d, s, slot.lo_half, slot.hi_half, slot.value_per_half, 2.0 + leak, end
+                    )
                 )
     return items
+
+
+def _least_guard_per_baud(family: Family, limit_db: float) -> float:
+    """The smaller of a family's two one-sided guards (symbol-rate units) for ``limit_db``,
+    at the verifier's tolerance below it (0 for a family without a spectrum profile)."""
+    if family.key is None:
+        return 0.0
+    profile = emission.get_profile(family.key)
+    at = limit_db - LEAKAGE_TOLERANCE_DB
+    return min(profile.guard_needed(at, "below"), profile.guard_needed(at, "above"))
 
 
 def _served_per_priority(problem: Problem, served: Sequence[str]) -> dict[int, int]:

@@ -32,6 +32,7 @@ from solver.physics import emission
 
 __all__ = [
     "INTERFERENCE_ALLOWANCE_DB",
+    "LEAKAGE_TOLERANCE_DB",
     "PairCheck",
     "Verification",
     "Violation",
@@ -45,7 +46,7 @@ of a dB of the link budget is set aside for adjacent-channel interference; value
 
 Side = Literal["below", "above"]
 
-_LEAKAGE_TOLERANCE_DB = 0.05
+LEAKAGE_TOLERANCE_DB = 0.05
 """Numerical slack on leakage ratios (profile interpolation)."""
 
 _PLACEMENT_TOLERANCE_HZ = 1e-6
@@ -222,7 +223,7 @@ def _leakage(problem: Problem, carriers: list[Carrier]) -> tuple[list[Carrier], 
                 if k == 0:
                     ratios[side] = ratio
                 limit = limits[check.kind]
-                if ratio < limit - _LEAKAGE_TOLERANCE_DB:
+                if ratio < limit - LEAKAGE_TOLERANCE_DB:
                     found.append(
                         Violation(
                             c.demand_id,
