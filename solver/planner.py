@@ -24,6 +24,7 @@ from solver.candidates import (
     candidate_sets,
     family_for,
 )
+from solver.greedy import greedy_admission
 from solver.judge import Judgement, judge
 from solver.model import (
     Carrier,
@@ -539,9 +540,11 @@ def _run(
         hints=_hints(problem, free, segments),
         levels=protection_levels(free),
     )
+    deadline = time.perf_counter() + problem.time_limit_s
     check, result, rounds, dropped = _solve_and_verify(
         problem, data, [f.carrier for f in fixed], progress, cancel
     )
+    check, dropped = _at_least_greedy(problem, data, fixed, check, dropped, deadline)
     served = {c.demand_id for c in check.carriers}
     dropped_ids = {u.demand_id for u in dropped}
     explained = explain_unserved(problem, free, served | dropped_ids, segments)
@@ -555,6 +558,37 @@ def _run(
         tuple(fixed),
         choice,
     )
+
+
+GREEDY_SHARE = 0.25
+"""Share of a run's time the verifier-driven greedy peer may take after the packing (it stops
+there and loses the comparison if it has not placed everyone it could)."""
+
+
+def _at_least_greedy(
+    problem: Problem,
+    data: PackingInput,
+    fixed: Sequence[_Fixed],
+    check: Verification,
+    dropped: list[Unserved],
+    deadline: float,
+) -> tuple[Verification, list[Unserved]]:
+    """The packed plan, or greedy admission through the verifier (:mod:`solver.greedy`) when
+    that serves more (priority first): no plan serves less than the greedy peer."""
+    index = {o.demand.id: d for d, o in enumerate(data.options)}
+    weight = data.admission_weights
+
+    def admitted(carriers: Sequence[Carrier]) -> int:
+        return sum(weight[index[c.demand_id]] for c in carriers if c.demand_id in index)
+
+    left = max(0.0, deadline - time.perf_counter()) + GREEDY_SHARE * problem.time_limit_s
+    demands = [o.demand for o in data.options if o.candidates]
+    pinned = [f.carrier for f in fixed]
+    peer = greedy_admission(problem, pinned, demands, time.perf_counter() + left)
+    if admitted(peer) <= admitted(check.carriers):
+        return check, dropped
+    log.info("the greedy peer serves more than the packing; its plan is kept")
+    return verify_plan(problem, [*pinned, *peer]), []
 
 
 def _score(problem: Problem, outcome: _Outcome) -> tuple[int, float]:
@@ -773,6 +807,7 @@ def _finish(problem: Problem, outcome: _Outcome, verdict: Judgement, elapsed_s: 
         notices.append(dropped_notice(outcome.dropped))
     if status is SolveStatus.FEASIBLE:
         notices.extend(_not_proven(problem, verdict))
+    notices.extend(_below_target(problem, carriers))
     return Plan(
         name=problem.name,
         status=status,
@@ -796,10 +831,44 @@ def _not_proven(problem: Problem, verdict: Judgement) -> list[str]:
         if problem.objective is Objective.MAX_MARGIN:
             figure = f"{verdict.bound - verdict.value:.2f} dB"
         else:
-            figure = f"{verdict.gap:.2%} of the plan's value"
+            figure = f"{verdict.gap:.2%}"
         said.append(
-            f"The plan is within {figure} of a bound that holds for every plan verification "
-            "passes; the bound leaves out the spacing between carriers, so not all of that "
-            "gap can be reached."
+            f"Not proven optimal: a bound that holds for every plan verification passes lies "
+            f"{figure} above this plan; it leaves out most of the spacing carriers need, so "
+            "not all of that gap can be reached."
         )
     return said
+
+
+LINK_LIMIT_DB = 0.05
+"""A served power-limited demand with no more margin than this beyond its own is at its link
+limit: a wider carrier at the same MODCOD would not close."""
+
+
+def _below_target(problem: Problem, carriers: Sequence[Carrier]) -> list[str]:
+    """Which served demands run below their target, and why (so that spectrum left free beside
+    them is explained): at the link limit, or for want of room where they sit."""
+    demands = {d.id: d for d in problem.demands}
+    limited: list[str] = []
+    crowded: list[str] = []
+    for c in carriers:
+        demand = demands[c.demand_id]
+        if c.config.throughput_bps >= demand.target_rate_bps * (1 - 1e-6):
+            continue
+        excess = c.config.esn0_db - c.config.required_esn0_db - demand.margin_db
+        at_limit = demand.cn0_dbhz is not None and excess <= LINK_LIMIT_DB
+        (limited if at_limit else crowded).append(c.demand_id)
+    said = []
+    if limited:
+        said.append(
+            f"Below target at their link limit (a wider carrier would not close): "
+            f"{_names(limited)}."
+        )
+    if crowded:
+        said.append(f"Below target for want of room beside their neighbours: {_names(crowded)}.")
+    return said
+
+
+def _names(ids: Sequence[str], shown: int = 6) -> str:
+    head = ", ".join(sorted(ids)[:shown])
+    return head if len(ids) <= shown else f"{head} and {len(ids) - shown} more"

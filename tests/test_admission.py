@@ -252,3 +252,22 @@ def test_progress_starts_at_once_and_ends_with_the_plans_own_gap() -> None:
     assert last.best_bound == plan.stats.best_bound
     # Only verified plans carry figures; the rest say what is being computed.
     assert all(math.isnan(e.optimality_gap) for e in events if e.stage != "verified plan")
+
+
+def test_no_plan_serves_less_than_greedy_admission_through_the_verifier(
+    monkeypatch: pytest.MonkeyPatch,
+) -> None:
+    # The packing is made to find nothing at all: the plan must still serve what greedy
+    # admission through the verifier serves (priority first), and pass verification.
+    import solver.planner as planner
+    from solver.greedy import greedy_admission
+    from solver.packing.results import no_solution
+
+    problem = _one_mhz(3)
+    monkeypatch.setattr(planner, "solve_packing", lambda *a, **k: no_solution(0.0))
+    monkeypatch.setattr(planner, "to_carriers", lambda *a, **k: ())
+    plan = solve(problem)
+    peer = greedy_admission(problem, (), problem.demands)
+    assert [c.demand_id for c in peer] == ["d0"]
+    assert [c.demand_id for c in plan.carriers] == ["d0"]
+    assert verify_plan(problem, plan.carriers).passed

@@ -70,6 +70,19 @@ def test_unsabotaged_plan_passes_in_the_first_round() -> None:
     assert _named_as_dropped(plan) == set()
 
 
+def _without_greedy_peer(monkeypatch: pytest.MonkeyPatch) -> None:
+    """The greedy peer (solver/greedy.py) does not use the sabotaged stage and would serve
+    everyone; these tests are about the repair path alone."""
+    monkeypatch.setattr(
+        planner_module,
+        "_at_least_greedy",
+        lambda problem, data, fixed, check, dropped, _: (
+            check,
+            dropped,
+        ),
+    )
+
+
 def test_a_carrier_outside_the_block_is_left_out_with_its_reason(
     monkeypatch: pytest.MonkeyPatch,
 ) -> None:
@@ -84,6 +97,7 @@ def test_a_carrier_outside_the_block_is_left_out_with_its_reason(
         return _moved(carriers, victim, problem.block.stop_hz)  # upper half past the block
 
     monkeypatch.setattr(planner_module, "to_carriers", half_outside)
+    _without_greedy_peer(monkeypatch)
     plan = solve(PROBLEM)
 
     assert pushed, "the sabotaged stage ran"
@@ -120,6 +134,7 @@ def test_after_a_failed_repair_round_the_last_plan_less_the_culprit_is_kept(
         return _moved(carriers, victim, problem.block.stop_hz - half_width)  # gap 0 to the edge
 
     monkeypatch.setattr(planner_module, "to_carriers", edge_then_nothing)
+    _without_greedy_peer(monkeypatch)
     plan = solve(PROBLEM)
 
     assert calls[1:] == ["empty"], "one failing round, then an empty one"

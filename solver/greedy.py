@@ -1,0 +1,117 @@
+"""Greedy admission through the verifier itself: the floor every plan must reach.
+
+Demands in priority order (ties by id), each at the narrowest of its minimum-rate
+configurations (every MODCOD and roll-off that closes its link, not only the families the
+packing keeps), at the lowest raster centre of the first opening where verification passes
+with everything placed so far.  Nothing placed moves or widens.  The planner compares its own
+plan with this one and keeps the one that serves more (priority first), so no plan it returns
+serves less than greedy admission through the same physics and verifier.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+import time
+from collections.abc import Iterator, Sequence
+
+from solver.candidates import candidate_for
+from solver.model import Carrier, Demand, Problem
+from solver.packing.families import Candidate
+from solver.physics.modcod import catalogue
+from solver.verify import verify_plan
+
+__all__ = ["CONFIGURATIONS_TRIED", "greedy_admission", "min_rate_configurations"]
+
+CONFIGURATIONS_TRIED = 3
+"""Narrowest minimum-rate configurations a demand tries before it is left out."""
+
+REACH_SYMBOLS = 17.0
+"""Symbol rates beyond which no spectrum profile reaches (the profiles span ±16 Rs): carriers
+farther apart than this from a new one cannot change its verification, nor it theirs."""
+
+
+def min_rate_configurations(problem: Problem, demand: Demand) -> list[Candidate]:
+    """Every catalogue entry × roll-off at the symbol rate that just carries the minimum rate,
+    where the link still closes with the demand's margin; narrowest footprint (allocated
+    width plus guard) first."""
+    overhead = problem.coding.framing_overhead
+    found: list[Candidate] = []
+    for entry in catalogue(problem.coding, demand.modulations or None):
+        if not math.isfinite(entry.required_esn0_db):
+            continue
+        symbol_rate = demand.min_rate_bps / (entry.spectral_efficiency_bps_per_hz * (1 - overhead))
+        for rolloff in problem.transmitter.rolloffs:
+            cand = candidate_for(
+                problem, demand, entry.modulation, entry.code_rate, rolloff, symbol_rate
+            )
+            if cand is not None:
+                found.append(cand)
+    return sorted(
+        found,
+        key=lambda c: (
+            c.config.allocated_bandwidth_hz + c.config.guard_hz,
+            c.config.allocated_bandwidth_hz,
+        ),
+    )
+
+
+def _openings(problem: Problem, placed: Sequence[Carrier], cand: Candidate) -> Iterator[float]:
+    """Lowest raster centre in each opening, low end first: a neighbour kept at the larger of
+    the two guards, an edge or exclusion at the carrier's own edge guard."""
+    block = problem.block
+    walls = [(-math.inf, block.start_hz, math.nan), (block.stop_hz, math.inf, math.nan)]
+    walls += [(x.start_hz, x.stop_hz, math.nan) for x in block.exclusions]
+    walls += [(c.lower_edge_hz, c.upper_edge_hz, c.config.guard_hz) for c in placed]
+    walls.sort()
+    cfg = cand.config
+    half = cfg.allocated_bandwidth_hz / 2
+    edge, guard = cfg.edge_guard_hz, cfg.guard_hz
+    for (_, low_stop, low_guard), (high_start, _, high_guard) in itertools.pairwise(walls):
+        lo = low_stop + (edge if math.isnan(low_guard) else max(guard, low_guard))
+        hi = high_start - (edge if math.isnan(high_guard) else max(guard, high_guard))
+        steps = math.ceil((lo + half - block.start_hz) / block.raster_hz - 1e-9)
+        centre = block.start_hz + steps * block.raster_hz
+        if centre + half <= hi + 1e-6:
+            yield centre
+
+
+def _passes(problem: Problem, placed: Sequence[Carrier], new: Carrier) -> bool:
+    """Verification of ``new`` with the placed carriers near enough to interact with it (the
+    rest cannot change the outcome)."""
+    rs = new.config.symbol_rate_baud
+    near = [
+        c
+        for c in placed
+        if abs(c.center_hz - new.center_hz) <= REACH_SYMBOLS * (rs + c.config.symbol_rate_baud)
+    ]
+    return verify_plan(problem, [*near, new]).passed
+
+
+def greedy_admission(
+    problem: Problem,
+    fixed: Sequence[Carrier],
+    demands: Sequence[Demand],
+    deadline: float = math.inf,
+) -> tuple[Carrier, ...]:
+    """``demands`` placed greedily beside the ``fixed`` carriers (see the module), until
+    ``deadline`` (``time.perf_counter()``); the carriers placed, not including ``fixed``."""
+    placed = list(fixed)
+    mine: list[Carrier] = []
+    for demand in sorted(demands, key=lambda d: (-d.priority, d.id)):
+        if time.perf_counter() > deadline:
+            break
+        for cand in min_rate_configurations(problem, demand)[:CONFIGURATIONS_TRIED]:
+            carrier = next(
+                (
+                    Carrier(cand.config, centre, 0.0, 0.0)
+                    for centre in _openings(problem, placed, cand)
+                    if _passes(problem, placed, Carrier(cand.config, centre, 0.0, 0.0))
+                ),
+                None,
+            )
+            if carrier is not None:
+                placed.append(carrier)
+                mine.append(carrier)
+                break
+    return tuple(mine)
