@@ -57,6 +57,7 @@ from solver.packing.arrangement import (
 )
 from solver.packing.spacing import Wall
 from solver.repair import drop_until_passing, dropped_notice
+from solver.squeeze import squeeze
 from solver.summary import (
     CAUTIONS,
     explain_unserved,
@@ -336,7 +337,11 @@ def _hints(
 
 
 def _arrange(
-    problem: Problem, data: PackingInput, result: PackingResult, deadline: float
+    problem: Problem,
+    data: PackingInput,
+    result: PackingResult,
+    fixed: Sequence[Carrier],
+    deadline: float,
 ) -> Arrangement:
     """The model's choice made pair-exact, with the demands it left out fitted in where room
     allows; or the greedy admission peer when that serves more (admission first, then the
@@ -354,6 +359,7 @@ def _arrange(
     )
     chosen = greedy if better else model
     tighten(problem, chosen, check)
+    squeeze(problem, chosen, fixed, deadline)
     return chosen
 
 
@@ -422,7 +428,7 @@ def _solve_and_verify(
         round_no += 1
         attempt = replace(data, options=options, time_limit_s=max(budget, 0.2), hints=hints)
         result = solve_packing(attempt, progress=progress, cancel=cancel)
-        placed = to_carriers(problem, _arrange(problem, attempt, result, deadline))
+        placed = to_carriers(problem, _arrange(problem, attempt, result, pinned, deadline))
         if not placed and previous is not None:
             check, dropped = drop_until_passing(problem, previous[0])
             return check, previous[1], round_no, dropped

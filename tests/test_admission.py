@@ -271,3 +271,49 @@ def test_no_plan_serves_less_than_greedy_admission_through_the_verifier(
     assert [c.demand_id for c in peer] == ["d0"]
     assert [c.demand_id for c in plan.carriers] == ["d0"]
     assert verify_plan(problem, plan.carriers).passed
+
+
+def _rapp_three() -> Problem:
+    """3 MHz block, 10 kHz raster, Rapp p = 2 at 4 dB back-off (spectral regrowth makes the
+    leakage guards between carriers some 240 kHz); three demands that want far more than fits
+    (target 4× the minimum), so every carrier is below target."""
+    demands = tuple(
+        Demand(
+            id=f"r{i}",
+            min_rate_bps=rate,
+            target_rate_bps=4 * rate,
+            esn0_db=16.0,
+            margin_db=2.0,
+        )
+        for i, rate in enumerate((0.8e6, 1.2e6, 0.6e6))
+    )
+    return Problem(
+        block=Block(300e6, 303e6, 10e3, (), 40.0),
+        demands=demands,
+        leakage_limit_db=30.0,
+        transmitter=Transmitter(amplifier=Amplifier(AmplifierModel.RAPP, 2.0, 4.0)),
+        time_limit_s=10.0,
+        num_workers=2,
+    )
+
+
+@pytest.mark.slow
+def test_no_gap_beside_a_carrier_below_target_could_close_further() -> None:
+    # Before: gaps of 215-382 kHz sat idle between carriers below their targets.  A gap is
+    # idle when the carriers above it could slide down more than one raster step and the plan
+    # would still pass verification.
+    problem = _rapp_three()
+    plan = solve(problem)
+    carriers = sorted(plan.carriers, key=lambda c: c.center_hz)
+    assert len(carriers) == 3
+    assert verify_plan(problem, carriers).passed
+    raster = problem.block.raster_hz
+    for i in range(1, len(carriers)):
+        below = [c for c in carriers[i:] if c.config.throughput_bps < 4 * 0.6e6]
+        assert below, "the premise: carriers below target"
+        moved = [
+            replace(c, center_hz=c.center_hz - 2 * raster) if k >= i else c
+            for k, c in enumerate(carriers)
+        ]
+        assert moved[i].lower_edge_hz >= moved[i - 1].upper_edge_hz, "the premise: a gap"
+        assert not verify_plan(problem, moved).passed, f"gap {i} could close by two steps"

@@ -281,11 +281,15 @@ def tighten(problem: Problem, arrangement: Arrangement, check: PairGap) -> None:
                 break
 
 
-def to_carriers(problem: Problem, arrangement: Arrangement) -> tuple[Carrier, ...]:
+def to_carriers(
+    problem: Problem, arrangement: Arrangement, *, spread: bool | None = None
+) -> tuple[Carrier, ...]:
     """Carriers at their positions: packed low for ``min_bandwidth``, otherwise the slack of a
-    stretch spread over its gaps (it lowers leakage and interference and costs nothing)."""
+    stretch spread over its gaps (it lowers leakage and interference and costs nothing);
+    ``spread`` overrides the choice."""
     step = problem.block.raster_hz / FINE
-    spread = problem.objective is not Objective.MIN_BANDWIDTH
+    if spread is None:
+        spread = problem.objective is not Objective.MIN_BANDWIDTH
     carriers: list[Carrier] = []
     for st in arrangement.stretches:
         for slot, half, centre in zip(st.slots, st.halves, st.centres(spread=spread), strict=True):

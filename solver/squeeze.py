@@ -1,0 +1,122 @@
+"""Gaps closed as far as verification allows, and the room given to carriers below target.
+
+The pair rule spaces two neighbours so that each keeps its interference into the other within
+half the other's allowance (:class:`solver.verify.PairCheck`): safe whatever lies on the
+victim's other side, but wider than verification needs where that side is quiet.  Here, in
+each stretch from the low end, the gap between each pair of neighbours is brought down to the
+least that the whole plan still passes verification at (to the fine grid), with every carrier
+above it packed down behind; for ``max_throughput`` the widths are then refitted into the room
+that frees, and kept only if verification still passes.  Each step is checked by
+:func:`~solver.verify.verify_plan` on the whole plan, so it runs only while the request's time
+allows and for plans of at most :data:`SQUEEZE_LIMIT` carriers.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable, Sequence
+
+from solver.model import Carrier, Objective, Problem
+from solver.packing.arrangement import REFIT_SHARE_S, Arrangement, to_carriers
+from solver.packing.spacing import Stretch, pair_gap_raw, pair_gap_units, stretch_need
+from solver.verify import verify_plan
+
+__all__ = ["SQUEEZE_LIMIT", "squeeze"]
+
+SQUEEZE_LIMIT = 40
+"""Plans with more carriers than this keep the pair rule's gaps (each step verifies the whole
+plan)."""
+
+
+def squeeze(
+    problem: Problem, arrangement: Arrangement, fixed: Sequence[Carrier], deadline: float
+) -> None:
+    """Close the gaps of ``arrangement`` (beside the ``fixed`` carriers) as far as
+    verification allows, then (``max_throughput``) refit the widths into the room."""
+    if problem.objective is Objective.MAX_MARGIN:
+        return
+    count = sum(len(st.slots) for st in arrangement.stretches) + len(fixed)
+    if count > SQUEEZE_LIMIT:
+        return
+
+    def passes() -> bool:
+        if not all(st.fits(st.halves) for st in arrangement.stretches):
+            return False
+        placed = to_carriers(problem, arrangement, spread=False)
+        return verify_plan(problem, [*fixed, *placed]).passed
+
+    if not passes():
+        return
+    for st in arrangement.stretches:
+        for i in range(1, len(st.slots)):
+            if time.perf_counter() > deadline:
+                return
+            _close(st, i, passes, widest=False)
+    if problem.objective is not Objective.MAX_THROUGHPUT:
+        return
+    for _ in range(WIDEN_ROUNDS):
+        for st in arrangement.stretches:
+            if st.slots and time.perf_counter() < deadline:
+                _widen(problem, st, passes, deadline)
+
+
+WIDEN_ROUNDS = 2
+"""Refit-and-respace rounds of :func:`squeeze` for ``max_throughput``."""
+
+
+WIDEN_STEPS = (1.0, 0.5, 0.25, 0.125)
+"""Shares of the refit's widening tried in turn, largest first."""
+
+
+def _widen(problem: Problem, st: Stretch, passes: Callable[[], bool], deadline: float) -> None:
+    """Refit the widths into the room the closed gaps freed and keep the largest share of
+    that widening at which, with every gap as it is now, the stretch still fits and the plan
+    still passes (none, if no share does)."""
+    kept = list(st.halves), dict(st.scales)
+    gaps = stretch_need(st.slots, st.halves, st.left, st.right, st.scales)[1:-1]
+    st.refit(time_limit_s=REFIT_SHARE_S, seed=problem.seed)
+    wanted = list(st.halves)
+    if wanted == kept[0]:
+        return
+    for share in WIDEN_STEPS:
+        if time.perf_counter() > deadline:
+            break
+        st.halves = [
+            slot.clamp(round(old + share * (new - old)))
+            for slot, old, new in zip(st.slots, kept[0], wanted, strict=True)
+        ]
+        st.scales = dict(kept[1])
+        for i, units in enumerate(gaps, start=1):
+            a, b = st.slots[i - 1], st.slots[i]
+            raw = pair_gap_raw(a.family, st.halves[i - 1], b.family, st.halves[i])
+            if raw > 0:
+                st.scales[a.owner, b.owner] = min(1.0, units / raw)
+        if st.halves != kept[0] and st.fits(st.halves) and passes():
+            return
+    st.halves, st.scales = list(kept[0]), dict(kept[1])
+
+
+def _close(st: Stretch, i: int, passes_now: Callable[[], bool], *, widest: bool) -> None:
+    """The least gap (grid units) between carriers ``i - 1`` and ``i`` at which the plan
+    passes, by bisection up to the pair's present gap (or, with ``widest``, up to the
+    spectral-mask gap), kept as that pair's scale."""
+    a, b = st.slots[i - 1], st.slots[i]
+    ha, hb = st.halves[i - 1], st.halves[i]
+    raw = pair_gap_raw(a.family, ha, b.family, hb)
+    if raw <= 0:
+        return
+    pair = (a.owner, b.owner)
+    scale = 1.0 if widest else st.scales.get(pair, 1.0)
+    lo, hi = 0, pair_gap_units(a.family, ha, b.family, hb, scale)
+
+    def at(units: int) -> float:
+        return min(1.0, units / raw)
+
+    while lo < hi:
+        mid = (lo + hi) // 2
+        st.scales[pair] = at(mid)
+        if passes_now():
+            hi = mid
+        else:
+            lo = mid + 1
+    st.scales[pair] = at(hi)
