@@ -48,6 +48,7 @@ from solver.packing import (
 from solver.packing.arrangement import (
     Arrangement,
     admit_rest,
+    from_carriers,
     from_model,
     greedy_stretches,
     pair_measure,
@@ -594,7 +595,43 @@ def _at_least_greedy(
     if admitted(peer) <= admitted(check.carriers):
         return check, dropped
     log.info("the greedy peer serves more than the packing; its plan is kept")
-    return verify_plan(problem, [*pinned, *peer]), []
+    return _widened(problem, data, pinned, peer, deadline), []
+
+
+def _widened(
+    problem: Problem,
+    data: PackingInput,
+    pinned: Sequence[Carrier],
+    peer: Sequence[Carrier],
+    deadline: float,
+) -> Verification:
+    """The greedy peer's plan with its widths refitted and its gaps closed where verification
+    allows (:func:`~solver.squeeze.squeeze`), or as it is if that fails."""
+    as_placed = verify_plan(problem, [*pinned, *peer])
+    demands = {d.id: d for d in problem.demands}
+
+    def family_of(carrier: Carrier) -> Family | None:
+        """The carrier's settings from its own symbol rate up to the one that carries its
+        target (or the link's limit), as a family."""
+        cfg, demand = carrier.config, demands[carrier.demand_id]
+        net = cfg.throughput_bps / cfg.symbol_rate_baud
+        top = demand.target_rate_bps / net
+        if demand.cn0_dbhz is not None:
+            room = demand.cn0_dbhz - cfg.required_esn0_db - demand.margin_db
+            top = min(top, 10.0 ** (room / 10.0))
+        top = max(top, cfg.symbol_rate_baud)
+        args = (cfg.modulation, cfg.code_rate, cfg.rolloff)
+        return family_for(problem, demand, *args, top) or family_for(
+            problem, demand, *args, cfg.symbol_rate_baud
+        )
+
+    arrangement = from_carriers(problem, data, peer, family_of)
+    if arrangement is None or problem.objective is Objective.MAX_MARGIN:
+        return as_placed
+    squeeze(problem, arrangement, pinned, deadline)
+    wider = verify_plan(problem, [*pinned, *to_carriers(problem, arrangement)])
+    same = {c.demand_id for c in wider.carriers} == {c.demand_id for c in as_placed.carriers}
+    return wider if wider.passed and same else as_placed
 
 
 def _score(problem: Problem, outcome: _Outcome) -> tuple[int, float]:

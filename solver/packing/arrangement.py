@@ -19,7 +19,7 @@ from __future__ import annotations
 
 import math
 import time
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import Protocol
 
@@ -43,6 +43,7 @@ __all__ = [
     "PairGap",
     "admit_rest",
     "fine_slot",
+    "from_carriers",
     "from_model",
     "greedy_stretches",
     "pair_measure",
@@ -153,6 +154,63 @@ def _settle(data: PackingInput, stretch: Stretch) -> None:
             key=lambda i: (data.admission_weights[stretch.slots[i].owner], -i),
         )
         del stretch.slots[worst], stretch.halves[worst]
+
+
+def from_carriers(
+    problem: Problem,
+    data: PackingInput,
+    carriers: Sequence[Carrier],
+    family_of: Callable[[Carrier], Family | None],
+) -> Arrangement | None:
+    """Placed carriers (of ``data``'s demands, each in a free segment) as stretches that can
+    be refitted: each at the member of the nearest width of its family (one of its demand's
+    families with its settings, else ``family_of(carrier)``) on the fine grid, each gap kept as
+    it is (rounded down to the grid).  None when a carrier has no family or the result does
+    not fit where the carriers are."""
+    index = {o.demand.id: d for d, o in enumerate(data.options)}
+    step = problem.block.raster_hz / FINE
+    stretches = _empty(data.segments)
+    upper: dict[int, float] = {}  # upper edge of each stretch's last carrier so far, Hz
+    for c in sorted(carriers, key=lambda c: c.center_hz):
+        d = index.get(c.demand_id)
+        where = (c.center_hz - problem.block.start_hz) / step
+        s = next(
+            (i for i, st in enumerate(stretches) if st.start <= where < st.start + st.length),
+            None,
+        )
+        if d is None or s is None:
+            return None
+        k = _family_index(data, d, c)
+        family = data.options[d].candidates[k] if k is not None else family_of(c)
+        if family is None:
+            return None
+        slot = fine_slot(family, data.options[d].demand, data.priorities[d], d)
+        st = stretches[s]
+        half = slot.clamp(round(c.config.allocated_bandwidth_hz / 2 / step))
+        if st.slots:
+            prev = st.slots[-1]
+            gap = math.floor((c.lower_edge_hz - upper[s]) / step + 1e-9)
+            raw = pair_gap_raw(prev.family, st.halves[-1], slot.family, half)
+            if raw > 0:
+                st.scales[prev.owner, slot.owner] = min(1.0, max(gap, 0) / raw)
+        st.slots.append(slot)
+        st.halves.append(half)
+        upper[s] = c.upper_edge_hz
+    arrangement = Arrangement(stretches)
+    return arrangement if all(st.fits(st.halves) for st in stretches) else None
+
+
+def _family_index(data: PackingInput, d: int, carrier: Carrier) -> int | None:
+    cfg = carrier.config
+    return next(
+        (
+            k
+            for k, fam in enumerate(data.options[d].candidates)
+            if (fam.config.modulation, fam.config.code_rate, fam.config.rolloff)
+            == (cfg.modulation, cfg.code_rate, cfg.rolloff)
+        ),
+        None,
+    )
 
 
 def _by_priority(data: PackingInput, owners: set[int]) -> list[int]:
