@@ -525,21 +525,21 @@ def _family_front(
     ratio: NDArray[np.float64],
     low: NDArray[np.float64],
     high: NDArray[np.float64],
-    edge_per_bit: NDArray[np.float64],
+    *per_bit: NDArray[np.float64],
 ) -> list[int]:
     """Families not beaten by one that is cheaper per bit over their whole throughput range.
 
     Family j beats i when it reaches at least i's top throughput, costs no more at i's
     lowest throughput (above j's own minimum its cost per bit, 1/ratio, is then lower
-    everywhere) and needs no wider guard towards a block edge or exclusion per bit carried
-    (beside an edge, an exclusion or a pinned carrier the edge guard decides what fits).
+    everywhere) and needs no wider guard of each kind in ``per_bit`` per bit carried (beside an
+    edge, an exclusion or a pinned carrier the edge guard decides what fits).
     """
     kept: list[int] = []
     for i in np.argsort(-ratio, kind="stable"):
         covered = any(
             high[j] >= high[i] * (1 - 1e-9)
             and low[j] / ratio[j] <= low[i] / ratio[i] * (1 + 1e-9)
-            and edge_per_bit[j] <= edge_per_bit[i] * (1 + 1e-9)
+            and all(guard[j] <= guard[i] * (1 + 1e-9) for guard in per_bit)
             for j in kept
         )
         if not covered:
@@ -691,8 +691,8 @@ def family_for(
 def bound_candidates(problem: Problem, demand: Demand) -> tuple[Family, ...]:
     """Families for a bound that holds for every plan the verifier passes: every combination
     that closes the link and meets the minimum rate, kept unless another carries more per
-    unit of width over its whole range and needs no more towards a block edge per bit
-    (spacing between carriers is left out, so no family is lost to its guards)."""
+    unit of width over its whole range and needs no more per bit carried, either towards a
+    block edge or as its own leakage guard (the only spacing such a bound counts)."""
     return _bound_families(problem, demand, _basis(problem, demand, problem.block.width_hz, 0.0))
 
 
@@ -704,7 +704,9 @@ def _bound_families(problem: Problem, demand: Demand, basis: _Basis) -> tuple[Fa
     ratio = g.throughput_bps / span.hi_half / 2.0
     low = g.throughput_bps * span.lo_half / span.hi_half
     edge_per_bit = np.where(placeable, g.edge_hz, np.inf) / g.throughput_bps
-    front = _family_front(ratio, low, g.throughput_bps, edge_per_bit)
+    leak = g.leakage_guard_per_baud * g.symbol_rate_baud
+    leak_per_bit = np.where(np.isfinite(leak), leak, np.inf) / g.throughput_bps
+    front = _family_front(ratio, low, g.throughput_bps, edge_per_bit, leak_per_bit)
     return tuple(
         _family(problem, demand, combos, g, i, int(span.hi_half[i]), int(span.lo_half[i]))
         for i in front

@@ -45,6 +45,13 @@ __all__ = ["BOUND_TOLERANCE", "Judgement", "judge"]
 BOUND_TOLERANCE = 1e-4
 """A plan is optimal when its bound lies within this fraction of it (0.01 %)."""
 
+INTEGRAL_S = 1.0
+"""Time (s) the bound's mixed-integer version may branch (each carrier whole, in one stretch);
+its proven dual bound stands when it stops early."""
+
+INTEGRAL_ITEMS = 4000
+"""Above this many relaxation columns only the linear relaxation is solved."""
+
 MARGIN_TOLERANCE_DB = 0.01
 """For ``max_margin``: optimal when the bound lies within this many dB."""
 
@@ -77,10 +84,11 @@ def judge(
     items = _items(problem, segments, families)
     lengths = [FINE * s.length for s in segments]
     order = [weights[d.id] for d in problem.demands]
-    proven = throughput_bound(items, lengths, order, admitted + 1) == -math.inf
+    branch = INTEGRAL_S if len(items) <= INTEGRAL_ITEMS else 0.0
+    proven = throughput_bound(items, lengths, order, admitted + 1, integral_s=branch) == -math.inf
     if problem.objective is Objective.MAX_THROUGHPUT:
         value = _throughput(problem, carriers)
-        bound = max(throughput_bound(items, lengths, order, admitted), value)
+        bound = max(throughput_bound(items, lengths, order, admitted, integral_s=branch), value)
         closed = bound - value <= BOUND_TOLERANCE * max(bound, 1.0)
         gap = (bound - value) / max(value, 1.0)
     elif problem.objective is Objective.MIN_BANDWIDTH:

@@ -640,6 +640,8 @@ def throughput_bound(
     lengths: Sequence[int],
     weights: Sequence[int],
     admitted: int,
+    *,
+    integral_s: float = 0.0,
 ) -> float:
     """An upper bound on the value any plan of these items can carry while serving at least
     ``admitted`` admission weight (linear relaxation, HiGHS through scipy).
@@ -650,16 +652,35 @@ def throughput_bound(
     stretch's ends add at least twice the smallest such term over its items, at the
     half-width that makes it smallest, so a stretch holds Σ need·h ≤ length − 2·min end·h.
     Returns ``-inf`` when the rows cannot serve ``admitted``.
+
+    With ``integral_s`` > 0 each item is taken whole or not at all (every carrier has one
+    configuration in one stretch; the widths stay continuous) and HiGHS branches for at most
+    that long; its proven dual bound is returned when it stops early, the linear relaxation's
+    when it has none.
     """
     n = len(items)
     if n == 0:
         return 0.0 if admitted <= 0 else -math.inf
     rows = _bound_rows(items, lengths, weights, admitted)
+    cost = [0.0] * n + [-it.value_per_half for it in items]
+    bounds = optimize.Bounds([0.0] * (2 * n), [1.0] * n + [float(it.hi_half) for it in items])
+    if integral_s > 0:
+        result = optimize.milp(
+            cost,
+            constraints=rows.constraint(2 * n),
+            bounds=bounds,
+            integrality=[1] * n + [0] * n,
+            options={"presolve": True, "time_limit": integral_s},
+        )
+        if result.status == 2:
+            return -math.inf
+        if result.status == 0 and result.x is not None:
+            return float(-result.fun)
+        dual = getattr(result, "mip_dual_bound", None)
+        if dual is not None and math.isfinite(dual):
+            return float(-dual)
     result = optimize.milp(  # no integrality: the linear relaxation
-        [0.0] * n + [-it.value_per_half for it in items],
-        constraints=rows.constraint(2 * n),
-        bounds=optimize.Bounds([0.0] * (2 * n), [1.0] * n + [float(it.hi_half) for it in items]),
-        options={"presolve": True},
+        cost, constraints=rows.constraint(2 * n), bounds=bounds, options={"presolve": True}
     )
     if result.status == 2:
         return -math.inf
