@@ -69,20 +69,20 @@ class HighsResult:
 def packing_input(problem: Problem) -> PackingInput:
     """The same PackingInput the planner builds for a fresh plan (no pins, no verification).
 
-    Reads solver internals (``solver.planner._fix_pinned``, ``_segments``,
+    Reads solver internals (``solver.planner.fix_pinned``, ``free_segments``,
     ``protection_levels``, ``solver.packing``): imported here, so that when they move only the
     HiGHS columns are lost (``--no-highs`` skips them).
     """
     from solver.candidates import build_candidates
     from solver.packing import PackingInput, admission_weights
-    from solver.planner import _fix_pinned, _segments, protection_levels
+    from solver.planner import fix_pinned, free_segments, protection_levels
 
     options = {d.id: build_candidates(problem, d) for d in problem.demands}
-    pinned, _ = _fix_pinned(problem, options)
+    pinned, _ = fix_pinned(problem, options)
     free = [options[d.id] for d in problem.demands]
     return PackingInput(
         options=free,
-        segments=_segments(problem, pinned),
+        segments=free_segments(problem, pinned),
         objective=problem.objective,
         admission_weights=admission_weights([o.demand for o in free]),
         priorities=[o.demand.priority for o in free],

@@ -31,13 +31,14 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
 from solver.candidates import best_margin_db, least_width_hz
+from solver.geometry import free_segments_hz
 from solver.model import Carrier, Objective, Problem, SolveStatus
 from solver.packing import Segment, admission_weights
 from solver.packing.arrangement import FINE, fine_slot
 from solver.packing.families import Family
 from solver.packing.spacing import BoundItem, throughput_bound
 from solver.physics import emission
-from solver.summary import free_segments_hz, with_guards
+from solver.summary import with_guards
 from solver.verify import LEAKAGE_TOLERANCE_DB
 
 __all__ = ["BOUND_TOLERANCE", "Judgement", "judge"]
@@ -70,11 +71,14 @@ def judge(
     carriers: Sequence[Carrier],
     segments: Sequence[Segment],
     families: Mapping[str, Sequence[Family]],
+    integral_s: float = 0.0,
 ) -> Judgement:
     """Judge verified ``carriers`` (with their margins after interference) of ``problem``.
 
     ``segments`` are the free stretches of the block with no carrier fixed (edges and
-    exclusions only); ``families`` are each demand's :func:`bound_candidates`.
+    exclusions only); ``families`` are each demand's :func:`bound_candidates`; the bound's
+    mixed-integer version may branch for ``integral_s`` (at most :data:`INTEGRAL_S` is
+    useful; 0 keeps the linear relaxation).
     """
     weights = dict(
         zip((d.id for d in problem.demands), admission_weights(problem.demands), strict=True)
@@ -84,7 +88,7 @@ def judge(
     items = _items(problem, segments, families)
     lengths = [FINE * s.length for s in segments]
     order = [weights[d.id] for d in problem.demands]
-    branch = INTEGRAL_S if len(items) <= INTEGRAL_ITEMS else 0.0
+    branch = integral_s if len(items) <= INTEGRAL_ITEMS else 0.0
     proven = throughput_bound(items, lengths, order, admitted + 1, integral_s=branch) == -math.inf
     if problem.objective is Objective.MAX_THROUGHPUT:
         value = _throughput(problem, carriers)

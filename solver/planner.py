@@ -24,8 +24,14 @@ from solver.candidates import (
     candidate_sets,
     family_for,
 )
+from solver.geometry import (
+    FixedCarrier,
+    free_segments,
+    free_segments_hz,
+    raster_units,
+)
 from solver.greedy import greedy_admission
-from solver.judge import Judgement, judge
+from solver.judge import INTEGRAL_S, Judgement, judge
 from solver.model import (
     Carrier,
     Objective,
@@ -38,7 +44,6 @@ from solver.model import (
     UnservedReason,
 )
 from solver.packing import (
-    Boundary,
     PackingInput,
     PackingResult,
     Segment,
@@ -56,13 +61,11 @@ from solver.packing.arrangement import (
     tighten,
     to_carriers,
 )
-from solver.packing.spacing import Wall
 from solver.repair import drop_until_passing, dropped_notice
 from solver.squeeze import squeeze
 from solver.summary import (
     CAUTIONS,
     explain_unserved,
-    free_segments_hz,
     mark_retunes,
     summarise,
     with_guards,
@@ -88,53 +91,6 @@ MAX_REPAIR_ROUNDS = 6
 """Re-solves allowed after a failed verification before blamed carriers are left out."""
 
 
-# ---------------------------------------------------------------- raster and segments
-
-
-def _units(problem: Problem, freq_hz: float, *, up: bool) -> int:
-    """Offset from the block start in raster units, rounded outwards."""
-    value = (freq_hz - problem.block.start_hz) / problem.block.raster_hz
-    return math.ceil(value - 1e-9) if up else math.floor(value + 1e-9)
-
-
-@dataclass(frozen=True)
-class _Fixed:
-    """A carrier that does not move (pinned, or kept in place by a replan) and its family."""
-
-    carrier: Carrier
-    candidate: Candidate
-    family: Family
-
-
-def _segments(problem: Problem, fixed: Sequence[_Fixed]) -> list[Segment]:
-    """Free stretches between the block edges, exclusions and fixed carriers."""
-    total = _units(problem, problem.block.stop_hz, up=False)
-    walls: list[tuple[int, int, Boundary, int, Wall]] = [
-        (
-            _units(problem, x.start_hz, up=False),
-            _units(problem, x.stop_hz, up=True),
-            Boundary.EDGE,
-            0,
-            Wall(),
-        )
-        for x in problem.block.exclusions
-    ]
-    for f in fixed:
-        lo = _units(problem, f.carrier.lower_edge_hz, up=False)
-        hi = max(_units(problem, f.carrier.upper_edge_hz, up=True), lo + 1)
-        wall = Wall(f.family, f.family.hi_half)
-        walls.append((lo, hi, Boundary.CARRIER, f.candidate.guard_units, wall))
-    walls.sort(key=lambda w: (w[0], w[1]))
-    segments: list[Segment] = []
-    cursor, left, left_guard, left_wall = 0, Boundary.EDGE, 0, Wall()
-    for start, stop, kind, guard, wall in [*walls, (total, total, Boundary.EDGE, 0, Wall())]:
-        if start > cursor:
-            segments.append(Segment(cursor, start, left, kind, left_guard, guard, left_wall, wall))
-        if stop >= cursor:
-            cursor, left, left_guard, left_wall = stop, kind, guard, wall
-    return segments
-
-
 # ---------------------------------------------------------------- pinned carriers
 
 
@@ -148,12 +104,12 @@ class _PinnedChoice:
     """Pinned demands left out (id, why), to make room for higher priorities."""
 
 
-def _fix_pinned(
+def fix_pinned(
     problem: Problem, options: dict[str, DemandOptions], choice: _PinnedChoice = _PinnedChoice()
-) -> tuple[list[_Fixed], list[Unserved]]:
+) -> tuple[list[FixedCarrier], list[Unserved]]:
     """Give each pinned demand a candidate that fits at its centre, highest priority first:
     its best throughput, or its least spectrum when ``choice.narrow``."""
-    placed: list[_Fixed] = []
+    placed: list[FixedCarrier] = []
     left_out = dict(choice.left_out)
     unserved = [Unserved(d, UnservedReason.NO_SPECTRUM, why) for d, why in choice.left_out]
     for demand in sorted(
@@ -197,12 +153,12 @@ def _fix_pinned(
             )
         half = best.width_units // 2
         single = replace(fam, top=best, lo_half=half, hi_half=half)
-        placed.append(_Fixed(Carrier(best.config, center, 0.0, 0.0), best, single))
+        placed.append(FixedCarrier(Carrier(best.config, center, 0.0, 0.0), best, single))
     return placed, unserved
 
 
 def _fitting(
-    problem: Problem, center: float, fam: Family, placed: Sequence[_Fixed], narrow: bool
+    problem: Problem, center: float, fam: Family, placed: Sequence[FixedCarrier], narrow: bool
 ) -> Candidate | None:
     """The narrowest member of ``fam`` if ``narrow`` (if it fits), else the widest member (in
     steps of about 2 %) that fits at ``center``."""
@@ -220,7 +176,7 @@ def _fitting(
 
 
 def _pinned_fits(
-    problem: Problem, center: float, cand: Candidate, placed: Sequence[_Fixed]
+    problem: Problem, center: float, cand: Candidate, placed: Sequence[FixedCarrier]
 ) -> bool:
     half = cand.config.allocated_bandwidth_hz / 2
     lo, hi = center - half, center + half
@@ -323,7 +279,7 @@ def _hints(
             and c.config.code_rate == cur.code_rate
             and math.isclose(c.config.rolloff, cur.rolloff)
         ]
-        where = _units(problem, cur.center_hz, up=False)
+        where = raster_units(problem, cur.center_hz, up=False)
         inside = [s for s, seg in enumerate(segments) if seg.start <= where < seg.stop]
         if same and inside:
             k = min(same)[1]
@@ -343,6 +299,8 @@ def _arrange(
     result: PackingResult,
     fixed: Sequence[Carrier],
     deadline: float,
+    *,
+    polish: bool = True,
 ) -> Arrangement:
     """The model's choice made pair-exact, with the demands it left out fitted in where room
     allows; or the greedy admission peer when that serves more (admission first, then the
@@ -360,7 +318,8 @@ def _arrange(
     )
     chosen = greedy if better else model
     tighten(problem, chosen, check)
-    squeeze(problem, chosen, fixed, deadline)
+    if polish:
+        squeeze(problem, chosen, fixed, deadline)
     return chosen
 
 
@@ -429,7 +388,9 @@ def _solve_and_verify(
         round_no += 1
         attempt = replace(data, options=options, time_limit_s=max(budget, 0.2), hints=hints)
         result = solve_packing(attempt, progress=progress, cancel=cancel)
-        placed = to_carriers(problem, _arrange(problem, attempt, result, pinned, deadline))
+        polish = cancel is None or not cancel.is_set()  # a cancelled solve skips the squeeze
+        arranged = _arrange(problem, attempt, result, pinned, deadline, polish=polish)
+        placed = to_carriers(problem, arranged)
         if not placed and previous is not None:
             check, dropped = drop_until_passing(problem, previous[0])
             return check, previous[1], round_no, dropped
@@ -459,12 +420,12 @@ def _solve_and_verify(
 def _staying(
     problem: Problem,
     options: dict[str, DemandOptions],
-    fixed: Sequence[_Fixed],
-) -> list[_Fixed]:
+    fixed: Sequence[FixedCarrier],
+) -> list[FixedCarrier]:
     """Current carriers that can stay exactly as they are: all of them when, beside the fixed
     ones, they pass verification together (an unchanged request keeps its plan); otherwise
     highest priority first, each while it keeps the guard rule beside those kept."""
-    current: list[_Fixed] = []
+    current: list[FixedCarrier] = []
     strongest = max(d.relative_level_db for d in problem.demands)
     for demand in sorted(problem.demands, key=lambda d: (-d.priority, d.id)):
         cur = demand.current
@@ -480,11 +441,13 @@ def _staying(
             strongest,
         )
         if fam is not None:
-            current.append(_Fixed(Carrier(fam.top.config, cur.center_hz, 0.0, 0.0), fam.top, fam))
+            current.append(
+                FixedCarrier(Carrier(fam.top.config, cur.center_hz, 0.0, 0.0), fam.top, fam)
+            )
     together = [f.carrier for f in [*fixed, *current]]
     if current and verify_plan(problem, together).passed:
         return current
-    keep: list[_Fixed] = []
+    keep: list[FixedCarrier] = []
     for f in current:
         if _pinned_fits(problem, f.carrier.center_hz, f.candidate, [*fixed, *keep]):
             keep.append(f)
@@ -518,7 +481,7 @@ class _Outcome:
     result: PackingResult
     rounds: int
     dropped: tuple[Unserved, ...] = ()
-    fixed: tuple[_Fixed, ...] = ()
+    fixed: tuple[FixedCarrier, ...] = ()
     """The carriers that did not move (pinned, or kept in place by a replan)."""
     choice: _PinnedChoice = _PinnedChoice()
 
@@ -526,7 +489,7 @@ class _Outcome:
 def _run(
     problem: Problem,
     options: dict[str, DemandOptions],
-    fixed: Sequence[_Fixed],
+    fixed: Sequence[FixedCarrier],
     early_unserved: Sequence[Unserved],
     progress: Callable[[ProgressEvent], None] | None,
     cancel: threading.Event | None,
@@ -534,7 +497,7 @@ def _run(
 ) -> _Outcome:
     fixed_ids = {f.carrier.demand_id for f in fixed} | {u.demand_id for u in early_unserved}
     free = [options[d.id] for d in problem.demands if d.id not in fixed_ids]
-    segments = _segments(problem, fixed)
+    segments = free_segments(problem, fixed)
     data = PackingInput(
         options=free,
         segments=segments,
@@ -547,11 +510,14 @@ def _run(
         hints=_hints(problem, free, segments),
         levels=protection_levels(free),
     )
-    deadline = time.perf_counter() + problem.time_limit_s
-    check, result, rounds, dropped = _solve_and_verify(
-        problem, data, [f.carrier for f in fixed], progress, cancel
-    )
-    check, dropped = _at_least_greedy(problem, data, fixed, check, dropped, deadline)
+    started = time.perf_counter()
+    deadline = started + problem.time_limit_s
+    pinned = [f.carrier for f in fixed]
+    demands = [o.demand for o in free if o.candidates]
+    peer = greedy_admission(problem, pinned, demands, started + GREEDY_SHARE * problem.time_limit_s)
+    packing = replace(problem, time_limit_s=max(0.2, deadline - time.perf_counter()))
+    check, result, rounds, dropped = _solve_and_verify(packing, data, pinned, progress, cancel)
+    check, dropped = _at_least_greedy(problem, data, pinned, peer, check, dropped, deadline)
     served = {c.demand_id for c in check.carriers}
     dropped_ids = {u.demand_id for u in dropped}
     explained = explain_unserved(problem, free, served | dropped_ids, segments)
@@ -567,31 +533,28 @@ def _run(
     )
 
 
-GREEDY_SHARE = 0.25
-"""Share of a run's time the verifier-driven greedy peer may take after the packing (it stops
-there and loses the comparison if it has not placed everyone it could)."""
+GREEDY_SHARE = 0.2
+"""Share of a run's time the verifier-driven greedy peer may take, before the packing (it
+stops there and loses the comparison if it has not placed everyone it could)."""
 
 
 def _at_least_greedy(
     problem: Problem,
     data: PackingInput,
-    fixed: Sequence[_Fixed],
+    pinned: Sequence[Carrier],
+    peer: Sequence[Carrier],
     check: Verification,
     dropped: list[Unserved],
     deadline: float,
 ) -> tuple[Verification, list[Unserved]]:
-    """The packed plan, or greedy admission through the verifier (:mod:`solver.greedy`) when
-    that serves more (priority first): no plan serves less than the greedy peer."""
+    """The packed plan, or the greedy peer's (:mod:`solver.greedy`) when that serves more
+    (priority first): no plan serves less than greedy admission through the verifier."""
     index = {o.demand.id: d for d, o in enumerate(data.options)}
     weight = data.admission_weights
 
     def admitted(carriers: Sequence[Carrier]) -> int:
         return sum(weight[index[c.demand_id]] for c in carriers if c.demand_id in index)
 
-    left = max(0.0, deadline - time.perf_counter()) + GREEDY_SHARE * problem.time_limit_s
-    demands = [o.demand for o in data.options if o.candidates]
-    pinned = [f.carrier for f in fixed]
-    peer = greedy_admission(problem, pinned, demands, time.perf_counter() + left)
     if admitted(peer) <= admitted(check.carriers):
         return check, dropped
     log.info("the greedy peer serves more than the packing; its plan is kept")
@@ -685,7 +648,7 @@ class _Teller:
     ) -> None:
         self.clock, self.progress, self.problem = clock, progress, problem
         self.families: dict[str, tuple[Family, ...]] = {}
-        self.free = _segments(problem, [])
+        self.free = free_segments(problem, [])
         self.last: tuple[tuple[Carrier, ...], Judgement] | None = None
 
     def stage(self, what: str) -> None:
@@ -701,7 +664,10 @@ class _Teller:
     def verified(self, carriers: Sequence[Carrier]) -> Judgement:
         key = tuple(carriers)
         if self.last is None or self.last[0] != key:
-            self.last = key, judge(self.problem, carriers, self.free, self.families)
+            left = self.problem.time_limit_s - self.clock.elapsed()
+            branch = min(INTEGRAL_S, max(0.0, left / 2))
+            verdict = judge(self.problem, carriers, self.free, self.families, branch)
+            self.last = key, verdict
         verdict = self.last[1]
         if self.progress is not None:
             self.progress(
@@ -777,21 +743,21 @@ def _with_pinned(
     their least spectrum, and without pinned demands that keep out a higher priority."""
     choices = [_PinnedChoice()]
     if any(d.pinned_center_hz is not None for d in problem.demands):
-        wide = [f.carrier.config for f in _fix_pinned(problem, options)[0]]
+        wide = [f.carrier.config for f in fix_pinned(problem, options)[0]]
         narrow = _PinnedChoice(narrow=True)
-        if [f.carrier.config for f in _fix_pinned(problem, options, narrow)[0]] != wide:
+        if [f.carrier.config for f in fix_pinned(problem, options, narrow)[0]] != wide:
             choices.append(narrow)
     outcomes: list[_Outcome] = []
     for i, choice in enumerate(choices):
         budget = replace(problem, time_limit_s=clock.share(len(choices) - i + stages - 1))
-        fixed, early = _fix_pinned(problem, options, choice)
+        fixed, early = fix_pinned(problem, options, choice)
         outcomes.append(_run(budget, options, fixed, early, progress, cancel, choice))
     best = max(outcomes, key=lambda o: _score(problem, o))
     displacing = _displacing_pinned(problem, options, best)
     if displacing:
         choice = replace(best.choice, left_out=displacing)
         budget = replace(problem, time_limit_s=clock.share(stages))
-        fixed, early = _fix_pinned(problem, options, choice)
+        fixed, early = fix_pinned(problem, options, choice)
         trial = _run(budget, options, fixed, early, progress, cancel, choice)
         best = max((best, trial), key=lambda o: _score(problem, o))
     return best

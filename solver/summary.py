@@ -8,6 +8,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass, replace
 
 from solver.candidates import DemandOptions, family_for
+from solver.geometry import free_segments_hz
 from solver.model import (
     Carrier,
     CurrentSetting,
@@ -26,7 +27,6 @@ __all__ = [
     "SAME_RATE_TOLERANCE",
     "SettingChange",
     "explain_unserved",
-    "free_segments_hz",
     "mark_retunes",
     "setting_change",
     "summarise",
@@ -188,24 +188,6 @@ def _pair_guard(problem: Problem, c: Carrier, other: Carrier | None, side: str) 
     if gap > pair + edge:
         return edge
     return min(pair, max(gap, 0.0))
-
-
-def free_segments_hz(problem: Problem, carriers: Sequence[Carrier]) -> list[float]:
-    """Widths of the free stretches left between exclusions, carriers and their guards."""
-    block = problem.block
-    taken = [(x.start_hz, x.stop_hz) for x in block.exclusions]
-    taken += [
-        (c.lower_edge_hz - c.guard_below_hz, c.upper_edge_hz + c.guard_above_hz) for c in carriers
-    ]
-    taken.sort()
-    free, cursor = [], block.start_hz
-    for start, stop in taken:
-        if start > cursor:
-            free.append(start - cursor)
-        cursor = max(cursor, stop)
-    if block.stop_hz > cursor:
-        free.append(block.stop_hz - cursor)
-    return free
 
 
 def summarise(problem: Problem, carriers: Sequence[Carrier], retunes: int) -> PlanSummary:

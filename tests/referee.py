@@ -9,7 +9,7 @@ and the independent checks:
 * the spectrum profiles of :mod:`solver.physics.emission`, to find where a carrier may sit next
   to its neighbour (the same leakage ratio :func:`solver.verify_plan` measures);
 * :func:`solver.verify_plan`, which alone decides whether a plan is accepted;
-* :func:`solver.summary.with_guards` and :func:`solver.summary.free_segments_hz`, the
+* :func:`solver.summary.with_guards` and :func:`solver.geometry.free_segments_hz`, the
   definition of a plan's used bandwidth (``PlanSummary.used_bandwidth_hz``).
 
 How it searches
@@ -69,8 +69,9 @@ from solver import (
     verify_plan,
 )
 from solver.candidates import candidate_for
+from solver.geometry import free_segments_hz
 from solver.physics import emission, link, modcod
-from solver.summary import free_segments_hz, with_guards
+from solver.summary import with_guards
 from solver.verify import ViolationKind
 
 __all__ = [
