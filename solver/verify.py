@@ -283,10 +283,16 @@ def _received(
     reach = float(np.max(np.abs(grid), initial=0.0)) * rs
     powers: dict[str, float] = {}
     for other in _near(victim, emitters, reach):
-        if abs(other.carrier.center_hz - victim.carrier.center_hz) > reach + other.reach_hz:
+        centre = other.carrier.center_hz
+        if abs(centre - victim.carrier.center_hz) > reach + other.reach_hz:
             continue
-        density = other.density(freq)
-        powers[other.carrier.demand_id] = float(np.trapezoid(density * response, freq))
+        # Only where the other's profile is defined (0 beyond it), with one point either side
+        # so the trapezoid keeps every segment that touches it: the same sum, fewer points.
+        lo = max(int(np.searchsorted(freq, centre - other.reach_hz, "left")) - 1, 0)
+        hi = int(np.searchsorted(freq, centre + other.reach_hz, "right")) + 1
+        part = slice(lo, hi)
+        density = other.density(freq[part])
+        powers[other.carrier.demand_id] = float(np.trapezoid(density * response[part], freq[part]))
     return signal, powers
 
 
