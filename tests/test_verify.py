@@ -7,6 +7,7 @@ impulse response with numpy, without the solver's pulse or emission code.
 
 from __future__ import annotations
 
+from dataclasses import replace
 from fractions import Fraction
 from typing import Literal
 
@@ -227,3 +228,57 @@ def test_the_ratio_filled_in_faces_the_nearest_neighbour() -> None:
     assert by_id["wide"].leakage_ratio_above_db == pytest.approx(
         independent_leakage_ratio_db(toward_narrow_rs), abs=0.05
     )
+
+
+def test_interference_counts_every_emitter_in_reach_with_its_whole_spectrum() -> None:
+    """C/I of a narrow carrier between two wide ones (seven more farther off), recomputed
+    here over the victim's whole matched-filter grid from each emitter's spectrum profile (no
+    windowing, no neighbour search): the verifier, which integrates each interferer only where
+    its profile is defined and looks only at emitters within reach, must agree to 1e-9 dB."""
+    from solver.physics import emission
+
+    wide, narrow_demand = DEMANDS
+    problem = replace(
+        _problem(),
+        demands=(
+            replace(wide, id="wide-a"),
+            replace(narrow_demand, id="narrow"),
+            replace(wide, id="wide-b"),
+            replace(narrow_demand, id="far"),
+            *(replace(narrow_demand, id=f"extra-{k}") for k in range(6)),
+        ),
+    )
+
+    def carrier(demand_id: str, center_hz: float, rate_baud: float) -> Carrier:
+        return Carrier(_config(problem, demand_id, rate_baud), center_hz, 0.0, 0.0)
+
+    wide_a = carrier("wide-a", 104.0e6, WIDE_RATE_BAUD)
+    narrow = carrier("narrow", 107.2e6, NARROW_RATE_BAUD)
+    wide_b = carrier("wide-b", 110.5e6, WIDE_RATE_BAUD)
+    far = carrier("far", 119.0e6, NARROW_RATE_BAUD)
+    # More than a handful, so the verifier's search for emitters in reach is what runs.
+    extras = [carrier(f"extra-{k}", 113.0e6 + k * 1e6, NARROW_RATE_BAUD) for k in range(6)]
+    placed = [wide_a, narrow, wide_b, far, *extras]
+    checked = {c.center_hz: c for c in verify_plan(problem, placed).carriers}
+
+    def key(c: Carrier, linear: bool = False) -> emission.EmissionKey:
+        tx = problem.transmitter
+        return emission.EmissionKey.for_carrier(
+            tx, c.config.modulation, c.config.rolloff, linear=linear
+        )
+
+    matched = emission.get_profile(key(narrow, linear=True))
+    rs = narrow.config.symbol_rate_baud
+    freq = narrow.center_hz + matched.freq * rs
+    response = matched.psd / float(matched.psd_at(np.zeros(1))[0])
+
+    def received(c: Carrier) -> float:
+        density = emission.get_profile(key(c)).psd_at(
+            (freq - c.center_hz) / c.config.symbol_rate_baud
+        )
+        return float(np.trapezoid(density * response, freq))
+
+    signal = received(narrow)
+    interference = sum(received(c) for c in placed if c is not narrow)
+    expected = 10.0 * np.log10(signal / interference)
+    assert checked[107.2e6].c_over_i_db == pytest.approx(expected, abs=1e-9)
