@@ -54,6 +54,7 @@ __all__ = [
     "emission_key",
     "family_for",
     "least_width_hz",
+    "narrowest_at_min_rate",
 ]
 
 WIDTH_STEP = 1.01
@@ -732,3 +733,43 @@ def best_margin_db(problem: Problem, demand: Demand, max_width_hz: float) -> flo
     margin = _esn0_db(demand, rs_min) - combos.required_esn0_db - demand.margin_db
     fits = (rs_min * (1 + combos.rolloff) <= max_width_hz) & (margin >= -1e-9)
     return float(np.where(fits, margin, -np.inf).max(initial=-np.inf))
+
+
+def narrowest_at_min_rate(problem: Problem, demand: Demand, count: int) -> list[Candidate]:
+    """The ``count`` configurations (any catalogue entry × roll-off whose link closes with the
+    demand's margin) that carry the minimum rate in the least spectrum, allocated width plus
+    guard, narrowest first: every combination is sized at once, and only the shortlist is
+    made into candidates (:func:`candidate_for`, as a replan checks one)."""
+    combos = _combos(problem.coding, problem.transmitter, tuple(demand.modulations))
+    if combos.size == 0:
+        return []
+    rate = demand.min_rate_bps / combos.net_bits_per_symbol
+    closes = rate <= _max_symbol_rate_baud(demand, combos.required_esn0_db) * (1 + 1e-12)
+    idx = np.flatnonzero(closes)
+    if idx.size == 0:
+        return []
+    g = _guards(problem, demand, combos, idx, rate[idx], 0.0)
+    footprint = np.where(g.usable, rate[idx] * (1 + combos.rolloff[idx]) + g.guard_hz, np.inf)
+    shortlist = idx[np.argsort(footprint, kind="stable")[: 2 * count]]
+    found = [
+        c
+        for i in shortlist
+        if (
+            c := candidate_for(
+                problem,
+                demand,
+                combos.modulation[i],
+                combos.code_rate[i],
+                float(combos.rolloff[i]),
+                float(rate[i]),
+            )
+        )
+        is not None
+    ]
+    found.sort(
+        key=lambda c: (
+            c.config.allocated_bandwidth_hz + c.config.guard_hz,
+            c.config.allocated_bandwidth_hz,
+        )
+    )
+    return found[:count]

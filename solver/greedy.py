@@ -2,10 +2,13 @@
 
 Demands in priority order (ties by id), each at the narrowest of its minimum-rate
 configurations (every MODCOD and roll-off that closes its link, not only the families the
-packing keeps), at the lowest raster centre of the first opening where verification passes
-with everything placed so far.  Nothing placed moves or widens.  The planner compares its own
-plan with this one and keeps the one that serves more (priority first), so no plan it returns
-serves less than greedy admission through the same physics and verifier.
+packing keeps; :func:`~solver.candidates.narrowest_at_min_rate`), at the lowest raster
+centre of the first opening where verification passes with everything placed so far.
+Nothing placed moves or widens.  The planner compares its own plan with this one and keeps
+the one that serves more (priority first), so no plan it returns serves less than greedy
+admission through the same physics and verifier, when the greedy pass finishes within its
+share of the time (each placement is verified, which on two cores takes tens of seconds
+for a few hundred carriers).
 """
 
 from __future__ import annotations
@@ -15,13 +18,12 @@ import math
 import time
 from collections.abc import Iterator, Sequence
 
-from solver.candidates import candidate_for
+from solver.candidates import narrowest_at_min_rate
 from solver.model import Carrier, Demand, Problem
 from solver.packing.families import Candidate
-from solver.physics.modcod import catalogue
 from solver.verify import verify_plan
 
-__all__ = ["CONFIGURATIONS_TRIED", "greedy_admission", "min_rate_configurations"]
+__all__ = ["CONFIGURATIONS_TRIED", "greedy_admission"]
 
 CONFIGURATIONS_TRIED = 3
 """Narrowest minimum-rate configurations a demand tries before it is left out."""
@@ -29,31 +31,6 @@ CONFIGURATIONS_TRIED = 3
 REACH_SYMBOLS = 17.0
 """Symbol rates beyond which no spectrum profile reaches (the profiles span ±16 Rs): carriers
 farther apart than this from a new one cannot change its verification, nor it theirs."""
-
-
-def min_rate_configurations(problem: Problem, demand: Demand) -> list[Candidate]:
-    """Every catalogue entry × roll-off at the symbol rate that just carries the minimum rate,
-    where the link still closes with the demand's margin; narrowest footprint (allocated
-    width plus guard) first."""
-    overhead = problem.coding.framing_overhead
-    found: list[Candidate] = []
-    for entry in catalogue(problem.coding, demand.modulations or None):
-        if not math.isfinite(entry.required_esn0_db):
-            continue
-        symbol_rate = demand.min_rate_bps / (entry.spectral_efficiency_bps_per_hz * (1 - overhead))
-        for rolloff in problem.transmitter.rolloffs:
-            cand = candidate_for(
-                problem, demand, entry.modulation, entry.code_rate, rolloff, symbol_rate
-            )
-            if cand is not None:
-                found.append(cand)
-    return sorted(
-        found,
-        key=lambda c: (
-            c.config.allocated_bandwidth_hz + c.config.guard_hz,
-            c.config.allocated_bandwidth_hz,
-        ),
-    )
 
 
 def _openings(problem: Problem, placed: Sequence[Carrier], cand: Candidate) -> Iterator[float]:
@@ -101,7 +78,7 @@ def greedy_admission(
     for demand in sorted(demands, key=lambda d: (-d.priority, d.id)):
         if time.perf_counter() > deadline:
             break
-        for cand in min_rate_configurations(problem, demand)[:CONFIGURATIONS_TRIED]:
+        for cand in narrowest_at_min_rate(problem, demand, CONFIGURATIONS_TRIED):
             carrier = next(
                 (
                     Carrier(cand.config, centre, 0.0, 0.0)

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 
+import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
@@ -105,3 +106,58 @@ def test_candidate_for_rejects_a_setting_that_no_longer_closes() -> None:
     ok = candidate_for(problem, demand, Modulation.QPSK, modcod.CODE_RATES[3], 0.2, 1.5e6)
     assert ok is not None
     assert ok.config.throughput_bps >= demand.min_rate_bps
+
+
+@settings(max_examples=15, deadline=None)
+@given(
+    rate=st.floats(0.1e6, 5e6),
+    link=st.floats(8.0, 24.0),
+    power=st.booleans(),
+    margin=st.floats(0.0, 4.0),
+)
+def test_narrowest_at_min_rate_is_the_narrowest_of_every_configuration(
+    rate: float, link: float, power: bool, margin: float
+) -> None:
+    """Property: the greedy peer's shortlist (every combination sized at once) starts with the
+    configuration that a one-by-one search over the whole catalogue × roll-offs finds
+    narrowest (allocated width plus guard)."""
+    from solver.candidates import narrowest_at_min_rate
+
+    demand = Demand(
+        id="d",
+        min_rate_bps=rate,
+        target_rate_bps=2 * rate,
+        cn0_dbhz=link + 60.0 if power else None,
+        esn0_db=None if power else link,
+        margin_db=margin,
+    )
+    problem = Problem(
+        block=Block(1_000e6, 1_040e6, 10e3),
+        demands=(demand,),
+        transmitter=Transmitter(filter_span_symbols=12, rolloffs=(0.1, 0.2, 0.35)),
+    )
+    every = [
+        c
+        for entry in modcod.catalogue(problem.coding)
+        if math.isfinite(entry.required_esn0_db)
+        for alpha in problem.transmitter.rolloffs
+        if (
+            c := candidate_for(
+                problem,
+                demand,
+                entry.modulation,
+                entry.code_rate,
+                alpha,
+                rate
+                / (entry.spectral_efficiency_bps_per_hz * (1 - problem.coding.framing_overhead)),
+            )
+        )
+        is not None
+    ]
+    shortlist = narrowest_at_min_rate(problem, demand, 3)
+    if not every:
+        assert shortlist == []
+        return
+    least = min(c.config.allocated_bandwidth_hz + c.config.guard_hz for c in every)
+    first = shortlist[0].config
+    assert first.allocated_bandwidth_hz + first.guard_hz == pytest.approx(least, rel=1e-9)
