@@ -436,7 +436,7 @@ def _guards(
     """Es/N0, margin, sensitivity and guards (leakage limit or own mask, whichever is wider)."""
     esn0 = _esn0_db(demand, rs)
     margin = esn0 - combos.required_esn0_db[idx]
-    weakest = max(d.relative_level_db for d in problem.demands) - demand.relative_level_db
+    weakest = _weakest_gap_db(problem, demand)
     floor = max(problem.leakage_limit_db, min_limit_db)
     sensitivity = _immunity_limit_db(esn0, margin, demand, weakest)
     leak_per_baud = _guard_per_baud(combos, idx, np.full(idx.size, floor))
@@ -477,12 +477,7 @@ def _family(
         esn0_db=float(g.esn0_db[i]),
         required_esn0_db=float(combos.required_esn0_db[c]),
     )
-    top = Candidate(
-        config,
-        2 * hi_half,
-        math.ceil(config.guard_hz / raster - 1e-9),
-        math.ceil(config.edge_guard_hz / raster - 1e-9),
-    )
+    top = Candidate.on_raster(config, 2 * hi_half, raster)
     return Family(
         top,
         hi_half if lo_half is None else lo_half,
@@ -638,12 +633,7 @@ def family_for(
         return None
     key = emission_key(problem, modulation, rolloff)
     profile = emission.get_profile(key)
-    strongest = (
-        max(d.relative_level_db for d in problem.demands)
-        if strongest_level_db is None
-        else strongest_level_db
-    )
-    weakest = strongest - demand.relative_level_db
+    weakest = _weakest_gap_db(problem, demand, strongest_level_db)
     immunity = float(
         _immunity_limit_db(np.array([esn0]), np.array([esn0 - entry]), demand, weakest)[0]
     )
@@ -652,8 +642,6 @@ def family_for(
     edge = profile.guard_needed(problem.edge_limit_db) * symbol_rate_baud
     if not (math.isfinite(guard) and math.isfinite(edge)):
         return None
-    raster = problem.block.raster_hz
-    allocated = symbol_rate_baud * (1 + rolloff)
     config = CarrierConfig(
         demand_id=demand.id,
         modulation=modulation,
@@ -661,7 +649,7 @@ def family_for(
         rolloff=rolloff,
         symbol_rate_baud=symbol_rate_baud,
         bits_per_symbol=bits,
-        allocated_bandwidth_hz=allocated,
+        allocated_bandwidth_hz=symbol_rate_baud * (1 + rolloff),
         occupied_bandwidth_hz=symbol_rate_baud * profile.occupied_bandwidth(),
         guard_hz=guard,
         edge_guard_hz=edge,
@@ -669,19 +657,41 @@ def family_for(
         esn0_db=esn0,
         required_esn0_db=entry,
     )
-    width = int(_even_units(np.array([allocated]), raster)[0])
-    top = Candidate(
-        config, width, math.ceil(guard / raster - 1e-9), math.ceil(edge / raster - 1e-9)
+    return _single_family(problem, demand, config, key, immunity, leak_per_baud)
+
+
+def _weakest_gap_db(
+    problem: Problem, demand: Demand, strongest_level_db: float | None = None
+) -> float:
+    """How far (dB) ``demand`` sits below the strongest demand's relative level."""
+    strongest = (
+        max(d.relative_level_db for d in problem.demands)
+        if strongest_level_db is None
+        else strongest_level_db
     )
+    return strongest - demand.relative_level_db
+
+
+def _single_family(
+    problem: Problem,
+    demand: Demand,
+    config: CarrierConfig,
+    key: emission.EmissionKey,
+    sensitivity_db: float,
+    leakage_guard_per_baud: float,
+) -> Family:
+    """``config`` as a family of one width (the even raster slot that holds it)."""
+    raster = problem.block.raster_hz
+    width = int(_even_units(np.array([config.allocated_bandwidth_hz]), raster)[0])
     half = max(width // 2, 1)
     return Family(
-        top,
+        Candidate.on_raster(config, width, raster),
         half,
         half,
         demand.cn0_dbhz is not None,
         raster,
-        sensitivity_db=immunity,
-        leakage_guard_per_baud=leak_per_baud,
+        sensitivity_db=sensitivity_db,
+        leakage_guard_per_baud=leakage_guard_per_baud,
         key=key,
     )
 

@@ -28,6 +28,16 @@ class Candidate:
     def throughput_bps(self) -> float:
         return self.config.throughput_bps
 
+    @classmethod
+    def on_raster(cls, config: CarrierConfig, width_units: int, raster_hz: float) -> Candidate:
+        """``config`` taking ``width_units`` raster steps, its guards rounded up to the raster."""
+        return cls(
+            config,
+            width_units,
+            math.ceil(config.guard_hz / raster_hz - 1e-9),
+            math.ceil(config.edge_guard_hz / raster_hz - 1e-9),
+        )
+
 
 @functools.lru_cache(maxsize=8192)
 def mask_guard_per_baud(key: emission.EmissionKey, level_db: float) -> float:
@@ -136,23 +146,9 @@ class Family:
         if not self.lo_half <= half <= self.hi_half:
             raise ValueError(f"{half=} lies outside [{self.lo_half}, {self.hi_half}]")
         config = self.config_at(half / self.hi_half, level_db)
-        if self.key is None:
-            return (
-                replace(self.top, config=config)
-                if half == self.hi_half
-                else Candidate(
-                    config,
-                    2 * half,
-                    math.ceil(config.guard_hz / self.raster_hz - 1e-9),
-                    math.ceil(config.edge_guard_hz / self.raster_hz - 1e-9),
-                )
-            )
-        return Candidate(
-            config,
-            2 * half,
-            math.ceil(config.guard_hz / self.raster_hz - 1e-9),
-            math.ceil(config.edge_guard_hz / self.raster_hz - 1e-9),
-        )
+        if self.key is None and half == self.hi_half:
+            return replace(self.top, config=config)
+        return Candidate.on_raster(config, 2 * half, self.raster_hz)
 
 
 @dataclass(frozen=True)

@@ -146,12 +146,7 @@ def regrid(family: Family, fine: int) -> Family:
         return family
     raster = family.raster_hz / fine
     config = family.top.config
-    top = Candidate(
-        config,
-        2 * family.hi_half * fine,
-        math.ceil(config.guard_hz / raster - 1e-9),
-        math.ceil(config.edge_guard_hz / raster - 1e-9),
-    )
+    top = Candidate.on_raster(config, 2 * family.hi_half * fine, raster)
     lo, hi = family.lo_half * fine, family.hi_half * fine
     return replace(family, top=top, lo_half=lo, hi_half=hi, raster_hz=raster)
 
@@ -184,12 +179,7 @@ def fill_grid(
     if margin(lo) < margin_db - 1e-9:  # a link with no room to round the width up: as it was
         return regrid(family, fine)
     at_hi = family.config_at(hi * per_half)
-    fine_top = Candidate(
-        at_hi,
-        2 * hi,
-        math.ceil(at_hi.guard_hz / raster - 1e-9),
-        math.ceil(at_hi.edge_guard_hz / raster - 1e-9),
-    )
+    fine_top = Candidate.on_raster(at_hi, 2 * hi, raster)
     return replace(family, top=fine_top, lo_half=lo, hi_half=hi, raster_hz=raster)
 
 
