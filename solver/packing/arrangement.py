@@ -180,7 +180,7 @@ def from_carriers(
         )
         if d is None or s is None:
             return None
-        k = _family_index(data, d, c)
+        k = data.options[d].family_index(c.config)
         family = data.options[d].candidates[k] if k is not None else family_of(c)
         if family is None:
             return None
@@ -198,19 +198,6 @@ def from_carriers(
         upper[s] = c.upper_edge_hz
     arrangement = Arrangement(stretches)
     return arrangement if all(st.fits(st.halves) for st in stretches) else None
-
-
-def _family_index(data: PackingInput, d: int, carrier: Carrier) -> int | None:
-    cfg = carrier.config
-    return next(
-        (
-            k
-            for k, fam in enumerate(data.options[d].candidates)
-            if (fam.config.modulation, fam.config.code_rate, fam.config.rolloff)
-            == (cfg.modulation, cfg.code_rate, cfg.rolloff)
-        ),
-        None,
-    )
 
 
 def _by_priority(data: PackingInput, owners: set[int]) -> list[int]:

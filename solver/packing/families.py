@@ -158,3 +158,15 @@ class DemandOptions:
     demand: Demand
     candidates: tuple[Family, ...]
     best_link_detail: str
+
+    def family_index(self, config: CarrierConfig) -> int | None:
+        """The index of the family with ``config``'s modulation, code rate and roll-off."""
+        settings = (config.modulation, config.code_rate, config.rolloff)
+        return next(
+            (
+                k
+                for k, fam in enumerate(self.candidates)
+                if (fam.config.modulation, fam.config.code_rate, fam.config.rolloff) == settings
+            ),
+            None,
+        )
