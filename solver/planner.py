@@ -349,18 +349,11 @@ def _solution_hints(
     hints: dict[str, tuple[int, int, int]] = {}
     for s, picks in result.chosen.items():
         for d, k, h in picks:
-            chosen = attempt.options[d].candidates[k].config
-            new = options[d].candidates
-            same = [
-                j
-                for j, fam in enumerate(new)
-                if (fam.config.modulation, fam.config.code_rate, fam.config.rolloff)
-                == (chosen.modulation, chosen.code_rate, chosen.rolloff)
-            ]
-            if same:
-                fam = new[same[0]]
+            j = options[d].family_index(attempt.options[d].candidates[k].config)
+            if j is not None:
+                fam = options[d].candidates[j]
                 half = min(max(h, fam.lo_half), fam.hi_half)
-                hints[attempt.options[d].demand.id] = (same[0], half, s)
+                hints[attempt.options[d].demand.id] = (j, half, s)
     return hints
 
 
@@ -717,8 +710,8 @@ def solve(
     replanning = problem.retune_penalty > 0 and any(d.current is not None for d in problem.demands)
     stages = 2 if replanning else 1
     outcome = _with_pinned(problem, options, clock, stages, progress, cancel)
-    tell.verified(outcome.carriers)
     if replanning:
+        tell.verified(outcome.carriers)  # a verified plan to show while the replan runs
         staying = _staying(problem, options, outcome.fixed)
         if staying:
             budget = replace(problem, time_limit_s=clock.share(1))
@@ -727,7 +720,6 @@ def solve(
             early = [u for u in outcome.unserved if u.demand_id in pinned]
             kept = _run(budget, options, fixed, early, progress, cancel)
             outcome = _pick_replan(problem, outcome, kept)
-            tell.verified(outcome.carriers)
     return _finish(problem, outcome, tell.verified(outcome.carriers), clock.elapsed())
 
 
