@@ -34,8 +34,10 @@ farther apart than this from a new one cannot change its verification, nor it th
 
 
 def _openings(problem: Problem, placed: Sequence[Carrier], cand: Candidate) -> Iterator[float]:
-    """Lowest raster centre in each opening, low end first: a neighbour kept at the larger of
-    the two guards, an edge or exclusion at the carrier's own edge guard."""
+    """Raster centres to try in each opening, low end first: a neighbour kept at the larger
+    of the two guards, an edge or exclusion at the carrier's own edge guard.  In each opening
+    the lowest centre comes first, then centres 1, 2, 4, … raster steps above it and the
+    highest one (a sensitive neighbour may need more room than its guard)."""
     block = problem.block
     walls = [(-math.inf, block.start_hz, math.nan), (block.stop_hz, math.inf, math.nan)]
     walls += [(x.start_hz, x.stop_hz, math.nan) for x in block.exclusions]
@@ -47,10 +49,14 @@ def _openings(problem: Problem, placed: Sequence[Carrier], cand: Candidate) -> I
     for (_, low_stop, low_guard), (high_start, _, high_guard) in itertools.pairwise(walls):
         lo = low_stop + (edge if math.isnan(low_guard) else max(guard, low_guard))
         hi = high_start - (edge if math.isnan(high_guard) else max(guard, high_guard))
-        steps = math.ceil((lo + half - block.start_hz) / block.raster_hz - 1e-9)
-        centre = block.start_hz + steps * block.raster_hz
-        if centre + half <= hi + 1e-6:
-            yield centre
+        raster = block.raster_hz
+        first = math.ceil((lo + half - block.start_hz) / raster - 1e-9)
+        last = math.floor((hi - half - block.start_hz) / raster + 1e-9)
+        if last < first:
+            continue
+        shifts = [0, *(2**k for k in range(max(last - first, 1).bit_length()))]
+        for step in sorted({min(first + s, last) for s in shifts} | {last}):
+            yield block.start_hz + step * raster
 
 
 def _passes(problem: Problem, placed: Sequence[Carrier], new: Carrier) -> bool:

@@ -317,3 +317,31 @@ def test_no_gap_beside_a_carrier_below_target_could_close_further() -> None:
         ]
         assert moved[i].lower_edge_hz >= moved[i - 1].upper_edge_hz, "the premise: a gap"
         assert not verify_plan(problem, moved).passed, f"gap {i} could close by two steps"
+
+
+def test_greedy_looks_past_the_first_centre_of_an_opening() -> None:
+    # Found by the planner's random property (tests/test_planner.py): with a 256QAM 9/10
+    # carrier placed, the lowest centre above it fails verification for the 0 dB and 6 dB
+    # links (they need more than the guards to clear its interference), so greedy admission
+    # left them out and the hand method served more.  A little further up they pass.
+    demands = (
+        Demand(id="d0", min_rate_bps=200e3, target_rate_bps=200e3, priority=2, cn0_dbhz=62.0),
+        Demand(id="d1", min_rate_bps=2.99e6, target_rate_bps=6e6, priority=2, esn0_db=0.0),
+        Demand(id="d2", min_rate_bps=2.98e6, target_rate_bps=6e6, esn0_db=6.0),
+        Demand(id="d3", min_rate_bps=573e3, target_rate_bps=1.15e6, priority=3, cn0_dbhz=78.0),
+    )
+    problem = Problem(
+        block=Block(1_000e6, 1_012e6, 10e3),
+        demands=tuple(replace(d, margin_db=0.0) for d in demands),
+        transmitter=Transmitter(filter_span_symbols=12, rolloffs=(0.05, 0.1, 0.2, 0.35)),
+        time_limit_s=5.0,
+        num_workers=1,
+    )
+    from solver import rule_of_thumb_plan
+    from solver.greedy import greedy_admission
+
+    placed = greedy_admission(problem, (), problem.demands)
+    assert sorted(c.demand_id for c in placed) == ["d0", "d1", "d2", "d3"]
+    assert verify_plan(problem, placed).passed
+    plan, hand = solve(problem), rule_of_thumb_plan(problem)
+    assert len(plan.carriers) >= len(hand.carriers)
