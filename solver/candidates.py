@@ -53,6 +53,7 @@ __all__ = [
     "candidate_sets",
     "emission_key",
     "family_for",
+    "family_up_to_target",
     "least_width_hz",
     "narrowest_at_min_rate",
 ]
@@ -693,6 +694,18 @@ def _single_family(
         sensitivity_db=sensitivity_db,
         leakage_guard_per_baud=leakage_guard_per_baud,
         key=key,
+    )
+
+
+def family_up_to_target(problem: Problem, demand: Demand, config: CarrierConfig) -> Family | None:
+    """``config``'s settings as a family from its own symbol rate up to the one that carries
+    the demand's target, or the link's limit if lower (None when the link does not close)."""
+    net = config.throughput_bps / config.symbol_rate_baud
+    limit = float(_max_symbol_rate_baud(demand, np.array([config.required_esn0_db]))[0])
+    top = max(min(demand.target_rate_bps / net, limit), config.symbol_rate_baud)
+    settings = (config.modulation, config.code_rate, config.rolloff)
+    return family_for(problem, demand, *settings, top) or family_for(
+        problem, demand, *settings, config.symbol_rate_baud
     )
 
 

@@ -23,6 +23,7 @@ from solver.candidates import (
     build_candidates,
     candidate_sets,
     family_for,
+    family_up_to_target,
 )
 from solver.geometry import (
     FixedCarrier,
@@ -563,31 +564,19 @@ def _widened(
 ) -> Verification:
     """The greedy peer's plan with its widths refitted and its gaps closed where verification
     allows (:func:`~solver.squeeze.squeeze`), or as it is if that fails."""
-    as_placed = verify_plan(problem, [*pinned, *peer])
     demands = {d.id: d for d in problem.demands}
 
     def family_of(carrier: Carrier) -> Family | None:
-        """The carrier's settings from its own symbol rate up to the one that carries its
-        target (or the link's limit), as a family."""
-        cfg, demand = carrier.config, demands[carrier.demand_id]
-        net = cfg.throughput_bps / cfg.symbol_rate_baud
-        top = demand.target_rate_bps / net
-        if demand.cn0_dbhz is not None:
-            room = demand.cn0_dbhz - cfg.required_esn0_db - demand.margin_db
-            top = min(top, 10.0 ** (room / 10.0))
-        top = max(top, cfg.symbol_rate_baud)
-        args = (cfg.modulation, cfg.code_rate, cfg.rolloff)
-        return family_for(problem, demand, *args, top) or family_for(
-            problem, demand, *args, cfg.symbol_rate_baud
-        )
+        return family_up_to_target(problem, demands[carrier.demand_id], carrier.config)
 
     arrangement = from_carriers(problem, data, peer, family_of)
-    if arrangement is None or problem.objective is Objective.MAX_MARGIN:
-        return as_placed
-    squeeze(problem, arrangement, pinned, deadline)
-    wider = verify_plan(problem, [*pinned, *to_carriers(problem, arrangement)])
-    same = {c.demand_id for c in wider.carriers} == {c.demand_id for c in as_placed.carriers}
-    return wider if wider.passed and same else as_placed
+    if arrangement is not None and problem.objective is not Objective.MAX_MARGIN:
+        squeeze(problem, arrangement, pinned, deadline)
+        wider = verify_plan(problem, [*pinned, *to_carriers(problem, arrangement)])
+        served = {c.demand_id for c in [*pinned, *peer]}
+        if wider.passed and {c.demand_id for c in wider.carriers} == served:
+            return wider
+    return verify_plan(problem, [*pinned, *peer])
 
 
 def _score(problem: Problem, outcome: _Outcome) -> tuple[int, float]:
