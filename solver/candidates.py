@@ -19,8 +19,8 @@ from __future__ import annotations
 
 import functools
 import math
-from collections.abc import Sequence
-from dataclasses import dataclass
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
 from typing import NamedTuple
 
 import numpy as np
@@ -77,6 +77,8 @@ class _Combos:
     rolloff: NDArray[np.float64]
     occupied_per_baud: NDArray[np.float64]
     keys: tuple[emission.EmissionKey, ...]
+    memo: dict[tuple[str, int], float] = field(default_factory=dict, compare=False, repr=False)
+    """Guards already looked up, by (rule, combo × 10⁶ + level in half dB)."""
 
     @property
     def size(self) -> int:
@@ -146,30 +148,39 @@ def _guard_per_baud(
 ) -> NDArray[np.float64]:
     """Guard (Rs units) of each combo at each limit, looked up once per distinct pair."""
     half_db = np.ceil(limits_db * 2.0 - 1e-9).astype(np.int64)  # rounded up to 0.5 dB: safe side
-    codes = combo_index * 1_000_000 + half_db
-    unique, inverse = np.unique(codes, return_inverse=True)
-    values = np.array(
-        [
-            _profile(combos, int(u // 1_000_000)).guard_needed(float(u % 1_000_000) / 2.0)
-            for u in unique
-        ]
-    )
-    return np.asarray(values[inverse.reshape(-1)], dtype=np.float64)
+    return _per_pair(combos, combo_index, half_db, _leakage_guard)
 
 
 def _mask_per_baud(
     combos: _Combos, combo_index: NDArray[np.int64], levels_db: NDArray[np.float64]
 ) -> NDArray[np.float64]:
     """:func:`mask_guard_per_baud` for each (combo, level), once per distinct pair."""
-    codes = combo_index * 1_000_000 + np.ceil(levels_db * 2.0 - 1e-9).astype(np.int64)
+    half_db = np.ceil(levels_db * 2.0 - 1e-9).astype(np.int64)
+    return _per_pair(combos, combo_index, half_db, mask_guard_per_baud)
+
+
+def _per_pair(
+    combos: _Combos,
+    combo_index: NDArray[np.int64],
+    half_db: NDArray[np.int64],
+    rule: Callable[[emission.EmissionKey, float], float],
+) -> NDArray[np.float64]:
+    """``rule(key, half_db / 2)`` for each (combo, half-dB level), evaluated once per distinct
+    pair for the life of ``combos`` (they are cached per catalogue and transmitter)."""
+    codes = combo_index * 1_000_000 + half_db
     unique, inverse = np.unique(codes, return_inverse=True)
-    values = np.array(
-        [
-            mask_guard_per_baud(combos.keys[int(u // 1_000_000)], float(u % 1_000_000) / 2.0)
-            for u in unique
-        ]
-    )
+    memo, name = combos.memo, rule.__name__
+    values = np.empty(unique.size)
+    for n, u in enumerate(unique.tolist()):
+        value = memo.get((name, u))
+        if value is None:
+            value = memo[name, u] = rule(combos.keys[u // 1_000_000], (u % 1_000_000) / 2.0)
+        values[n] = value
     return np.asarray(values[inverse.reshape(-1)], dtype=np.float64)
+
+
+def _leakage_guard(key: emission.EmissionKey, limit_db: float) -> float:
+    return emission.get_profile(key).guard_needed(limit_db)
 
 
 def _profile(combos: _Combos, index: int) -> emission.SpectrumProfile:
@@ -531,17 +542,21 @@ def _family_front(
     everywhere) and needs no wider guard of each kind in ``per_bit`` per bit carried (beside an
     edge, an exclusion or a pinned carrier the edge guard decides what fits).
     """
-    kept: list[int] = []
-    for i in np.argsort(-ratio, kind="stable"):
-        covered = any(
-            high[j] >= high[i] * (1 - 1e-9)
-            and low[j] / ratio[j] <= low[i] / ratio[i] * (1 + 1e-9)
-            and all(guard[j] <= guard[i] * (1 + 1e-9) for guard in per_bit)
-            for j in kept
-        )
-        if not covered:
-            kept.append(int(i))
-    return kept
+    cost = low / ratio
+    guards = np.array(per_bit, dtype=np.float64).reshape(len(per_bit), ratio.size)
+    order = np.argsort(-ratio, kind="stable")
+    rank = np.empty_like(order)
+    rank[order] = np.arange(order.size)
+    # beats[j, i]: family j beats family i (the relation is transitive, so a family beaten
+    # by any family ahead of it in the order is beaten by one that is kept)
+    beats = (
+        (high[:, None] >= high[None, :] * (1 - 1e-9))
+        & (cost[:, None] <= cost[None, :] * (1 + 1e-9))
+        & np.all(guards[:, :, None] <= guards[:, None, :] * (1 + 1e-9), axis=0)
+        & (rank[:, None] < rank[None, :])
+    )
+    covered = beats.any(axis=0)
+    return [int(i) for i in order if not covered[i]]
 
 
 def _front(

@@ -4,12 +4,13 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from solver import Block, Demand, Modulation, Objective, Problem, Transmitter
-from solver.candidates import build_candidates, candidate_for
+from solver.candidates import _family_front, build_candidates, candidate_for
 from solver.physics import modcod
 from solver.physics.link import esn0_from_cn0_db
 
@@ -161,3 +162,47 @@ def test_narrowest_at_min_rate_is_the_narrowest_of_every_configuration(
     least = min(c.config.allocated_bandwidth_hz + c.config.guard_hz for c in every)
     first = shortlist[0].config
     assert first.allocated_bandwidth_hz + first.guard_hz == pytest.approx(least, rel=1e-9)
+
+
+def _front_one_by_one(
+    ratio: list[float], low: list[float], high: list[float], guards: list[list[float]]
+) -> list[int]:
+    """The family front as first written: each family, cheapest per bit first, kept unless
+    a family already kept beats it (the reference for the vectorised one)."""
+    order = sorted(range(len(ratio)), key=lambda i: -ratio[i])
+    kept: list[int] = []
+    for i in order:
+        covered = any(
+            high[j] >= high[i] * (1 - 1e-9)
+            and low[j] / ratio[j] <= low[i] / ratio[i] * (1 + 1e-9)
+            and all(g[j] <= g[i] * (1 + 1e-9) for g in guards)
+            for j in kept
+        )
+        if not covered:
+            kept.append(i)
+    return kept
+
+
+values = st.floats(0.5, 4.0).map(lambda v: round(v, 1))  # coarse: ties and equal guards occur
+
+
+@settings(max_examples=200, deadline=None)
+@given(
+    st.integers(1, 12).flatmap(
+        lambda n: st.tuples(
+            st.lists(values, min_size=n, max_size=n),
+            st.lists(values, min_size=n, max_size=n),
+            st.lists(values, min_size=n, max_size=n),
+            st.lists(st.lists(values, min_size=n, max_size=n), min_size=0, max_size=2),
+        )
+    )
+)
+def test_family_front_keeps_what_the_one_by_one_search_keeps(
+    arrays: tuple[list[float], list[float], list[float], list[list[float]]],
+) -> None:
+    ratio, low, spread, guards = arrays
+    high = [lo + s for lo, s in zip(low, spread, strict=True)]
+    got = _family_front(
+        np.array(ratio), np.array(low), np.array(high), *(np.array(g) for g in guards)
+    )
+    assert got == _front_one_by_one(ratio, low, high, guards)
