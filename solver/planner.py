@@ -307,21 +307,27 @@ def _arrange(
     allows; or the greedy admission peer when that serves more (admission first, then the
     priority-weighted throughput)."""
     model = from_model(data, result)
-    admit_rest(data, model, deadline)
+    admit_rest(data, model, _part(deadline, 4))
     check = PairCheck(problem)
-    greedy = greedy_stretches(data, pair_measure(check), deadline)
+    greedy = greedy_stretches(data, pair_measure(check), _part(deadline, 3))
     for arrangement in (model, greedy):
-        refit(arrangement, problem.objective, problem.seed)
+        refit(arrangement, problem.objective, problem.seed, _part(deadline, 2))
     better = greedy.admission(data) > model.admission(data) or (
         problem.objective is Objective.MAX_THROUGHPUT
         and greedy.admission(data) == model.admission(data)
         and greedy.value() > model.value()
     )
     chosen = greedy if better else model
-    tighten(problem, chosen, check)
+    tighten(problem, chosen, check, deadline)
     if polish:
         squeeze(problem, chosen, fixed, deadline)
     return chosen
+
+
+def _part(deadline: float, parts: int) -> float:
+    """The end of an equal share of the time left before ``deadline`` among ``parts`` steps."""
+    now = time.perf_counter()
+    return now + max(0.0, deadline - now) / parts
 
 
 def _raise_floors(check: Verification, floors: dict[str, float], fixed: set[str]) -> set[str]:
@@ -602,12 +608,23 @@ def _pick_replan(problem: Problem, moved: _Outcome, stayed: _Outcome) -> _Outcom
     return moved if s_moved - penalty * r_moved > s_stayed - penalty * r_stayed else stayed
 
 
+CLOSING_S_PER_DEMAND = 0.008
+"""Time kept back per demand, from the search, for what follows it: the last verification,
+the bound and the summary (measured on 1,000 narrow carriers in one stretch: verification
+5.6 ms and the bound 1.3 ms per carrier on two cores, with some to spare)."""
+
+
 @dataclass(frozen=True)
 class _Clock:
-    """The caller's time limit for the whole request."""
+    """The caller's time limit for the whole request, less the time kept back for closing."""
 
     started: float
     limit_s: float
+
+    @classmethod
+    def start(cls, problem: Problem) -> _Clock:
+        closing = min(0.6 * problem.time_limit_s, CLOSING_S_PER_DEMAND * len(problem.demands))
+        return cls(time.perf_counter(), problem.time_limit_s - closing)
 
     def elapsed(self) -> float:
         return time.perf_counter() - self.started
@@ -689,7 +706,7 @@ def solve(
         When the problem is not valid; its ``field`` names the offending input.
     """
     validate_problem(problem)
-    clock = _Clock(time.perf_counter(), problem.time_limit_s)
+    clock = _Clock.start(problem)
     tell = _Teller(clock, progress, problem)
     tell.stage("building spectra and candidates")
     sets = {d.id: candidate_sets(problem, d) for d in problem.demands}

@@ -12,9 +12,13 @@ import math
 
 from solver.model import Block, Coding, Demand, Problem, ProblemError, Transmitter
 
-__all__ = ["MAX_TIME_LIMIT_S", "validate_problem"]
+__all__ = ["MAX_TIME_LIMIT_S", "MIN_S_PER_DEMAND", "validate_problem"]
 
 MAX_TIME_LIMIT_S = 300.0
+
+MIN_S_PER_DEMAND = 0.015
+"""The least time limit a request may set per demand: below it the final verification and
+bound alone could outlast the limit (about 7 ms per carrier measured on two cores, doubled)."""
 """Longest solve a single request may ask for."""
 
 
@@ -180,6 +184,13 @@ def validate_problem(problem: Problem) -> None:
         0 < problem.time_limit_s <= MAX_TIME_LIMIT_S,
         "time_limit_s",
         f"{problem.time_limit_s} must lie in (0, {MAX_TIME_LIMIT_S:.0f}] s",
+    )
+    least = MIN_S_PER_DEMAND * len(problem.demands)
+    _require(
+        problem.time_limit_s >= least,
+        "time_limit_s",
+        f"{problem.time_limit_s} s is too short for {len(problem.demands)} demands: allow at least "
+        f"{math.ceil(least)} s ({MIN_S_PER_DEMAND * 1e3:.0f} ms per demand)",
     )
     _require(problem.num_workers >= 1, "num_workers", f"{problem.num_workers} must be at least 1")
     _require(

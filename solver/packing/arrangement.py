@@ -271,55 +271,71 @@ def _pair_scale(check: PairGap, a: Family, ha: int, b: Family, hb: int) -> float
     return min(1.0, max(math.ceil(leak - 1e-9), measured) / raw)
 
 
-def refit(arrangement: Arrangement, objective: Objective, seed: int) -> None:
+def refit(
+    arrangement: Arrangement, objective: Objective, seed: int, deadline: float = math.inf
+) -> None:
     """Half-widths refitted to pair-exact gaps (``max_throughput`` only: the other objectives
-    keep the model's widths, which pair spacing only makes easier to place)."""
+    keep the model's widths, which pair spacing only makes easier to place); stretches not
+    reached by ``deadline`` (``time.perf_counter()``) keep theirs."""
     if objective is Objective.MIN_BANDWIDTH:
         for st in arrangement.stretches:
             st.halves = [slot.lo_half for slot in st.slots]
     if objective is not Objective.MAX_THROUGHPUT:
         return
     for st in arrangement.stretches:
-        if st.slots:
-            st.refit(time_limit_s=REFIT_SHARE_S, seed=seed)
+        if st.slots and time.perf_counter() < deadline:
+            st.refit(time_limit_s=_refit_s(deadline), seed=seed)
+
+
+def _refit_s(deadline: float) -> float:
+    """A stretch's refit time: :data:`REFIT_SHARE_S`, or what is left before ``deadline``."""
+    return max(0.05, min(REFIT_SHARE_S, deadline - time.perf_counter()))
 
 
 TIGHTEN_ROUNDS = 2
 """Measure-and-refit rounds of :func:`tighten`."""
 
 
-def _measure(stretch: Stretch, check: PairGap) -> None:
+def _measure(stretch: Stretch, check: PairGap, deadline: float = math.inf) -> bool:
     """Each pair's gap as the verifier's rule needs it at the current half-widths, stored as a
-    share of the spectral-mask gap (never more than all of it)."""
+    share of the spectral-mask gap (never more than all of it).  Pairs not reached by
+    ``deadline`` keep the share they have; returns whether every pair was measured."""
     for i in range(1, len(stretch.slots)):
+        if time.perf_counter() > deadline:
+            return False
         a, b = stretch.slots[i - 1], stretch.slots[i]
         ha, hb = stretch.halves[i - 1], stretch.halves[i]
         if pair_gap_raw(a.family, ha, b.family, hb) > 0:
             scale = _pair_scale(check, a.family, ha, b.family, hb)
             stretch.scales[a.owner, b.owner] = scale
+    return True
 
 
-def tighten(problem: Problem, arrangement: Arrangement, check: PairGap) -> None:
+def tighten(
+    problem: Problem, arrangement: Arrangement, check: PairGap, deadline: float = math.inf
+) -> None:
     """Gaps as the verifier needs them, not as the spectral mask bounds them: each pair's
     interference into the other's matched filter is measured (half of each one's allowance,
     :class:`~solver.verify.PairCheck`) and, for ``max_throughput``, the room it frees goes
     to the carriers below their targets; a step that no longer fits at its own measured
-    gaps is undone."""
+    gaps is undone.  Stretches not reached by ``deadline`` keep the gaps they have."""
     for st in arrangement.stretches:
-        if len(st.slots) < 2:
+        if len(st.slots) < 2 or time.perf_counter() > deadline:
             continue
         kept = list(st.halves), dict(st.scales)
-        _measure(st, check)
+        _measure(st, check, deadline)
         if not st.fits(st.halves):
             st.halves, st.scales = list(kept[0]), dict(kept[1])
             continue
         if problem.objective is not Objective.MAX_THROUGHPUT:
             continue
         for _ in range(TIGHTEN_ROUNDS):
+            if time.perf_counter() > deadline:
+                break
             kept = list(st.halves), dict(st.scales)
-            st.refit(time_limit_s=REFIT_SHARE_S, seed=problem.seed)
-            _measure(st, check)
-            if not st.fits(st.halves):
+            st.refit(time_limit_s=_refit_s(deadline), seed=problem.seed)
+            # a share measured at other half-widths may not hold at these: all or none
+            if not _measure(st, check, deadline) or not st.fits(st.halves):
                 st.halves, st.scales = list(kept[0]), dict(kept[1])
                 break
             if st.halves == kept[0]:

@@ -95,6 +95,17 @@ INVALID_CASES: list[tuple[dict[str, Any], str]] = [
     (_set(SMALL_REQUEST, ("demands",), []), "demands"),
     (_set(SMALL_REQUEST, ("time_limit_s",), 301), "time_limit_s"),
     (_set(SMALL_REQUEST, ("time_limit_s",), 0), "time_limit_s"),
+    (  # 250 demands need at least 3.75 s (15 ms each); the request allows 3 s
+        _set(
+            SMALL_REQUEST,
+            ("demands",),
+            [
+                {"id": f"d{i}", "min_rate_bps": 1e4, "target_rate_bps": 2e4, "esn0_db": 12.0}
+                for i in range(250)
+            ],
+        ),
+        "time_limit_s",
+    ),
     (_set(SMALL_REQUEST, ("objective",), "max_fun"), "objective"),
     (_set(SMALL_REQUEST, ("transmitter", "rolloffs"), [0.2, 1.5]), "transmitter.rolloffs[1]"),
     (
