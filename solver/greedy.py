@@ -3,7 +3,7 @@
 Demands in priority order (ties by id), each at the narrowest of its minimum-rate
 configurations (every MODCOD and roll-off that closes its link, not only the families the
 packing keeps; :func:`~solver.candidates.narrowest_at_min_rate`), at the lowest raster
-centre of the first opening where verification passes with everything placed so far.
+centre found in the first opening where verification passes with everything placed so far.
 Nothing placed moves or widens.  The planner compares its own plan with this one and keeps
 the one that serves more (priority first), so no plan it returns serves less than greedy
 admission through the same physics and verifier, when the greedy pass finishes within its
@@ -16,11 +16,10 @@ from __future__ import annotations
 import itertools
 import math
 import time
-from collections.abc import Iterator, Sequence
+from collections.abc import Callable, Iterator, Sequence
 
 from solver.candidates import narrowest_at_min_rate
-from solver.model import Carrier, Demand, Problem
-from solver.packing.families import Candidate
+from solver.model import Carrier, CarrierConfig, Demand, Problem
 from solver.verify import verify_plan
 
 __all__ = ["CONFIGURATIONS_TRIED", "greedy_admission"]
@@ -33,30 +32,48 @@ REACH_SYMBOLS = 17.0
 farther apart than this from a new one cannot change its verification, nor it theirs."""
 
 
-def _openings(problem: Problem, placed: Sequence[Carrier], cand: Candidate) -> Iterator[float]:
-    """Raster centres to try in each opening, low end first: a neighbour kept at the larger
-    of the two guards, an edge or exclusion at the carrier's own edge guard.  In each opening
-    the lowest centre comes first, then centres 1, 2, 4, … raster steps above it and the
-    highest one (a sensitive neighbour may need more room than its guard)."""
+def _openings(
+    problem: Problem, placed: Sequence[Carrier], cfg: CarrierConfig, *, guards: bool = True
+) -> Iterator[tuple[int, int]]:
+    """Each opening's range of raster centres (in raster steps from the block start), low end
+    first: a neighbour kept at the larger of the two guards (edge to edge without
+    ``guards``), an edge or exclusion at the carrier's own edge guard."""
     block = problem.block
     walls = [(-math.inf, block.start_hz, math.nan), (block.stop_hz, math.inf, math.nan)]
     walls += [(x.start_hz, x.stop_hz, math.nan) for x in block.exclusions]
     walls += [(c.lower_edge_hz, c.upper_edge_hz, c.config.guard_hz) for c in placed]
     walls.sort()
-    cfg = cand.config
     half = cfg.allocated_bandwidth_hz / 2
     edge, guard = cfg.edge_guard_hz, cfg.guard_hz
     for (_, low_stop, low_guard), (high_start, _, high_guard) in itertools.pairwise(walls):
-        lo = low_stop + (edge if math.isnan(low_guard) else max(guard, low_guard))
-        hi = high_start - (edge if math.isnan(high_guard) else max(guard, high_guard))
+        lo = low_stop + (edge if math.isnan(low_guard) else max(guard, low_guard) * guards)
+        hi = high_start - (edge if math.isnan(high_guard) else max(guard, high_guard) * guards)
         raster = block.raster_hz
         first = math.ceil((lo + half - block.start_hz) / raster - 1e-9)
         last = math.floor((hi - half - block.start_hz) / raster + 1e-9)
-        if last < first:
-            continue
-        shifts = [0, *(2**k for k in range(max(last - first, 1).bit_length()))]
-        for step in sorted({min(first + s, last) for s in shifts} | {last}):
-            yield block.start_hz + step * raster
+        if last >= first:
+            yield first, last
+
+
+def _lowest_passing(first: int, last: int, passes: Callable[[int], bool]) -> int | None:
+    """The lowest raster step of ``first``..``last`` found to pass: the lowest, then 1, 2, 4,
+    … steps above it and the highest (a sensitive neighbour may need more room than its
+    guard); below the first that passes, the steps skipped are bisected."""
+    shifts = [0, *(2**k for k in range(max(last - first, 1).bit_length()))]
+    steps = sorted({min(first + s, last) for s in shifts} | {last})
+    failed = first - 1
+    for step in steps:
+        if passes(step):
+            good = step
+            while good - failed > 1:  # bisect the steps skipped between the last failure
+                mid = (failed + good) // 2
+                if passes(mid):
+                    good = mid
+                else:
+                    failed = mid
+            return good
+        failed = step
+    return None
 
 
 def _passes(problem: Problem, placed: Sequence[Carrier], new: Carrier) -> bool:
@@ -81,20 +98,82 @@ def greedy_admission(
     ``deadline`` (``time.perf_counter()``); the carriers placed, not including ``fixed``."""
     placed = list(fixed)
     mine: list[Carrier] = []
-    for demand in sorted(demands, key=lambda d: (-d.priority, d.id)):
-        if time.perf_counter() > deadline:
-            break
-        for cand in narrowest_at_min_rate(problem, demand, CONFIGURATIONS_TRIED):
+    waiting = _admit(
+        problem, placed, mine, sorted(demands, key=lambda d: (-d.priority, d.id)), deadline
+    )
+    if waiting and mine and time.perf_counter() < deadline:
+        _compact(problem, placed, mine, deadline)
+        _admit(problem, placed, mine, waiting, deadline)
+    return tuple(mine)
+
+
+def _admit(
+    problem: Problem,
+    placed: list[Carrier],
+    mine: list[Carrier],
+    demands: Sequence[Demand],
+    deadline: float,
+) -> list[Demand]:
+    """Place each of ``demands`` in turn (adding it to ``placed`` and ``mine``); returns those
+    left out or not reached by ``deadline``."""
+    waiting = []
+    for demand in demands:
+        carrier = None
+        if time.perf_counter() < deadline:
             carrier = next(
                 (
-                    Carrier(cand.config, centre, 0.0, 0.0)
-                    for centre in _openings(problem, placed, cand)
-                    if _passes(problem, placed, Carrier(cand.config, centre, 0.0, 0.0))
+                    c
+                    for cand in narrowest_at_min_rate(problem, demand, CONFIGURATIONS_TRIED)
+                    if (c := _placed(problem, placed, cand.config)) is not None
                 ),
                 None,
             )
-            if carrier is not None:
-                placed.append(carrier)
-                mine.append(carrier)
-                break
-    return tuple(mine)
+        if carrier is None:
+            waiting.append(demand)
+        else:
+            placed.append(carrier)
+            mine.append(carrier)
+    return waiting
+
+
+def _compact(problem: Problem, placed: list[Carrier], mine: list[Carrier], deadline: float) -> None:
+    """Slide each of ``mine``, lowest first, down to the lowest centre of its opening where
+    verification still passes (a carrier placed early may have kept room that later ones
+    left unused), so that what is left lies together at the top of each opening."""
+    for carrier in sorted(mine, key=lambda c: c.center_hz):
+        if time.perf_counter() > deadline:
+            return
+        moved = _slid_down(problem, [c for c in placed if c is not carrier], carrier)
+        placed[placed.index(carrier)] = moved
+        mine[mine.index(carrier)] = moved
+
+
+def _slid_down(problem: Problem, others: Sequence[Carrier], carrier: Carrier) -> Carrier:
+    """``carrier`` at the lowest raster centre below its own, down to its lower neighbour's
+    edge, where verification passes with ``others`` (the guards the configurations ask for
+    are often more than verification needs)."""
+    start, raster = problem.block.start_hz, problem.block.raster_hz
+    now = round((carrier.center_hz - start) / raster)
+
+    def at(step: int) -> Carrier:
+        return Carrier(carrier.config, start + step * raster, 0.0, 0.0)
+
+    for first, last in _openings(problem, others, carrier.config, guards=False):
+        if first <= now <= last:
+            step = _lowest_passing(first, now, lambda k: _passes(problem, others, at(k)))
+            return at(step) if step is not None and step < now else carrier
+    return carrier
+
+
+def _placed(problem: Problem, placed: Sequence[Carrier], cfg: CarrierConfig) -> Carrier | None:
+    """``cfg`` at the lowest passing centre of the first opening that has one, or None."""
+    start, raster = problem.block.start_hz, problem.block.raster_hz
+
+    def at(step: int) -> Carrier:
+        return Carrier(cfg, start + step * raster, 0.0, 0.0)
+
+    for first, last in _openings(problem, placed, cfg):
+        step = _lowest_passing(first, last, lambda k: _passes(problem, placed, at(k)))
+        if step is not None:
+            return at(step)
+    return None

@@ -6,7 +6,8 @@ victim's other side, but wider than verification needs where that side is quiet.
 each stretch from the low end, the gap between each pair of neighbours is brought down to the
 least that the whole plan still passes verification at (to the fine grid), with every carrier
 above it packed down behind; for ``max_throughput`` the widths are then refitted into the room
-that frees, and kept only if verification still passes.  Each step is checked by
+that frees, and kept only if verification still passes, and what room is still left goes to
+the carriers below target one at a time (:func:`_fill`).  Each step is checked by
 :func:`~solver.verify.verify_plan` on the whole plan, so it runs only while the request's time
 allows and for plans of at most :data:`SQUEEZE_LIMIT` carriers.
 """
@@ -58,6 +59,8 @@ def squeeze(
         for st in arrangement.stretches:
             if st.slots and time.perf_counter() < deadline:
                 _widen(problem, st, passes, deadline)
+    for st in arrangement.stretches:
+        _fill(st, passes, deadline)
 
 
 WIDEN_ROUNDS = 2
@@ -94,6 +97,44 @@ def _widen(problem: Problem, st: Stretch, passes: Callable[[], bool], deadline: 
         if st.halves != kept[0] and st.fits(st.halves) and passes():
             return
     st.halves, st.scales = list(kept[0]), dict(kept[1])
+
+
+FILL_TRIES = 3
+"""Verifications :func:`_fill` spends on each carrier: all the room it fits, then half, then a
+quarter."""
+
+
+def _fill(st: Stretch, passes: Callable[[], bool], deadline: float) -> None:
+    """The room still left at the top of ``st`` after the refit given to its carriers below
+    target, best value per unit first: each takes the most that fits with the gaps as they
+    are and verification passes (tried at all, half and a quarter of it)."""
+    growing = [i for i, slot in enumerate(st.slots) if st.halves[i] < slot.hi_half]
+    growing.sort(key=lambda i: -st.slots[i].value_per_half)
+    for i in growing:
+        most = _most_that_fits(st, i)
+        for share in (1.0, 0.5, 0.25)[:FILL_TRIES]:
+            step = int(most * share)
+            if step < 1 or time.perf_counter() > deadline:
+                break
+            st.halves[i] += step
+            if passes():
+                break
+            st.halves[i] -= step
+
+
+def _most_that_fits(st: Stretch, i: int) -> int:
+    """The largest rise of carrier ``i``'s half-width (to its top) at which ``st`` still fits."""
+    lo, hi = 0, st.slots[i].hi_half - st.halves[i]
+    base = st.halves[i]
+    while lo < hi:
+        mid = (lo + hi + 1) // 2
+        st.halves[i] = base + mid
+        if st.fits(st.halves):
+            lo = mid
+        else:
+            hi = mid - 1
+    st.halves[i] = base
+    return lo
 
 
 def _close(st: Stretch, i: int, passes_now: Callable[[], bool], *, widest: bool) -> None:

@@ -345,15 +345,20 @@ def tighten(
 def to_carriers(
     problem: Problem, arrangement: Arrangement, *, spread: bool | None = None
 ) -> tuple[Carrier, ...]:
-    """Carriers at their positions: packed low for ``min_bandwidth``, otherwise the slack of a
-    stretch spread over its gaps (it lowers leakage and interference and costs nothing);
-    ``spread`` overrides the choice."""
+    """Carriers at their positions: packed low for ``min_bandwidth``, and where a carrier
+    could still grow (the room left is what growing it would not pass verification in: kept
+    whole at the top, free for later); otherwise the slack of a stretch is spread over its
+    gaps (it lowers leakage and interference and costs nothing).  ``spread`` overrides the
+    choice."""
     step = problem.block.raster_hz / FINE
-    if spread is None:
-        spread = problem.objective is not Objective.MIN_BANDWIDTH
     carriers: list[Carrier] = []
     for st in arrangement.stretches:
-        for slot, half, centre in zip(st.slots, st.halves, st.centres(spread=spread), strict=True):
+        spreads = spread
+        if spread is None:
+            full = all(h >= slot.hi_half for slot, h in zip(st.slots, st.halves, strict=True))
+            spreads = problem.objective is not Objective.MIN_BANDWIDTH and full
+        centres = st.centres(spread=bool(spreads))
+        for slot, half, centre in zip(st.slots, st.halves, centres, strict=True):
             cand = slot.family.at(half)
             carriers.append(Carrier(cand.config, problem.block.start_hz + centre * step, 0.0, 0.0))
     return tuple(carriers)
