@@ -20,6 +20,8 @@ from solver import (
     Amplifier,
     AmplifierModel,
     Block,
+    Carrier,
+    CarrierConfig,
     CurrentSetting,
     Demand,
     Objective,
@@ -345,3 +347,32 @@ def test_greedy_looks_past_the_first_centre_of_an_opening() -> None:
     assert verify_plan(problem, placed).passed
     plan, hand = solve(problem), rule_of_thumb_plan(problem)
     assert len(plan.carriers) >= len(hand.carriers)
+
+
+def test_greedy_slides_its_carriers_down_when_demands_wait() -> None:
+    # Found on the amplifier-limited benchmark (Rapp p = 2, 6 dB back-off): a carrier placed
+    # early kept a gap of three raster steps more than verification needed beside two demands
+    # below target, because openings start at the configured guards.  When demands are left
+    # waiting, greedy admission slides each carrier as low as verification allows.
+    from solver.candidates import narrowest_at_min_rate
+    from solver.greedy import _compact
+
+    problem = _rapp_three()
+    low, high = (narrowest_at_min_rate(problem, d, 1)[0].config for d in problem.demands[:2])
+    start, raster = problem.block.start_hz, problem.block.raster_hz
+
+    def on_raster(cfg: CarrierConfig, lower_edge_hz: float) -> Carrier:
+        steps = math.ceil((lower_edge_hz + cfg.allocated_bandwidth_hz / 2 - start) / raster)
+        return Carrier(cfg, start + steps * raster, 0.0, 0.0)
+
+    first = on_raster(low, start + low.edge_guard_hz)
+    second = on_raster(high, first.upper_edge_hz + max(low.guard_hz, high.guard_hz) + 20 * raster)
+    placed = [first, second]
+    assert verify_plan(problem, placed).passed, "the premise: a plan that passes"
+    mine = list(placed)
+    _compact(problem, placed, mine, math.inf)
+    slid = sorted(mine, key=lambda c: c.center_hz)
+    assert slid[1].center_hz < second.center_hz - 10 * raster
+    assert verify_plan(problem, slid).passed
+    one_lower = [slid[0], replace(slid[1], center_hz=slid[1].center_hz - raster)]
+    assert not verify_plan(problem, one_lower).passed, "it could slide one step further"
