@@ -250,12 +250,20 @@ class _Emitter:
     profile: emission.SpectrumProfile
     level: float
     reach_hz: float
+    key: emission.EmissionKey
+    linear_key: emission.EmissionKey
 
     @classmethod
     def of(cls, problem: Problem, carrier: Carrier, level: float) -> _Emitter:
-        profile = emission.get_profile(_key(problem, carrier))
+        key = _key(problem, carrier)
+        profile = emission.get_profile(key)
         reach = float(np.max(np.abs(profile.freq))) * carrier.config.symbol_rate_baud
-        return cls(carrier, profile, level, reach)
+        return cls(carrier, profile, level, reach, key, _key(problem, carrier, linear=True))
+
+    @property
+    def shape(self) -> tuple[emission.EmissionKey, emission.EmissionKey, float, float]:
+        """What fixes this carrier's emission and matched filter, whatever its centre."""
+        return self.key, self.linear_key, self.carrier.config.symbol_rate_baud, self.level
 
     def density(self, freq_hz: NDArray[np.float64]) -> NDArray[np.float64]:
         """Power spectral density (linear, relative units) at ``freq_hz``."""
@@ -277,23 +285,50 @@ def _received(
     """Signal power and each other carrier's power through the victim's matched filter
     (``emitters`` sorted by centre frequency, or few)."""
     rs = victim.carrier.config.symbol_rate_baud
-    grid, response = _response(_key(problem, victim.carrier, linear=True))
+    grid, response = _response(victim.linear_key)
     freq = victim.carrier.center_hz + grid * rs
-    signal = float(np.trapezoid(victim.density(freq) * response, freq))
+    signal = _COUPLING.get((victim.shape, None, 0.0))
+    if signal is None:
+        signal = float(np.trapezoid(victim.density(freq) * response, freq))
+        _remember((victim.shape, None, 0.0), signal)
     reach = float(np.max(np.abs(grid), initial=0.0)) * rs
     powers: dict[str, float] = {}
     for other in _near(victim, emitters, reach):
         centre = other.carrier.center_hz
-        if abs(centre - victim.carrier.center_hz) > reach + other.reach_hz:
+        offset = centre - victim.carrier.center_hz
+        if abs(offset) > reach + other.reach_hz:
             continue
-        # Only where the other's profile is defined (0 beyond it), with one point either side
-        # so the trapezoid keeps every segment that touches it: the same sum, fewer points.
-        lo = max(int(np.searchsorted(freq, centre - other.reach_hz, "left")) - 1, 0)
-        hi = int(np.searchsorted(freq, centre + other.reach_hz, "right")) + 1
-        part = slice(lo, hi)
-        density = other.density(freq[part])
-        powers[other.carrier.demand_id] = float(np.trapezoid(density * response[part], freq[part]))
+        found = _COUPLING.get((victim.shape, other.shape, offset))
+        if found is None:
+            # Only where the other's profile is defined (0 beyond it), with one point either
+            # side so the trapezoid keeps every segment that touches it: the same sum, fewer
+            # points.
+            lo = max(int(np.searchsorted(freq, centre - other.reach_hz, "left")) - 1, 0)
+            hi = int(np.searchsorted(freq, centre + other.reach_hz, "right")) + 1
+            part = slice(lo, hi)
+            density = other.density(freq[part])
+            found = float(np.trapezoid(density * response[part], freq[part]))
+            _remember((victim.shape, other.shape, offset), found)
+        powers[other.carrier.demand_id] = found
     return signal, powers
+
+
+_Shape = tuple[emission.EmissionKey, emission.EmissionKey, float, float]
+_COUPLING: dict[tuple[_Shape, _Shape | None, float], float] = {}
+"""Power one carrier puts through another's matched filter, by the two carriers' shapes and
+the offset between their centres (and each carrier's own signal, with no other shape): the
+same two carriers at the same offset give the same figure wherever they sit, so a plan
+verified again after a small change (a carrier moved, added or dropped) computes only the
+pairs that changed."""
+
+COUPLING_ENTRIES = 400_000
+"""Pairs remembered (some 100 MB at most); the memory is emptied when full."""
+
+
+def _remember(key: tuple[_Shape, _Shape | None, float], value: float) -> None:
+    if len(_COUPLING) >= COUPLING_ENTRIES:
+        _COUPLING.clear()
+    _COUPLING[key] = value
 
 
 def _near(victim: _Emitter, emitters: Sequence[_Emitter], reach_hz: float) -> list[_Emitter]:

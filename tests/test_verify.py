@@ -282,3 +282,44 @@ def test_interference_counts_every_emitter_in_reach_with_its_whole_spectrum() ->
     interference = sum(received(c) for c in placed if c is not narrow)
     expected = 10.0 * np.log10(signal / interference)
     assert checked[107.2e6].c_over_i_db == pytest.approx(expected, abs=1e-9)
+
+
+# --- the remembered couplings change no figure ---------------------------------------------------
+
+
+@settings(max_examples=15, deadline=None)
+@given(st.floats(-1.5e6, 1.5e6), st.floats(-10.0, 10.0), st.floats(-3e6, 3e6))
+def test_a_plan_verified_from_memory_matches_one_verified_afresh(
+    offset_hz: float, level_db: float, shift_hz: float
+) -> None:
+    """Property: the power one carrier puts through another's filter is remembered by the two
+    carriers' shapes, levels and offset; a plan moved as a whole, or with a neighbour at another
+    level, verified with that memory warm, reports exactly what it reports with it empty."""
+    import solver.verify as verify
+
+    problem = _problem()
+    wide = _config(problem, "wide", WIDE_RATE_BAUD)
+    narrow = _config(problem, "narrow", NARROW_RATE_BAUD)
+    centre = (BLOCK_START_HZ + BLOCK_STOP_HZ) / 2
+    carriers = [
+        Carrier(wide, centre, 0.0, 0.0),
+        Carrier(narrow, centre + 3e6 + offset_hz, 0.0, 0.0),
+    ]
+    verify_plan(problem, carriers)  # warms the memory
+    louder = replace(
+        problem,
+        demands=(DEMANDS[0], replace(DEMANDS[1], relative_level_db=level_db)),
+    )
+    for prob, plan in (
+        (problem, [replace(c, center_hz=c.center_hz + shift_hz) for c in carriers]),
+        (louder, carriers),
+    ):
+        warm = verify_plan(prob, plan)
+        verify._COUPLING.clear()
+        cold = verify_plan(prob, plan)
+        assert warm.passed == cold.passed
+        for a, b in zip(warm.carriers, cold.carriers, strict=True):
+            assert a.c_over_i_db == pytest.approx(b.c_over_i_db, rel=1e-9, abs=1e-9)
+            assert a.margin_after_interference_db == pytest.approx(
+                b.margin_after_interference_db, rel=1e-9, abs=1e-9
+            )
