@@ -38,6 +38,8 @@ MAX_SYMBOL_RATE_BAUD = 1e10
 MAX_RATE_BPS = 1e12
 CODE_RATE_PATTERN = r"^(uncoded|[1-9][0-9]?/[1-9][0-9]?)$"
 DEMAND_ID_PATTERN = r"^[A-Za-z0-9_.:-]{1,64}$"
+PRINTABLE_PATTERN = r"^[^\x00-\x1f\x7f]*$"
+"""Free text without control characters (a NUL cannot be stored in PostgreSQL text)."""
 
 
 class WireModel(BaseModel):
@@ -97,7 +99,9 @@ class ExclusionIn(WireModel):
 
     start_hz: float = Field(ge=0, le=MAX_FREQUENCY_HZ, description="lower edge (Hz)")
     stop_hz: float = Field(gt=0, le=MAX_FREQUENCY_HZ, description="upper edge (Hz)")
-    note: str = Field("", max_length=200, description="why this part is excluded")
+    note: str = Field(
+        "", max_length=200, pattern=PRINTABLE_PATTERN, description="why this part is excluded"
+    )
 
     _stop = field_validator("stop_hz")(_stop_after_start)
 
@@ -213,7 +217,13 @@ class DemandIn(WireModel):
 class PlanRequest(WireModel):
     """A planning request: the block, the equipment, the coding assumptions and the demands."""
 
-    name: str = Field("plan", min_length=1, max_length=200, description="label of the plan")
+    name: str = Field(
+        "plan",
+        min_length=1,
+        max_length=200,
+        pattern=PRINTABLE_PATTERN,
+        description="label of the plan (no control characters)",
+    )
     block: BlockIn
     leakage_limit_db: float = Field(
         30.0, ge=0, le=150, description="least leakage ratio between neighbours (dB)"

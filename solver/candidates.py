@@ -226,7 +226,7 @@ def _width_grid(combos: _Combos, demand: Demand, raster_hz: float, max_width_hz:
     if idx.size == 0:
         empty = np.zeros(0, dtype=np.int64)
         return _Grid(empty, empty, np.zeros(0))
-    lo = _even_units(rs_min[idx] * (1 + alpha[idx]), raster_hz)
+    lo = np.maximum(_even_units(rs_min[idx] * (1 + alpha[idx]), raster_hz), 2)  # ≥ 1 step
     hi = np.maximum(_even_units(rs_hi[idx] * (1 + alpha[idx]), raster_hz), lo)
     steps = (np.ceil(np.log(hi / lo) / math.log(WIDTH_STEP)) + 1).astype(np.int64)
     combo_index = np.repeat(idx, steps)

@@ -12,6 +12,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
+from numpy.typing import NDArray
 
 from solver.model import Amplifier, CodeRate, Coding, Modulation, ProblemError, Window
 from solver.physics import emission, link, modcod
@@ -143,7 +144,7 @@ def evaluate_carrier(
     bits = constellation(modulation).bits_per_symbol
     margin = float(link.margin_db(esn0, required))
     gaps = np.asarray(gaps_hz, dtype=np.float64)
-    ratios = profile.leakage_ratio_db(gaps / symbol_rate_baud) if gaps.size else np.zeros(0)
+    ratios = _ratios_db(profile, gaps / symbol_rate_baud)
     leakage = tuple(LeakageAtGap(float(g), float(r)) for g, r in zip(gaps, ratios, strict=True))
     return CarrierEvaluation(
         occupied_bandwidth_hz=emission.occupied_bandwidth_hz(key, symbol_rate_baud),
@@ -159,3 +160,15 @@ def evaluate_carrier(
             link.throughput_bps(symbol_rate_baud, bits, code_rate, coding.framing_overhead)
         ),
     )
+
+
+def _ratios_db(
+    profile: emission.SpectrumProfile, gaps_rs: NDArray[np.float64]
+) -> NDArray[np.float64]:
+    """Leakage ratios at ``gaps_rs`` (Rs units); infinite beyond the profile's reach, where the
+    model puts no power (the wire reports that as null: no leakage modelled)."""
+    ratios = np.full(gaps_rs.shape, np.inf)
+    inside = gaps_rs <= profile.max_gap
+    if np.any(inside):
+        ratios[inside] = profile.leakage_ratio_db(gaps_rs[inside])
+    return ratios

@@ -104,10 +104,14 @@ async def create_plan(
     return out
 
 
+MAX_OFFSET = 2**53
+"""Plans a page may skip: every store's integer (64-bit) holds it, and so does a JSON number."""
+
+
 @router.get("", operation_id="list_plans", summary="List stored plans, newest first")
 def list_plans(
     runtime: Annotated[Runtime, Depends(get_runtime)],
-    offset: Annotated[int, Query(ge=0, description="plans to skip")] = 0,
+    offset: Annotated[int, Query(ge=0, le=MAX_OFFSET, description="plans to skip")] = 0,
     limit: Annotated[int, Query(ge=1, le=MAX_PAGE, description="page size")] = 20,
 ) -> PlanPage:
     """One page of the stored plans."""

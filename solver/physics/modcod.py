@@ -503,6 +503,8 @@ def _uncoded_threshold_db(modulation: Modulation, target_bit_error_rate: float) 
     low, high = UNCODED_SEARCH_DB
     if excess(high) > 0:
         return math.inf
+    while excess(low) < 0:  # a lax target (towards 1/2) is met far below the usual range
+        low -= 10.0 * (high - low)
     return float(optimize.brentq(excess, low, high, xtol=1e-6))
 
 

@@ -107,6 +107,8 @@ INVALID_CASES: list[tuple[dict[str, Any], str]] = [
         "time_limit_s",
     ),
     (_set(SMALL_REQUEST, ("objective",), "max_fun"), "objective"),
+    (_set(SMALL_REQUEST, ("name",), "north\x00yard"), "name"),  # PostgreSQL text cannot hold NUL
+    (_set(SMALL_REQUEST, ("name",), "line\nbreak"), "name"),
     (_set(SMALL_REQUEST, ("transmitter", "rolloffs"), [0.2, 1.5]), "transmitter.rolloffs[1]"),
     (
         _set(SMALL_REQUEST, ("transmitter", "filter_span_symbols"), 1),

@@ -1,0 +1,76 @@
+"""Schema-valid requests that once answered 500, found by fuzzing the OpenAPI document: each now
+gets a proper answer (a result, or a 422 problem naming the field)."""
+
+from __future__ import annotations
+
+import math
+
+import pytest
+from api_support import serving, small_request
+from fastapi import FastAPI
+from scipy import special
+
+from solver.model import Modulation
+from solver.physics import modcod
+
+pytestmark = pytest.mark.anyio
+
+EVALUATE = {
+    "symbol_rate_baud": 1e6,
+    "rolloff": 0.2,
+    "modulation": "QPSK",
+    "code_rate": "1/2",
+    "esn0_db": 10.0,
+}
+
+
+@pytest.mark.parametrize("target", [0.33, 0.4, 0.49])
+def test_a_lax_uncoded_bit_error_rate_has_a_threshold(target: float) -> None:
+    # Before: above about 0.327 the root-finder's bracket held no root and raised.
+    # BPSK on AWGN: BER = ½·erfc(√(Es/N0)) (Proakis & Salehi, Digital Communications, 5th ed.,
+    # eq. 4.3-13), evaluated here with scipy.special.erfc as the independent reference.
+    threshold_db = modcod._uncoded_threshold_db(Modulation.BPSK, target)
+    esn0 = 10.0 ** (threshold_db / 10.0)
+    assert 0.5 * special.erfc(math.sqrt(esn0)) == pytest.approx(target, rel=1e-4)
+
+
+async def test_evaluate_with_a_lax_bit_error_rate_answers(app: FastAPI) -> None:
+    body = EVALUATE | {"code_rate": "uncoded", "coding": {"target_bit_error_rate": 0.4}}
+    async with serving(app) as client:
+        response = await client.post("/v1/carriers/evaluate", json=body)
+        modcods = await client.get("/v1/modcods", params={"target_bit_error_rate": 0.4})
+    assert response.status_code == 200, response.text
+    assert response.json()["required_esn0_db"] < 0  # QPSK needs far less than 0 dB for 0.4
+    assert modcods.status_code == 200, modcods.text
+
+
+async def test_evaluate_beyond_the_profiles_reach_reports_no_leakage(app: FastAPI) -> None:
+    # Before: a gap wider than the spectrum profile (about 14 symbol periods) raised.
+    body = EVALUATE | {"gaps_hz": [0.1e6, 15e6, 20e6]}
+    async with serving(app) as client:
+        response = await client.post("/v1/carriers/evaluate", json=body)
+    assert response.status_code == 200, response.text
+    ratios = [item["ratio_db"] for item in response.json()["leakage_ratio_db"]]
+    assert ratios[0] is not None and ratios[0] > 0
+    assert ratios[1:] == [None, None]
+
+
+async def test_an_offset_past_any_store_is_a_422(app: FastAPI) -> None:
+    # Before: 2**63 overflowed SQLite's integer and answered 500.
+    async with serving(app) as client:
+        response = await client.get("/v1/plans", params={"offset": 2**63})
+        fine = await client.get("/v1/plans", params={"offset": 2**53})
+    assert response.status_code == 422, response.text
+    assert response.json()["errors"][0]["field"] == "offset"
+    assert fine.status_code == 200 and fine.json()["items"] == []
+
+
+async def test_max_margin_with_a_tiny_minimum_rate_is_planned(app: FastAPI) -> None:
+    # Before: a minimum rate of 1e-7 bit/s made the width grid start at zero raster steps.
+    request = small_request(objective="max_margin")
+    for demand in request["demands"]:
+        demand["min_rate_bps"] = demand["target_rate_bps"] = 1e-7
+    async with serving(app) as client:
+        response = await client.post("/v1/plans", json=request)
+    assert response.status_code == 201, response.text
+    assert len(response.json()["carriers"]) == 2
