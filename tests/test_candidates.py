@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+from fractions import Fraction
 
 import numpy as np
 import pytest
@@ -206,3 +207,20 @@ def test_family_front_keeps_what_the_one_by_one_search_keeps(
         np.array(ratio), np.array(low), np.array(high), *(np.array(g) for g in guards)
     )
     assert got == _front_one_by_one(ratio, low, high, guards)
+
+
+def test_a_target_far_above_the_family_makes_a_short_fine_grid() -> None:
+    # Found by the schema fuzzer: a target of 10^11 bit/s on a 2 Mbaud family stepped its
+    # fine grid down one half-step at a time from some 10^5 steps per raster step, for minutes.
+    from solver.candidates import family_for
+    from solver.packing.spacing import fill_grid
+
+    demand = Demand(id="d", min_rate_bps=1e6, target_rate_bps=1e11, cn0_dbhz=75.0, margin_db=1.0)
+    problem = _problem(demand)
+    family = family_for(problem, demand, Modulation.QPSK, Fraction(1, 2), 0.2, 2e6)
+    assert family is not None
+    fine = fill_grid(family, 4, demand.min_rate_bps, demand.target_rate_bps, demand.margin_db)
+    assert fine.lo_half <= fine.hi_half <= (family.hi_half + 1) * 4
+    # the widest kept still closes the link with the margin (C/N0 − 10·log10 Rs, DESIGN.md)
+    top = fine.top.config
+    assert top.esn0_db - top.required_esn0_db >= demand.margin_db - 1e-9

@@ -164,7 +164,9 @@ def fill_grid(
     per_half = 2.0 * raster / top.allocated_bandwidth_hz  # share of the top per half-step
     throughput = top.throughput_bps * per_half
     lo = max(1, math.ceil(min_rate_bps / throughput - 1e-9))
-    hi = max(lo, math.ceil(target_rate_bps / throughput - 1e-9))
+    # never wider than the family's own top (a target far above it would make a grid of
+    # astronomically many steps)
+    hi = max(lo, min(math.ceil(target_rate_bps / throughput - 1e-9), (family.hi_half + 1) * fine))
 
     def margin(half: int) -> float:
         esn0 = (
@@ -174,8 +176,12 @@ def fill_grid(
         )
         return esn0 - top.required_esn0_db
 
-    while hi > lo and margin(hi) < margin_db - 1e-9:
-        hi -= 1
+    if margin(hi) < margin_db - 1e-9:  # the margin falls with the width: bisect the widest
+        good = lo
+        while hi - good > 1:
+            mid = (good + hi) // 2
+            good, hi = (mid, hi) if margin(mid) >= margin_db - 1e-9 else (good, mid)
+        hi = good
     if margin(lo) < margin_db - 1e-9:  # a link with no room to round the width up: as it was
         return regrid(family, fine)
     at_hi = family.config_at(hi * per_half)
