@@ -19,6 +19,7 @@ from service.errors import BodyLimitMiddleware, install_error_handlers
 from service.jobs import JobManager, Runtime, SolveFunction, SolveGate
 from service.metrics import Metrics, MetricsMiddleware
 from service.routes import carriers, health, jobs, modcods, plans
+from service.routes.plans import COMMON_RESPONSES
 from service.settings import Settings, get_settings
 from service.store import Store, StoreUnavailableError
 
@@ -90,6 +91,7 @@ def create_app(settings: Settings | None = None, *, solve: SolveFunction | None 
         summary="Optimised, verified carrier plans for a licensed spectrum block",
         description=DESCRIPTION,
         lifespan=lifespan,
+        responses=COMMON_RESPONSES,
     )
     app.dependency_overrides[get_settings] = lambda: settings
     install_error_handlers(app)

@@ -63,6 +63,15 @@ def _stop_after_start(value: float, info: ValidationInfo) -> float:
     return value
 
 
+ONE_LINK_QUALITY: dict[str, Any] = {
+    "oneOf": [
+        {"required": [name], "properties": {name: {"type": "number"}}}
+        for name in ("cn0_dbhz", "esn0_db")
+    ]
+}
+"""The schema's form of :func:`_exactly_one_link`: a number in exactly one of the two."""
+
+
 def _exactly_one_link(value: float | None, info: ValidationInfo) -> float | None:
     has_cn0 = info.data.get("cn0_dbhz") is not None
     if has_cn0 == (value is not None):
@@ -184,6 +193,8 @@ class CurrentSettingIn(WireModel):
 
 class DemandIn(WireModel):
     """One user's need for capacity."""
+
+    model_config = ConfigDict(json_schema_extra=ONE_LINK_QUALITY)
 
     id: str = Field(pattern=DEMAND_ID_PATTERN, description="unique demand id")
     min_rate_bps: float = Field(ge=0, le=MAX_RATE_BPS, description="least useful rate (bit/s)")
@@ -451,6 +462,8 @@ class RetuneList(BaseModel):
 class EvaluateRequest(WireModel):
     """One carrier configuration to evaluate."""
 
+    model_config = ConfigDict(json_schema_extra=ONE_LINK_QUALITY)
+
     symbol_rate_baud: float = Field(gt=0, le=MAX_SYMBOL_RATE_BAUD, description="(baud)")
     rolloff: float = Field(gt=0, le=1, description="roll-off factor α")
     modulation: Modulation
@@ -486,8 +499,12 @@ class EvaluateResponse(BaseModel):
     leakage_ratio_db: list[LeakageAtGap]
     guard_needed_hz: float | None = Field(description="gap for the leakage limit (Hz)")
     esn0_db: float
-    required_esn0_db: float
-    margin_db: float = Field(description="Es/N0 − required Es/N0 (dB)")
+    required_esn0_db: float | None = Field(
+        description="(dB); null: this MODCOD cannot reach the target error rate at any Es/N0"
+    )
+    margin_db: float | None = Field(
+        description="Es/N0 − required Es/N0 (dB); null when required_esn0_db is null"
+    )
     link_closes: bool = Field(description="margin_db ≥ the requested margin")
     bits_per_symbol: int
     throughput_bps: float
@@ -500,7 +517,9 @@ class ModcodOut(BaseModel):
     code_rate: str
     bits_per_symbol: int
     spectral_efficiency_bps_per_hz: float
-    required_esn0_db: float
+    required_esn0_db: float | None = Field(
+        description="(dB); null: this MODCOD cannot reach the target error rate at any Es/N0"
+    )
 
 
 # ----------------------------------------------------------------------------- jobs, health

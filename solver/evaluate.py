@@ -144,7 +144,8 @@ def evaluate_carrier(
     bits = constellation(modulation).bits_per_symbol
     margin = float(link.margin_db(esn0, required))
     gaps = np.asarray(gaps_hz, dtype=np.float64)
-    ratios = _ratios_db(profile, gaps / symbol_rate_baud)
+    with np.errstate(over="ignore"):  # a gap of many symbols at a tiny rate: beyond reach
+        ratios = _ratios_db(profile, gaps / symbol_rate_baud)
     leakage = tuple(LeakageAtGap(float(g), float(r)) for g, r in zip(gaps, ratios, strict=True))
     return CarrierEvaluation(
         occupied_bandwidth_hz=emission.occupied_bandwidth_hz(key, symbol_rate_baud),

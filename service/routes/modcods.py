@@ -6,6 +6,7 @@ from typing import Annotated
 
 from fastapi import APIRouter, Query
 
+from service.jobs import finite_or_none
 from service.routes.plans import PROBLEM_RESPONSES
 from service.schemas import ModcodOut
 from solver import Coding, Modulation, catalogue, format_code_rate
@@ -54,7 +55,7 @@ def list_modcods(
             code_rate=format_code_rate(e.code_rate),
             bits_per_symbol=e.bits_per_symbol,
             spectral_efficiency_bps_per_hz=e.spectral_efficiency_bps_per_hz,
-            required_esn0_db=e.required_esn0_db,
+            required_esn0_db=finite_or_none(e.required_esn0_db),
         )
         for e in entries
     ]

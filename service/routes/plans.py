@@ -33,7 +33,7 @@ from service.schemas import (
 from service.store import StoredPlan
 from solver import CurrentSetting, parse_code_rate, setting_change
 
-__all__ = ["PROBLEM_RESPONSES", "router"]
+__all__ = ["COMMON_RESPONSES", "PROBLEM_RESPONSES", "router"]
 
 router = APIRouter(prefix="/v1/plans", tags=["plans"])
 
@@ -49,10 +49,16 @@ def _problem(description: str) -> dict[str, Any]:
     }
 
 
-PROBLEM_RESPONSES: dict[int | str, dict[str, Any]] = {
-    413: _problem("request body larger than the limit"),
+COMMON_RESPONSES: dict[int | str, dict[str, Any]] = {
+    400: _problem("a body that is not JSON, or not UTF-8"),
     422: _problem("invalid request; `errors` names each bad field"),
     500: _problem("unexpected failure (logged)"),
+}
+"""What any operation may answer (declared for every one of them by the application)."""
+
+PROBLEM_RESPONSES: dict[int | str, dict[str, Any]] = {
+    413: _problem("request body larger than the limit"),
+    **COMMON_RESPONSES,
 }
 NOT_FOUND: dict[int | str, dict[str, Any]] = {404: _problem("no plan with that id")}
 BUSY: dict[int | str, dict[str, Any]] = {
