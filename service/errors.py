@@ -86,6 +86,18 @@ class NotFoundError(ServiceError):
         self.resource_id = resource_id
 
 
+class ClientGoneError(ServiceError):
+    """The client left before its synchronous plan was ready: the solve was stopped and
+    nothing was stored."""
+
+    def __init__(self) -> None:
+        super().__init__("the client disconnected; the solve was stopped and nothing stored")
+
+
+CLIENT_GONE_STATUS = 499
+"""Status logged for a request whose client left (nginx's convention; nobody receives it)."""
+
+
 class BodyTooLargeError(ServiceError):
     """The request body is larger than the limit (bytes)."""
 
@@ -179,6 +191,9 @@ async def _on_service_error(request: Request, exc: Exception) -> JSONResponse:
         )
     if isinstance(exc, NotFoundError):
         return problem_response(404, slug="not-found", detail=str(exc), instance=path)
+    if isinstance(exc, ClientGoneError):
+        logger.info("%s %s: %s", request.method, path, exc)
+        return JSONResponse({"detail": str(exc)}, status_code=CLIENT_GONE_STATUS)
     if isinstance(exc, BodyTooLargeError):
         return problem_response(413, slug="body-too-large", detail=str(exc), instance=path)
     if isinstance(exc, SolverBusyError):

@@ -60,6 +60,7 @@ from solver import (
     Problem,
     ProblemError,
     ProgressEvent,
+    SolveCancelledError,
     SolveStats,
     Transmitter,
     Unserved,
@@ -544,8 +545,13 @@ class JobManager:
                 last_saved = now
                 runtime.store.update_job(job_id, progress=_progress_out(event))
 
-        plan = run_solve(runtime, prepared.problem, mode="job", progress=on_progress, cancel=cancel)
-        if self._stopping.is_set():  # stopped by shutdown: run it again after the restart
+        try:
+            plan = run_solve(
+                runtime, prepared.problem, mode="job", progress=on_progress, cancel=cancel
+            )
+        except SolveCancelledError:
+            plan = None
+        if plan is None or self._stopping.is_set():  # stopped by shutdown: run it again later
             runtime.store.update_job(job_id, state=JobState.QUEUED)
             return
         out = store_plan(runtime, prepared, plan)

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import itertools
 import math
+import threading
 import time
 from collections.abc import Callable, Iterator, Sequence
 
@@ -93,17 +94,23 @@ def greedy_admission(
     fixed: Sequence[Carrier],
     demands: Sequence[Demand],
     deadline: float = math.inf,
+    cancel: threading.Event | None = None,
 ) -> tuple[Carrier, ...]:
     """``demands`` placed greedily beside the ``fixed`` carriers (see the module), until
-    ``deadline`` (``time.perf_counter()``); the carriers placed, not including ``fixed``."""
+    ``deadline`` (``time.perf_counter()``) or ``cancel``; the carriers placed, not including
+    ``fixed``."""
+
+    def over() -> bool:
+        return time.perf_counter() > deadline or (cancel is not None and cancel.is_set())
+
     placed = list(fixed)
     mine: list[Carrier] = []
     waiting = _admit(
-        problem, placed, mine, sorted(demands, key=lambda d: (-d.priority, d.id)), deadline
+        problem, placed, mine, sorted(demands, key=lambda d: (-d.priority, d.id)), over
     )
-    if waiting and mine and time.perf_counter() < deadline:
-        _compact(problem, placed, mine, deadline)
-        _admit(problem, placed, mine, waiting, deadline)
+    if waiting and mine and not over():
+        _compact(problem, placed, mine, over)
+        _admit(problem, placed, mine, waiting, over)
     return tuple(mine)
 
 
@@ -112,14 +119,14 @@ def _admit(
     placed: list[Carrier],
     mine: list[Carrier],
     demands: Sequence[Demand],
-    deadline: float,
+    over: Callable[[], bool],
 ) -> list[Demand]:
     """Place each of ``demands`` in turn (adding it to ``placed`` and ``mine``); returns those
-    left out or not reached by ``deadline``."""
+    left out or not reached before ``over()``."""
     waiting = []
     for demand in demands:
         carrier = None
-        if time.perf_counter() < deadline:
+        if not over():
             carrier = next(
                 (
                     c
@@ -136,12 +143,14 @@ def _admit(
     return waiting
 
 
-def _compact(problem: Problem, placed: list[Carrier], mine: list[Carrier], deadline: float) -> None:
+def _compact(
+    problem: Problem, placed: list[Carrier], mine: list[Carrier], over: Callable[[], bool]
+) -> None:
     """Slide each of ``mine``, lowest first, down to the lowest centre of its opening where
     verification still passes (a carrier placed early may have kept room that later ones
     left unused), so that what is left lies together at the top of each opening."""
     for carrier in sorted(mine, key=lambda c: c.center_hz):
-        if time.perf_counter() > deadline:
+        if over():
             return
         moved = _slid_down(problem, [c for c in placed if c is not carrier], carrier)
         placed[placed.index(carrier)] = moved

@@ -50,6 +50,11 @@ class ProblemError(ValueError):
         self.message = message
 
 
+class SolveCancelledError(Exception):
+    """A solve was cancelled before it had any plan to return (while its spectra and
+    candidates were being built)."""
+
+
 class Modulation(StrEnum):
     """Modulation formats of the catalogue (Gray labelled, unit mean symbol energy)."""
 

@@ -39,6 +39,7 @@ from solver.model import (
     Plan,
     Problem,
     ProgressEvent,
+    SolveCancelledError,
     SolveStats,
     SolveStatus,
     Unserved,
@@ -514,10 +515,12 @@ def _run(
     deadline = started + problem.time_limit_s
     pinned = [f.carrier for f in fixed]
     demands = [o.demand for o in free if o.candidates]
-    peer = greedy_admission(problem, pinned, demands, started + GREEDY_SHARE * problem.time_limit_s)
+    peer = greedy_admission(
+        problem, pinned, demands, started + GREEDY_SHARE * problem.time_limit_s, cancel
+    )
     packing = replace(problem, time_limit_s=max(0.2, deadline - time.perf_counter()))
     check, result, rounds, dropped = _solve_and_verify(packing, data, pinned, progress, cancel)
-    check, dropped = _at_least_greedy(problem, data, pinned, peer, check, dropped, deadline)
+    check, dropped = _at_least_greedy(problem, data, pinned, peer, check, dropped, deadline, cancel)
     served = {c.demand_id for c in check.carriers}
     dropped_ids = {u.demand_id for u in dropped}
     explained = explain_unserved(problem, free, served | dropped_ids, segments)
@@ -546,6 +549,7 @@ def _at_least_greedy(
     check: Verification,
     dropped: list[Unserved],
     deadline: float,
+    cancel: threading.Event | None = None,
 ) -> tuple[Verification, list[Unserved]]:
     """The packed plan, or the greedy peer's (:mod:`solver.greedy`) when that serves more
     (priority first): no plan serves less than greedy admission through the verifier."""
@@ -557,6 +561,8 @@ def _at_least_greedy(
 
     if admitted(peer) <= admitted(check.carriers):
         return check, dropped
+    if cancel is not None and cancel.is_set():  # as placed: no squeeze
+        return verify_plan(problem, [*pinned, *peer]), []
     log.info("the greedy peer serves more than the packing; its plan is kept")
     return _widened(problem, data, pinned, peer, deadline), []
 
@@ -692,7 +698,8 @@ def solve(
     progress : callable, optional
         Receives a :class:`ProgressEvent` on every improving solution.
     cancel : threading.Event, optional
-        Set to stop the search early; the best verified plan so far is returned.
+        Set to stop the search early; the best verified plan so far is returned (the peer
+        and the squeeze are skipped).
 
     Returns
     -------
@@ -704,12 +711,18 @@ def solve(
     ------
     ProblemError
         When the problem is not valid; its ``field`` names the offending input.
+    SolveCancelledError
+        When ``cancel`` is set before any plan exists (spectra and candidates being built).
     """
     validate_problem(problem)
     clock = _Clock.start(problem)
     tell = _Teller(clock, progress, problem)
     tell.stage("building spectra and candidates")
-    sets = {d.id: candidate_sets(problem, d) for d in problem.demands}
+    sets = {}
+    for d in problem.demands:
+        if cancel is not None and cancel.is_set():
+            raise SolveCancelledError("cancelled while spectra and candidates were being built")
+        sets[d.id] = candidate_sets(problem, d)
     options = {d: kept for d, (kept, _) in sets.items()}
     tell.families = {d: bounding for d, (_, bounding) in sets.items()}
     progress = tell.searching

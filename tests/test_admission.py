@@ -370,7 +370,7 @@ def test_greedy_slides_its_carriers_down_when_demands_wait() -> None:
     placed = [first, second]
     assert verify_plan(problem, placed).passed, "the premise: a plan that passes"
     mine = list(placed)
-    _compact(problem, placed, mine, math.inf)
+    _compact(problem, placed, mine, lambda: False)
     slid = sorted(mine, key=lambda c: c.center_hz)
     assert slid[1].center_hz < second.center_hz - 10 * raster
     assert verify_plan(problem, slid).passed

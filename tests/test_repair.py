@@ -76,7 +76,7 @@ def _without_greedy_peer(monkeypatch: pytest.MonkeyPatch) -> None:
     monkeypatch.setattr(
         planner_module,
         "_at_least_greedy",
-        lambda problem, data, pinned, peer, check, dropped, deadline: (check, dropped),
+        lambda problem, data, pinned, peer, check, dropped, deadline, cancel: (check, dropped),
     )
 
 

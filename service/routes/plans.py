@@ -8,7 +8,7 @@ from typing import Annotated, Any, Literal
 import anyio
 from fastapi import APIRouter, Depends, Path, Query, Request, Response
 
-from service.errors import NotFoundError
+from service.errors import ClientGoneError, NotFoundError
 from service.jobs import (
     Runtime,
     get_runtime,
@@ -31,7 +31,7 @@ from service.schemas import (
     SettingOut,
 )
 from service.store import StoredPlan
-from solver import CurrentSetting, parse_code_rate, setting_change
+from solver import CurrentSetting, SolveCancelledError, parse_code_rate, setting_change
 
 __all__ = ["COMMON_RESPONSES", "PROBLEM_RESPONSES", "router"]
 
@@ -87,12 +87,19 @@ async def create_plan(
     response: Response,
     runtime: Annotated[Runtime, Depends(get_runtime)],
 ) -> PlanOut:
-    """An infeasible problem is a successful computation: 201 with status "infeasible"."""
+    """An infeasible problem is a successful computation: 201 with status "infeasible".
+
+    A client that disconnects stops the solve, whatever its stage, and nothing is stored."""
     cancel = threading.Event()
 
     def work() -> PlanOut:
         prepared = prepare(body, runtime.store, runtime.settings)
-        plan = run_solve(runtime, prepared.problem, mode="sync", cancel=cancel)
+        try:
+            plan = run_solve(runtime, prepared.problem, mode="sync", cancel=cancel)
+        except SolveCancelledError:
+            raise ClientGoneError() from None
+        if cancel.is_set():  # the plan the client would not see is not stored either
+            raise ClientGoneError()
         return store_plan(runtime, prepared, plan)
 
     failure: Exception | None = None
