@@ -43,6 +43,7 @@ __all__ = [
     "NotFoundError",
     "ServiceError",
     "SolverBusyError",
+    "StoreUnavailableError",
     "field_path",
     "install_error_handlers",
     "problem_document",
@@ -84,6 +85,10 @@ class NotFoundError(ServiceError):
         super().__init__(f"no {kind} with id {resource_id!r}")
         self.kind = kind
         self.resource_id = resource_id
+
+
+class StoreUnavailableError(RuntimeError):
+    """The database cannot be reached (a 503 with Retry-After, never a 500)."""
 
 
 class ClientGoneError(ServiceError):
@@ -270,8 +275,21 @@ class BodyLimitMiddleware:
         await self.app(scope, counted, send)
 
 
+async def _on_store_unavailable(request: Request, exc: Exception) -> JSONResponse:
+    logger.warning("%s %s: %s", request.method, request.url.path, exc)
+    retry_after_s = request.app.state.runtime.settings.retry_after_s
+    return problem_response(
+        503,
+        slug="store-unavailable",
+        detail="the plan store does not answer; try again later",
+        instance=request.url.path,
+        headers={"Retry-After": str(retry_after_s)},
+    )
+
+
 def install_error_handlers(app: FastAPI) -> None:
     """Register every handler on ``app``; call once from the app factory."""
+    app.add_exception_handler(StoreUnavailableError, _on_store_unavailable)
     app.add_exception_handler(RequestValidationError, _on_validation)
     app.add_exception_handler(ServiceError, _on_service_error)
     app.add_exception_handler(ProblemError, _on_problem_error)

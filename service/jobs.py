@@ -45,7 +45,7 @@ from service.schemas import (
     UnservedOut,
 )
 from service.settings import Settings
-from service.store import Store, utc_now
+from service.store import Store, StoreUnavailableError, utc_now
 from solver import (
     Amplifier,
     Block,
@@ -66,6 +66,7 @@ from solver import (
     Unserved,
     format_code_rate,
     parse_code_rate,
+    validate_problem,
 )
 
 __all__ = [
@@ -419,10 +420,24 @@ def run_solve(
     return plan
 
 
+STORE_RETRIES_S = (0.25, 0.5, 1.0, 2.0)
+"""Pauses between attempts to store a finished plan while the store does not answer (then
+:class:`~service.store.StoreUnavailableError`, a 503)."""
+
+
 def store_plan(runtime: Runtime, prepared: PreparedSolve, plan: Plan) -> PlanOut:
-    """Give the plan its id, time and parent, and store it with its request."""
+    """Give the plan its id, time and parent, and store it with its request (retried for a
+    few seconds while the store does not answer)."""
     out = plan_to_wire(plan, plan_id=new_id(), created_at=utc_now(), parent_id=prepared.parent_id)
-    runtime.store.add_plan(out, prepared.request)
+    for pause_s in (*STORE_RETRIES_S, None):
+        try:
+            runtime.store.add_plan(out, prepared.request)
+            break
+        except StoreUnavailableError:
+            if pause_s is None:
+                raise
+            logger.warning("store not answering; plan %s stored again in %.2f s", out.id, pause_s)
+            time.sleep(pause_s)
     logger.info("stored plan %s (%s, %d carriers)", out.id, out.status.value, len(out.carriers))
     return out
 
@@ -497,7 +512,8 @@ class JobManager:
     def submit(self, request: PlanRequest) -> JobOut:
         """Validate, store and queue a job; SolverBusyError when the queue is full."""
         runtime = self._runtime
-        prepare(request, runtime.store, runtime.settings)  # 422 now rather than a failed job
+        prepared = prepare(request, runtime.store, runtime.settings)
+        validate_problem(prepared.problem)  # 422 now rather than a failed job
         if runtime.store.count_jobs(JobState.QUEUED) >= runtime.settings.max_queued_jobs:
             raise SolverBusyError(runtime.settings.retry_after_s)
         job = runtime.store.add_job(new_id(), request)

@@ -20,6 +20,7 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Engine
 from sqlalchemy.orm import DeclarativeBase, Mapped, Session, mapped_column, sessionmaker
 
+from service.errors import StoreUnavailableError
 from service.schemas import JobOut, JobProgress, JobState, PlanListItem, PlanOut, PlanRequest
 
 __all__ = ["JobRecord", "Store", "StoreUnavailableError", "StoredPlan", "utc_now"]
@@ -30,10 +31,6 @@ ID_LENGTH = 32
 NAME_LENGTH = 200
 STATE_LENGTH = 16
 SQLITE_BUSY_TIMEOUT_S = 30
-
-
-class StoreUnavailableError(RuntimeError):
-    """The database cannot be reached."""
 
 
 def utc_now() -> datetime:
@@ -139,8 +136,13 @@ class Store:
 
     @contextmanager
     def _session(self) -> Iterator[Session]:
-        with self._sessions() as session, session.begin():
-            yield session
+        try:
+            with self._sessions() as session, session.begin():
+                yield session
+        except (sa.exc.OperationalError, sa.exc.InterfaceError) as exc:  # the server, not the SQL
+            raise StoreUnavailableError(
+                f"cannot reach the store: {exc.__class__.__name__}"
+            ) from exc
 
     # ------------------------------------------------------------------------ plans
 

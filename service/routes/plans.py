@@ -53,6 +53,7 @@ COMMON_RESPONSES: dict[int | str, dict[str, Any]] = {
     400: _problem("a body that is not JSON, or not UTF-8"),
     422: _problem("invalid request; `errors` names each bad field"),
     500: _problem("unexpected failure (logged)"),
+    503: _problem("the store does not answer (or every solver slot is busy); see Retry-After"),
 }
 """What any operation may answer (declared for every one of them by the application)."""
 
@@ -93,6 +94,7 @@ async def create_plan(
     cancel = threading.Event()
 
     def work() -> PlanOut:
+        runtime.store.ping()  # a store that is down is a 503 before any solve, not after
         prepared = prepare(body, runtime.store, runtime.settings)
         try:
             plan = run_solve(runtime, prepared.problem, mode="sync", cancel=cancel)

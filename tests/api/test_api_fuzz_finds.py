@@ -74,3 +74,17 @@ async def test_max_margin_with_a_tiny_minimum_rate_is_planned(app: FastAPI) -> N
         response = await client.post("/v1/plans", json=request)
     assert response.status_code == 201, response.text
     assert len(response.json()["carriers"]) == 2
+
+
+async def test_a_job_is_refused_up_front_for_what_a_plan_is_refused(app: FastAPI) -> None:
+    # Before: accepted (202), then failed, for errors the synchronous path rejects at once.
+    demands = [
+        {"id": f"d{i}", "min_rate_bps": 1e4, "target_rate_bps": 2e4, "esn0_db": 12.0}
+        for i in range(250)
+    ]
+    request = small_request(demands=demands, time_limit_s=3.0)  # 250 × 15 ms needs 3.75 s
+    async with serving(app) as client:
+        job = await client.post("/v1/jobs", json=request)
+        plan = await client.post("/v1/plans", json=request)
+    assert job.status_code == plan.status_code == 422, job.text
+    assert job.json()["errors"][0]["field"] == plan.json()["errors"][0]["field"] == "time_limit_s"
