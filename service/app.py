@@ -15,7 +15,7 @@ from importlib.metadata import PackageNotFoundError, version
 
 from fastapi import FastAPI
 
-from service.errors import BodyLimitMiddleware, install_error_handlers
+from service.errors import BodyLimitMiddleware, UnexpectedErrorMiddleware, install_error_handlers
 from service.jobs import JobManager, Runtime, SolveFunction, SolveGate
 from service.metrics import Metrics, MetricsMiddleware
 from service.routes import carriers, health, jobs, modcods, plans
@@ -95,6 +95,7 @@ def create_app(settings: Settings | None = None, *, solve: SolveFunction | None 
     )
     app.dependency_overrides[get_settings] = lambda: settings
     install_error_handlers(app)
+    app.add_middleware(UnexpectedErrorMiddleware)  # innermost: the 500 is counted and timed
     app.add_middleware(BodyLimitMiddleware, limit_bytes=settings.max_body_bytes)
     app.add_middleware(MetricsMiddleware, metrics=metrics)
     for module in (plans, jobs, carriers, modcods, health):

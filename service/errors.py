@@ -44,6 +44,7 @@ __all__ = [
     "ServiceError",
     "SolverBusyError",
     "StoreUnavailableError",
+    "UnexpectedErrorMiddleware",
     "field_path",
     "install_error_handlers",
     "problem_document",
@@ -238,6 +239,34 @@ async def _on_unexpected(request: Request, exc: Exception) -> JSONResponse:
     )
 
 
+class UnexpectedErrorMiddleware:
+    """Answers an unhandled error with a 500 problem document (and logs it), without letting
+    it reach the server: re-raised, it would make the server close the connection, and the
+    client's next request on it would fail."""
+
+    def __init__(self, app: ASGIApp) -> None:
+        self.app = app
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+        started = False
+
+        async def sending(message: Message) -> None:
+            nonlocal started
+            started = started or message["type"] == "http.response.start"
+            await send(message)
+
+        try:
+            await self.app(scope, receive, sending)
+        except Exception as exc:
+            if started:  # too late for a problem document: the server must end the response
+                raise
+            response = await _on_unexpected(Request(scope), exc)
+            await response(scope, receive, send)
+
+
 class BodyLimitMiddleware:
     """Refuses bodies over ``limit_bytes`` with a 413 problem document.
 
@@ -294,4 +323,3 @@ def install_error_handlers(app: FastAPI) -> None:
     app.add_exception_handler(ServiceError, _on_service_error)
     app.add_exception_handler(ProblemError, _on_problem_error)
     app.add_exception_handler(StarletteHTTPException, _on_http_error)
-    app.add_exception_handler(Exception, _on_unexpected)
