@@ -15,6 +15,7 @@ from importlib.metadata import PackageNotFoundError, version
 
 from fastapi import FastAPI
 
+from service.caching import NoSniffMiddleware
 from service.errors import BodyLimitMiddleware, UnexpectedErrorMiddleware, install_error_handlers
 from service.jobs import JobManager, Runtime, SolveFunction, SolveGate
 from service.metrics import Metrics, MetricsMiddleware
@@ -98,6 +99,7 @@ def create_app(settings: Settings | None = None, *, solve: SolveFunction | None 
     app.add_middleware(UnexpectedErrorMiddleware)  # innermost: the 500 is counted and timed
     app.add_middleware(BodyLimitMiddleware, limit_bytes=settings.max_body_bytes)
     app.add_middleware(MetricsMiddleware, metrics=metrics)
+    app.add_middleware(NoSniffMiddleware)
     for module in (plans, jobs, carriers, modcods, health):
         app.include_router(module.router)
     return app

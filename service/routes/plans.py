@@ -8,6 +8,7 @@ from typing import Annotated, Any, Literal
 import anyio
 from fastapi import APIRouter, Depends, Path, Query, Request, Response
 
+from service.caching import entity_tag, immutable, not_modified
 from service.errors import ClientGoneError, NotFoundError
 from service.jobs import (
     Runtime,
@@ -141,44 +142,69 @@ def _stored(runtime: Runtime, plan_id: str) -> StoredPlan:
     return stored
 
 
-@router.get("/{plan_id}", operation_id="get_plan", responses=NOT_FOUND)
-def get_plan(plan_id: PlanId, runtime: Annotated[Runtime, Depends(get_runtime)]) -> PlanOut:
-    """A stored plan."""
-    return _stored(runtime, plan_id).plan
+NOT_MODIFIED: dict[int | str, dict[str, Any]] = {
+    304: {"description": "the client's copy (If-None-Match) is current; no body"}
+}
 
 
-def _picture(runtime: Runtime, plan_id: str, fmt: Literal["svg", "png"]) -> bytes:
+@router.get(
+    "/{plan_id}",
+    operation_id="get_plan",
+    response_model=PlanOut,
+    responses={**NOT_FOUND, **NOT_MODIFIED},
+)
+def get_plan(
+    plan_id: PlanId, request: Request, runtime: Annotated[Runtime, Depends(get_runtime)]
+) -> Response:
+    """A stored plan (immutable: strong ETag, If-None-Match answered with 304)."""
+    body = _stored(runtime, plan_id).plan.model_dump_json().encode()
+    tag = entity_tag(body)
+    return not_modified(request, tag) or immutable(body, "application/json", tag)
+
+
+RENDERING = b"spectrum picture 1"
+"""Part of every picture's ETag: change it when the drawing changes."""
+
+
+def _picture(
+    runtime: Runtime, plan_id: str, fmt: Literal["svg", "png"], request: Request
+) -> Response:
     from service.render import render_spectrum
 
     stored = _stored(runtime, plan_id)
+    tag = entity_tag(stored.plan.model_dump_json().encode(), fmt.encode(), RENDERING)
+    cached = not_modified(request, tag)
+    if cached is not None:
+        return cached
     problem = to_problem(stored.request)
-    return render_spectrum(plan_from_wire(stored.plan), problem, fmt)
+    media_type = "image/svg+xml" if fmt == "svg" else "image/png"
+    return immutable(render_spectrum(plan_from_wire(stored.plan), problem, fmt), media_type, tag)
 
 
 @router.get(
     "/{plan_id}/spectrum.svg",
     operation_id="get_plan_spectrum_svg",
     response_class=Response,
-    responses={200: {"content": {"image/svg+xml": {}}}, **NOT_FOUND},
+    responses={200: {"content": {"image/svg+xml": {}}}, **NOT_FOUND, **NOT_MODIFIED},
 )
 def get_spectrum_svg(
-    plan_id: PlanId, runtime: Annotated[Runtime, Depends(get_runtime)]
+    plan_id: PlanId, request: Request, runtime: Annotated[Runtime, Depends(get_runtime)]
 ) -> Response:
     """The plan's spectrum picture (SVG)."""
-    return Response(_picture(runtime, plan_id, "svg"), media_type="image/svg+xml")
+    return _picture(runtime, plan_id, "svg", request)
 
 
 @router.get(
     "/{plan_id}/spectrum.png",
     operation_id="get_plan_spectrum_png",
     response_class=Response,
-    responses={200: {"content": {"image/png": {}}}, **NOT_FOUND},
+    responses={200: {"content": {"image/png": {}}}, **NOT_FOUND, **NOT_MODIFIED},
 )
 def get_spectrum_png(
-    plan_id: PlanId, runtime: Annotated[Runtime, Depends(get_runtime)]
+    plan_id: PlanId, request: Request, runtime: Annotated[Runtime, Depends(get_runtime)]
 ) -> Response:
     """The plan's spectrum picture (PNG)."""
-    return Response(_picture(runtime, plan_id, "png"), media_type="image/png")
+    return _picture(runtime, plan_id, "png", request)
 
 
 @router.get(
