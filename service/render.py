@@ -106,6 +106,8 @@ class _Style:
     edge_limit_colour: str = "#6a1b9a"
     sum_colour: str = "#37474f"
     palette: str = "tab10"
+    detailed_carriers: int = 60
+    crowd_samples: int = 20000
 
 
 STYLE: Final = _Style()
@@ -214,8 +216,11 @@ def build_spectrum_figure(
     bottom_db = _draw_limits(psd_ax, problem, reference_db)
     psd_ax.set_ylim(bottom_db, max(levels, default=0.0) + STYLE.headroom_db)
     _draw_exclusions(psd_ax, problem, scale_hz)
-    _draw_guards(psd_ax, carriers, scale_hz)
-    if carriers:
+    if len(carriers) > STYLE.detailed_carriers:
+        densities = [source(carrier, problem) for carrier in carriers]
+        _draw_crowd(psd_ax, strip_ax, carriers, levels, densities, scale_hz)
+    elif carriers:
+        _draw_guards(psd_ax, carriers, scale_hz)
         densities = [source(carrier, problem) for carrier in carriers]
         _draw_carriers(psd_ax, carriers, levels, densities, scale_hz)
         _draw_labels(figure, strip_ax, carriers, scale_hz)
@@ -376,6 +381,62 @@ def _draw_carriers(
         lw=0.8,
         zorder=4,
         label="sum of all carriers",
+    )
+
+
+def _draw_crowd(
+    ax: Axes,
+    strip: Axes,
+    carriers: Sequence[Carrier],
+    levels: Sequence[float],
+    densities: Sequence[DensityFn],
+    scale_hz: float,
+) -> None:
+    """The simplified drawing of a plan with many carriers (seconds, not minutes): the sum of
+    all carriers on one grid, each carrier's allocated band and guards as bars, no labels."""
+    lo_hz, hi_hz = (x * scale_hz for x in ax.get_xlim())
+    grid = np.linspace(lo_hz, hi_hz, STYLE.crowd_samples)
+    total = np.zeros_like(grid)
+    for carrier, level, density in zip(carriers, levels, densities, strict=True):
+        reach = STYLE.carrier_view_rs * carrier.config.symbol_rate_baud
+        near = slice(*np.searchsorted(grid, (carrier.center_hz - reach, carrier.center_hz + reach)))
+        total[near] += 10 ** (carrier_psd_db(carrier, level, density, grid[near]) / 10)
+    floor = 10 ** (STYLE.floor_db / 10)
+    ax.plot(
+        grid / scale_hz,
+        10 * np.log10(np.maximum(total, floor)),
+        color=STYLE.sum_colour,
+        lw=0.6,
+        zorder=4,
+        label="sum of all carriers",
+    )
+    colours = mpl.colormaps[STYLE.palette]
+    bands = [
+        (c.lower_edge_hz / scale_hz, c.config.allocated_bandwidth_hz / scale_hz) for c in carriers
+    ]
+    strip.broken_barh(
+        bands, (0.05, 0.25), facecolors=[colours(i % colours.N) for i in range(len(carriers))]
+    )
+    guards = [
+        (lo / scale_hz, (hi - lo) / scale_hz)
+        for c in carriers
+        for lo, hi in (
+            (c.lower_edge_hz - c.guard_below_hz, c.lower_edge_hz),
+            (c.upper_edge_hz, c.upper_edge_hz + c.guard_above_hz),
+        )
+        if hi > lo
+    ]
+    strip.broken_barh(guards, (0.05, 0.25), facecolors=STYLE.guard_colour, alpha=0.6)
+    strip.text(
+        0.5,
+        0.6,
+        f"{len(carriers)} carriers: simplified drawing (bands and guards as bars, no labels, "
+        f"above {STYLE.detailed_carriers}); the plan's JSON lists every carrier",
+        transform=strip.transAxes,
+        ha="center",
+        va="center",
+        fontsize=10,
+        color="#555555",
     )
 
 
