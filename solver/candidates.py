@@ -77,8 +77,8 @@ class _Combos:
     rolloff: NDArray[np.float64]
     occupied_per_baud: NDArray[np.float64]
     keys: tuple[emission.EmissionKey, ...]
-    memo: dict[tuple[str, int], float] = field(default_factory=dict, compare=False, repr=False)
-    """Guards already looked up, by (rule, combo × 10⁶ + level in half dB)."""
+    memo: dict[tuple[str, int, int], float] = field(default_factory=dict, compare=False, repr=False)
+    """Guards already looked up, by (rule, combo, level in half dB)."""
 
     @property
     def size(self) -> int:
@@ -167,14 +167,14 @@ def _per_pair(
 ) -> NDArray[np.float64]:
     """``rule(key, half_db / 2)`` for each (combo, half-dB level), evaluated once per distinct
     pair for the life of ``combos`` (they are cached per catalogue and transmitter)."""
-    codes = combo_index * 1_000_000 + half_db
-    unique, inverse = np.unique(codes, return_inverse=True)
+    pairs = np.stack([np.asarray(combo_index, dtype=np.int64), half_db.astype(np.int64)], axis=1)
+    unique, inverse = np.unique(pairs.reshape(-1, 2), axis=0, return_inverse=True)
     memo, name = combos.memo, rule.__name__
-    values = np.empty(unique.size)
-    for n, u in enumerate(unique.tolist()):
-        value = memo.get((name, u))
+    values = np.empty(len(unique))
+    for n, (combo, half) in enumerate(unique.tolist()):
+        value = memo.get((name, combo, half))
         if value is None:
-            value = memo[name, u] = rule(combos.keys[u // 1_000_000], (u % 1_000_000) / 2.0)
+            value = memo[name, combo, half] = rule(combos.keys[combo], half / 2.0)
         values[n] = value
     return np.asarray(values[inverse.reshape(-1)], dtype=np.float64)
 
@@ -773,6 +773,10 @@ def best_margin_db(problem: Problem, demand: Demand, max_width_hz: float) -> flo
     return float(np.where(fits, margin, -np.inf).max(initial=-np.inf))
 
 
+LEAST_SYMBOL_RATE_BAUD = 1.0
+"""The narrowest carrier greedy admission sizes (a minimum rate of 0 bit/s still needs one)."""
+
+
 def narrowest_at_min_rate(problem: Problem, demand: Demand, count: int) -> list[Candidate]:
     """The ``count`` configurations (any catalogue entry × roll-off whose link closes with the
     demand's margin) that carry the minimum rate in the least spectrum, allocated width plus
@@ -781,7 +785,7 @@ def narrowest_at_min_rate(problem: Problem, demand: Demand, count: int) -> list[
     combos = _combos(problem.coding, problem.transmitter, tuple(demand.modulations))
     if combos.size == 0:
         return []
-    rate = demand.min_rate_bps / combos.net_bits_per_symbol
+    rate = np.maximum(demand.min_rate_bps / combos.net_bits_per_symbol, LEAST_SYMBOL_RATE_BAUD)
     closes = rate <= _max_symbol_rate_baud(demand, combos.required_esn0_db) * (1 + 1e-12)
     idx = np.flatnonzero(closes)
     if idx.size == 0:

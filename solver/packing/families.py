@@ -48,8 +48,10 @@ def mask_guard_per_baud(key: emission.EmissionKey, level_db: float) -> float:
     carrier's own density, whatever its own width (a narrow neighbour sees the density, not a
     band average).  ``math.inf`` when the skirt never falls that low within the profile.
     """
+    if level_db <= 0.0:  # no skirt outside the band rises above the in-band level
+        return 0.0
     profile = emission.get_profile(key)
-    threshold = float(profile.psd_at(np.zeros(1))[0]) * 10.0 ** (-level_db / 10.0)
+    threshold = float(profile.psd_at(np.zeros(1))[0]) * 10.0 ** (-min(level_db, 3000.0) / 10.0)
     edge = profile.nominal_bandwidth / 2
     worst = 0.0
     for sign in (1.0, -1.0):

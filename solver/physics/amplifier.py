@@ -184,7 +184,12 @@ def solve_drive(power: FloatArray, amplifier: Amplifier) -> float:
         # method from that guess (3–4 evaluations); brentq on the bracket if it strays.
         guess = float(optimize.brentq(excess, lo, hi, args=(coarse,), rtol=1e-6))
         secant = optimize.newton(
-            excess, guess, x1=guess * (1 + DRIVE_REFINE), tol=guess * 1e-10, full_output=True
+            excess,
+            guess,
+            x1=guess * (1 + DRIVE_REFINE),
+            tol=guess * 1e-10,
+            full_output=True,
+            disp=False,  # not converged (a drive near saturation): brentq below
         )
         if secant[1].converged and lo <= secant[0] <= hi:
             return float(secant[0])

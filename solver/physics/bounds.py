@@ -117,9 +117,12 @@ def _power_limited(power_hz: float, target_bps: float, usable_hz: float) -> _Sha
     elif target_bps <= 0:
         cap_hz = 0.0
     else:  # P·log2(1 + x)/x = T, decreasing in x = P/B
-        log_ratio = _solve_log_ratio(
-            lambda v: math.log1p(math.exp(v)) * LOG2E / math.exp(v) - target_bps / power_hz
-        )
+
+        def excess(v: float) -> float:
+            return math.log1p(math.exp(v)) * LOG2E / math.exp(v) - target_bps / power_hz
+
+        # a target so small that even x = e^span carries it: the width is below any resolution
+        log_ratio = _LOG_RATIO_SPAN if excess(_LOG_RATIO_SPAN) > 0 else _solve_log_ratio(excess)
         cap_hz = power_hz / math.exp(log_ratio)
     ceiling_hz = min(cap_hz, usable_hz)
     steepest = _marginal(_LOG_RATIO_SPAN)

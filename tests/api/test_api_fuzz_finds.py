@@ -88,3 +88,59 @@ async def test_a_job_is_refused_up_front_for_what_a_plan_is_refused(app: FastAPI
         plan = await client.post("/v1/plans", json=request)
     assert job.status_code == plan.status_code == 422, job.text
     assert job.json()["errors"][0]["field"] == plan.json()["errors"][0]["field"] == "time_limit_s"
+
+
+FUZZ_PLAN_BODIES = [
+    # a minimum rate of 5e-324 bit/s sized a carrier of 0 baud; a C/N0 of 0 dBHz put the
+    # Shannon bound's root outside its bracket
+    {
+        "block": {"start_hz": 0.0, "stop_hz": 2500000.0},
+        "demands": [
+            {"cn0_dbhz": 0.0, "id": "d0", "min_rate_bps": 5e-324, "target_rate_bps": 5e-324}
+        ],
+        "time_limit_s": 1.0,
+    },
+    # an Es/N0 of about 0 dB gave a sensitivity far below 0 dB, and 10^(−level/10) overflowed
+    {
+        "block": {"start_hz": 7.4e-293, "stop_hz": 2500000.0},
+        "demands": [
+            {"id": "d0", "min_rate_bps": 6.6e11, "target_rate_bps": 1e12, "cn0_dbhz": 99.9},
+            {
+                "id": "d1",
+                "min_rate_bps": 2.2e10,
+                "target_rate_bps": 2.0e11,
+                "modulations": ["8PSK", "32APSK"],
+                "esn0_db": 2.76e-260,
+                "priority": 248,
+            },
+            {"id": "d2", "min_rate_bps": 5e-324, "target_rate_bps": 5.7e11, "cn0_dbhz": -4.7e-157},
+        ],
+        "time_limit_s": 1.0,
+    },
+]
+
+
+@pytest.mark.parametrize("body", FUZZ_PLAN_BODIES, ids=["tiny minimum rate", "tiny Es/N0"])
+async def test_extreme_but_valid_plan_requests_are_planned(
+    app: FastAPI, body: dict[str, object]
+) -> None:
+    async with serving(app) as client:
+        response = await client.post("/v1/plans", json=body)
+    assert response.status_code == 201, response.text
+
+
+async def test_a_back_off_at_saturation_is_a_422_naming_it(app: FastAPI) -> None:
+    # Before: the drive solver's secant step did not converge near saturation and raised.
+    body = EVALUATE | {
+        "modulation": "4PAM",
+        "code_rate": "4/97",
+        "rolloff": 0.015,
+        "symbol_rate_baud": 9.3e9,
+        "window": "kaiser",
+        "amplifier": {"output_backoff_db": 2.2e-128, "smoothness": 66.0},
+    }
+    async with serving(app) as client:
+        response = await client.post("/v1/carriers/evaluate", json=body)
+    assert response.status_code in (200, 422), response.text
+    if response.status_code == 422:
+        assert response.json()["errors"][0]["field"] == "amplifier.output_backoff_db"
