@@ -13,14 +13,15 @@ from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 from importlib.metadata import PackageNotFoundError, version
 
-from fastapi import FastAPI
+from fastapi import Depends, FastAPI
 
 from service.caching import NoSniffMiddleware
 from service.errors import BodyLimitMiddleware, UnexpectedErrorMiddleware, install_error_handlers
 from service.jobs import JobManager, Runtime, SolveFunction, SolveGate
+from service.keys import authorise
 from service.metrics import Metrics, MetricsMiddleware
 from service.routes import carriers, health, jobs, modcods, plans
-from service.routes.plans import COMMON_RESPONSES
+from service.routes.plans import AUTH_RESPONSES, COMMON_RESPONSES
 from service.settings import Settings, get_settings
 from service.store import Store, StoreUnavailableError
 
@@ -93,6 +94,8 @@ def create_app(settings: Settings | None = None, *, solve: SolveFunction | None 
         description=DESCRIPTION,
         lifespan=lifespan,
         responses=COMMON_RESPONSES,
+        docs_url="/docs" if settings.docs else None,
+        redoc_url="/redoc" if settings.docs else None,
     )
     app.dependency_overrides[get_settings] = lambda: settings
     install_error_handlers(app)
@@ -100,6 +103,9 @@ def create_app(settings: Settings | None = None, *, solve: SolveFunction | None 
     app.add_middleware(BodyLimitMiddleware, limit_bytes=settings.max_body_bytes)
     app.add_middleware(MetricsMiddleware, metrics=metrics)
     app.add_middleware(NoSniffMiddleware)
-    for module in (plans, jobs, carriers, modcods, health):
-        app.include_router(module.router)
+    for module in (plans, jobs, carriers, modcods):
+        app.include_router(
+            module.router, dependencies=[Depends(authorise)], responses=AUTH_RESPONSES
+        )
+    app.include_router(health.router)  # the probes are open; /metrics checks its own key
     return app

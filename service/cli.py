@@ -341,10 +341,23 @@ def _cmd_serve(args: argparse.Namespace) -> ExitCode:
     import uvicorn
 
     from service.app import create_app
+    from service.keys import open_serving_refused
+    from service.store import Store
 
     settings = Settings()
     host = args.host or settings.host
     port = settings.port if args.port is None else args.port
+    store = Store(settings.database_url)
+    try:
+        store.ensure_schema()
+        refused = open_serving_refused(host, store, settings.allow_open)
+        keyed = store.has_keys()
+    finally:
+        store.close()
+    if refused is not None:
+        raise CliError(ExitCode.INVALID, refused)
+    if not keyed:
+        logger.warning("no API key exists: serving open on %s (loopback only)", host)
     uvicorn.run(
         create_app(settings),
         host=host,
@@ -352,6 +365,32 @@ def _cmd_serve(args: argparse.Namespace) -> ExitCode:
         log_level="info",
         access_log=settings.access_log,
     )
+    return ExitCode.SERVED
+
+
+def _cmd_keys(args: argparse.Namespace) -> ExitCode:
+    """``keys create|list|revoke``: manage the service's API keys in its store."""
+    from service.keys import Scope, create_key
+    from service.store import Store
+
+    settings = Settings()
+    store = Store(settings.database_url)
+    try:
+        store.ensure_schema()
+        if args.action == "create":
+            key, record = create_key(store, Scope(args.scope), args.name, settings.keys_pepper)
+            _err(f"key {record.id} ({record.scope}, {record.name!r}); it is shown only once:")
+            print(key)
+        elif args.action == "list":
+            for item in store.list_keys():
+                state = "revoked" if item.revoked_at is not None else "live"
+                print(f"{item.id}\t{item.scope}\t{state}\t{item.created_at:%Y-%m-%d}\t{item.name}")
+        elif not store.revoke_key(args.id):
+            raise CliError(ExitCode.INVALID, f"no live key {args.id!r}")
+        else:
+            _err(f"key {args.id} revoked")
+    finally:
+        store.close()
     return ExitCode.SERVED
 
 
@@ -413,6 +452,15 @@ def _parser() -> argparse.ArgumentParser:
         cmd.add_argument("-o", "--output", type=Path, metavar="PLAN.json", help="write the plan")
         cmd.add_argument("--svg", type=Path, metavar="FILE", help="write the spectrum picture")
         cmd.set_defaults(run=_cmd_plan)
+    keys = sub.add_parser("keys", help="create, list and revoke API keys")
+    actions = keys.add_subparsers(dest="action", required=True)
+    create = actions.add_parser("create", help="print a new key (shown only once)")
+    create.add_argument("--scope", choices=["read", "plan", "admin"], required=True)
+    create.add_argument("--name", default="", help="who or what the key is for")
+    actions.add_parser("list", help="every key: id, scope, state, created, name")
+    revoke = actions.add_parser("revoke", help="revoke a key by its id")
+    revoke.add_argument("id")
+    keys.set_defaults(run=_cmd_keys)
     demo = sub.add_parser("demo", help="start a local service and plan the demo request")
     demo.add_argument("--request", type=Path, default=DEMO_REQUEST, help="request to plan")
     demo.add_argument("--svg", type=Path, default=DEMO_SVG, help="where to write the picture")

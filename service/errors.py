@@ -39,11 +39,13 @@ __all__ = [
     "BodyLimitMiddleware",
     "BodyTooLargeError",
     "FieldIssue",
+    "ForbiddenError",
     "InvalidInputError",
     "NotFoundError",
     "ServiceError",
     "SolverBusyError",
     "StoreUnavailableError",
+    "UnauthenticatedError",
     "UnexpectedErrorMiddleware",
     "field_path",
     "install_error_handlers",
@@ -90,6 +92,14 @@ class NotFoundError(ServiceError):
 
 class StoreUnavailableError(RuntimeError):
     """The database cannot be reached (a 503 with Retry-After, never a 500)."""
+
+
+class UnauthenticatedError(ServiceError):
+    """No API key, or one that is unknown or revoked (401)."""
+
+
+class ForbiddenError(ServiceError):
+    """An API key whose scope does not cover the request (403)."""
 
 
 class ClientGoneError(ServiceError):
@@ -197,6 +207,13 @@ async def _on_service_error(request: Request, exc: Exception) -> JSONResponse:
         )
     if isinstance(exc, NotFoundError):
         return problem_response(404, slug="not-found", detail=str(exc), instance=path)
+    if isinstance(exc, UnauthenticatedError):
+        headers = {"WWW-Authenticate": 'Bearer realm="bandwright"'}
+        return problem_response(
+            401, slug="unauthenticated", detail=str(exc), instance=path, headers=headers
+        )
+    if isinstance(exc, ForbiddenError):
+        return problem_response(403, slug="forbidden", detail=str(exc), instance=path)
     if isinstance(exc, ClientGoneError):
         logger.info("%s %s: %s", request.method, path, exc)
         return JSONResponse({"detail": str(exc)}, status_code=CLIENT_GONE_STATUS)

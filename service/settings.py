@@ -46,6 +46,13 @@ class Settings(BaseSettings):
     progress_interval_s: float = Field(
         0.5, gt=0, description="least time between stored job progress updates (s)"
     )
+    keys_pepper: str = Field(
+        "", description="secret mixed into every stored API key hash (set it in production)"
+    )
+    allow_open: bool = Field(
+        False, description="serve without API keys on an address other than loopback"
+    )
+    docs: bool = Field(True, description="serve /docs and /redoc (the OpenAPI document stays)")
     host: str = Field("127.0.0.1", description="address `bandwright serve` binds")
     port: int = Field(8000, ge=0, le=65535, description="port `bandwright serve` binds")
 

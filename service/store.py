@@ -23,7 +23,7 @@ from sqlalchemy.orm import DeclarativeBase, Mapped, Session, mapped_column, sess
 from service.errors import StoreUnavailableError
 from service.schemas import JobOut, JobProgress, JobState, PlanListItem, PlanOut, PlanRequest
 
-__all__ = ["JobRecord", "Store", "StoreUnavailableError", "StoredPlan", "utc_now"]
+__all__ = ["JobRecord", "KeyRecord", "Store", "StoreUnavailableError", "StoredPlan", "utc_now"]
 
 logger = logging.getLogger(__name__)
 
@@ -71,6 +71,33 @@ class _JobRow(_Base):
     progress_json: Mapped[str | None] = mapped_column(sa.Text)
     plan_id: Mapped[str | None] = mapped_column(sa.String(ID_LENGTH))
     error_json: Mapped[str | None] = mapped_column(sa.Text)
+
+
+class _KeyRow(_Base):
+    __tablename__ = "api_keys"
+
+    id: Mapped[str] = mapped_column(sa.String(ID_LENGTH), primary_key=True)
+    name: Mapped[str] = mapped_column(sa.String(NAME_LENGTH))
+    scope: Mapped[str] = mapped_column(sa.String(STATE_LENGTH))
+    key_hash: Mapped[str] = mapped_column(sa.String(128), unique=True)
+    created_at: Mapped[datetime] = mapped_column(sa.DateTime(timezone=True))
+    revoked_at: Mapped[datetime | None] = mapped_column(sa.DateTime(timezone=True))
+
+
+@dataclass(frozen=True)
+class KeyRecord:
+    """An API key as stored: never the key itself, only its keyed hash."""
+
+    id: str
+    name: str
+    scope: str
+    created_at: datetime
+    revoked_at: datetime | None
+
+
+def _key_record(row: _KeyRow) -> KeyRecord:
+    revoked = None if row.revoked_at is None else _aware(row.revoked_at)
+    return KeyRecord(row.id, row.name, row.scope, _aware(row.created_at), revoked)
 
 
 @dataclass(frozen=True)
@@ -259,6 +286,44 @@ class Store:
         query = sa.select(sa.func.count()).select_from(_JobRow).where(_JobRow.state == state.value)
         with self._session() as session:
             return int(session.scalar(query) or 0)
+
+    # ------------------------------------------------------------------------ API keys
+
+    def add_key(self, key_id: str, name: str, scope: str, key_hash: str) -> KeyRecord:
+        """Store a new key's hash (the key itself is never stored)."""
+        row = _KeyRow(id=key_id, name=name, scope=scope, key_hash=key_hash, created_at=utc_now())
+        with self._session() as session:
+            session.add(row)
+        return _key_record(row)
+
+    def list_keys(self) -> list[KeyRecord]:
+        """Every key, oldest first, revoked ones included."""
+        with self._session() as session:
+            rows = session.scalars(sa.select(_KeyRow).order_by(_KeyRow.created_at)).all()
+            return [_key_record(r) for r in rows]
+
+    def revoke_key(self, key_id: str) -> bool:
+        """Revoke a key; False when there is no such key or it was revoked already."""
+        with self._session() as session:
+            row = session.get(_KeyRow, key_id)
+            if row is None or row.revoked_at is not None:
+                return False
+            row.revoked_at = utc_now()
+            return True
+
+    def find_key(self, key_hash: str) -> KeyRecord | None:
+        """The live (not revoked) key with this hash, or None."""
+        with self._session() as session:
+            row = session.scalars(
+                sa.select(_KeyRow).where(_KeyRow.key_hash == key_hash, _KeyRow.revoked_at.is_(None))
+            ).first()
+            return None if row is None else _key_record(row)
+
+    def has_keys(self) -> bool:
+        """Whether any live key exists (without one the service runs open)."""
+        with self._session() as session:
+            query = sa.select(sa.func.count()).select_from(_KeyRow)
+            return bool(session.scalar(query.where(_KeyRow.revoked_at.is_(None))))
 
 
 def _job_out(row: _JobRow) -> JobOut:

@@ -9,7 +9,9 @@ from fastapi import APIRouter, Depends, Response
 from fastapi.responses import JSONResponse
 
 from service.jobs import Runtime, get_runtime
+from service.keys import authorise
 from service.metrics import CONTENT_TYPE
+from service.routes.plans import AUTH_RESPONSES
 from service.schemas import HealthOut
 from service.store import StoreUnavailableError
 
@@ -50,7 +52,8 @@ def readyz(runtime: Annotated[Runtime, Depends(get_runtime)]) -> JSONResponse:
     operation_id="metrics",
     summary="Prometheus text exposition",
     response_class=Response,
-    responses={200: {"content": {"text/plain": {}}}},
+    responses={200: {"content": {"text/plain": {}}}, **AUTH_RESPONSES},
+    dependencies=[Depends(authorise)],
 )
 async def metrics(runtime: Annotated[Runtime, Depends(get_runtime)]) -> Response:
     """Requests and latency by route, solve-time histogram, solver outcomes."""

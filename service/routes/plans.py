@@ -34,7 +34,7 @@ from service.schemas import (
 from service.store import StoredPlan
 from solver import CurrentSetting, SolveCancelledError, parse_code_rate, setting_change
 
-__all__ = ["COMMON_RESPONSES", "PROBLEM_RESPONSES", "router"]
+__all__ = ["AUTH_RESPONSES", "COMMON_RESPONSES", "PROBLEM_RESPONSES", "router"]
 
 router = APIRouter(prefix="/v1/plans", tags=["plans"])
 
@@ -57,6 +57,12 @@ COMMON_RESPONSES: dict[int | str, dict[str, Any]] = {
     503: _problem("the store does not answer (or every solver slot is busy); see Retry-After"),
 }
 """What any operation may answer (declared for every one of them by the application)."""
+
+AUTH_RESPONSES: dict[int | str, dict[str, Any]] = {
+    401: _problem("no API key, or an unknown or revoked one (when the service has keys)"),
+    403: _problem("the API key's scope does not cover this request"),
+}
+"""What the key check (:func:`service.keys.authorise`) may answer."""
 
 PROBLEM_RESPONSES: dict[int | str, dict[str, Any]] = {
     413: _problem("request body larger than the limit"),
