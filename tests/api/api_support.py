@@ -6,15 +6,20 @@ Requests are small invented scenarios with short time limits so the whole API su
 from __future__ import annotations
 
 import copy
+import os
 import threading
+import uuid
 from collections.abc import AsyncIterator, Callable
 from contextlib import asynccontextmanager
 from typing import Any
 
 import httpx
+import pytest
+import sqlalchemy as sa
 from fastapi import FastAPI
 
 from service.jobs import SolveFunction
+from service.settings import Settings
 from solver.model import Plan, Problem, ProgressEvent
 
 SMALL_REQUEST: dict[str, Any] = {
@@ -73,3 +78,22 @@ class BlockingSolve:
             if cancel is not None and cancel.is_set():
                 break
         return self.real(problem, progress=progress, cancel=cancel)
+
+
+POSTGRES_URL = os.environ.get("BANDWRIGHT_TEST_POSTGRES_URL", "")
+"""A PostgreSQL database for the store tests (``.ci/run`` starts one and sets it)."""
+
+
+def on_postgres(settings: Settings) -> Settings:
+    """``settings`` with a fresh schema of the test PostgreSQL database as the store (the test
+    is skipped when there is none)."""
+    if not POSTGRES_URL:
+        pytest.skip("BANDWRIGHT_TEST_POSTGRES_URL is not set (.ci/run sets it)")
+    schema = f"t{uuid.uuid4().hex[:12]}"
+    engine = sa.create_engine(POSTGRES_URL)
+    with engine.begin() as conn:
+        conn.execute(sa.text(f"CREATE SCHEMA {schema}"))
+    engine.dispose()
+    separator = "&" if "?" in POSTGRES_URL else "?"
+    url = f"{POSTGRES_URL}{separator}options=-csearch_path%3D{schema}"
+    return settings.model_copy(update={"database_url": url})

@@ -8,7 +8,7 @@ import sqlite3
 from pathlib import Path
 
 import pytest
-from api_support import serving, small_request
+from api_support import on_postgres, serving, small_request
 
 from service.app import create_app
 from service.cli import main
@@ -17,6 +17,12 @@ from service.settings import Settings
 from service.store import Store
 
 pytestmark = pytest.mark.anyio
+
+
+@pytest.fixture(params=["sqlite", "postgres"])
+def stores(request: pytest.FixtureRequest, settings: Settings) -> Settings:
+    """The tests that go through the store run on SQLite and on PostgreSQL."""
+    return settings if request.param == "sqlite" else on_postgres(settings)
 
 
 def _keyed(settings: Settings, *scopes: Scope) -> list[str]:
@@ -31,9 +37,9 @@ def _bearer(key: str) -> dict[str, str]:
     return {"Authorization": f"Bearer {key}"}
 
 
-async def test_with_keys_each_scope_reaches_what_it_covers(settings: Settings) -> None:
-    read, plan, admin = _keyed(settings, Scope.READ, Scope.PLAN, Scope.ADMIN)
-    async with serving(create_app(settings)) as client:
+async def test_with_keys_each_scope_reaches_what_it_covers(stores: Settings) -> None:
+    read, plan, admin = _keyed(stores, Scope.READ, Scope.PLAN, Scope.ADMIN)
+    async with serving(create_app(stores)) as client:
         anonymous = await client.get("/v1/plans")
         wrong = await client.get("/v1/plans", headers=_bearer("bw_not-a-key"))
         listed = await client.get("/v1/plans", headers=_bearer(read))
@@ -52,19 +58,19 @@ async def test_with_keys_each_scope_reaches_what_it_covers(settings: Settings) -
     assert [p.status_code for p in probes] == [200, 200]
 
 
-async def test_a_revoked_key_is_refused(settings: Settings) -> None:
-    read, _admin = _keyed(settings, Scope.READ, Scope.ADMIN)
-    store = Store(settings.database_url)
+async def test_a_revoked_key_is_refused(stores: Settings) -> None:
+    read, _admin = _keyed(stores, Scope.READ, Scope.ADMIN)
+    store = Store(stores.database_url)
     victim = next(k for k in store.list_keys() if k.scope == "read")
     assert store.revoke_key(victim.id) and not store.revoke_key(victim.id)
     store.close()
-    async with serving(create_app(settings)) as client:
+    async with serving(create_app(stores)) as client:
         response = await client.get("/v1/plans", headers=_bearer(read))
     assert response.status_code == 401
 
 
-async def test_without_keys_the_service_is_open(settings: Settings) -> None:
-    async with serving(create_app(settings)) as client:
+async def test_without_keys_the_service_is_open(stores: Settings) -> None:
+    async with serving(create_app(stores)) as client:
         response = await client.get("/v1/plans")
     assert response.status_code == 200
 
@@ -88,14 +94,14 @@ def test_the_openapi_document_declares_the_bearer_scheme(settings: Settings) -> 
     assert "security" not in document["paths"]["/healthz"]["get"]
 
 
-def test_open_serving_is_refused_off_loopback_without_keys(settings: Settings) -> None:
-    store = Store(settings.database_url)
+def test_open_serving_is_refused_off_loopback_without_keys(stores: Settings) -> None:
+    store = Store(stores.database_url)
     store.ensure_schema()
     assert open_serving_refused("127.0.0.1", store, allow_open=False) is None
     assert open_serving_refused("::1", store, allow_open=False) is None
     assert "not loopback" in (open_serving_refused("0.0.0.0", store, allow_open=False) or "")
     assert open_serving_refused("0.0.0.0", store, allow_open=True) is None
-    create_key(store, Scope.ADMIN, "ops", settings.keys_pepper)
+    create_key(store, Scope.ADMIN, "ops", stores.keys_pepper)
     assert open_serving_refused("0.0.0.0", store, allow_open=False) is None
     store.close()
 

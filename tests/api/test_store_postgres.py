@@ -8,12 +8,8 @@ and a job left queued by one app is finished by the next one on the same databas
 
 from __future__ import annotations
 
-import os
-import uuid
-
 import pytest
-import sqlalchemy as sa
-from api_support import serving, small_request
+from api_support import on_postgres, serving, small_request
 
 from service.app import create_app
 from service.jobs import SolveFunction
@@ -21,21 +17,10 @@ from service.settings import Settings
 
 pytestmark = pytest.mark.anyio
 
-URL = os.environ.get("BANDWRIGHT_TEST_POSTGRES_URL", "")
-
 
 @pytest.fixture
 def pg_settings(settings: Settings) -> Settings:
-    if not URL:
-        pytest.skip("BANDWRIGHT_TEST_POSTGRES_URL is not set (.ci/run sets it)")
-    schema = f"t{uuid.uuid4().hex[:12]}"
-    engine = sa.create_engine(URL)
-    with engine.begin() as conn:
-        conn.execute(sa.text(f"CREATE SCHEMA {schema}"))
-    engine.dispose()
-    separator = "&" if "?" in URL else "?"
-    url = f"{URL}{separator}options=-csearch_path%3D{schema}"
-    return settings.model_copy(update={"database_url": url})
+    return on_postgres(settings)
 
 
 async def test_plans_round_trip_on_postgres(
