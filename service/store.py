@@ -23,7 +23,15 @@ from sqlalchemy.orm import DeclarativeBase, Mapped, Session, mapped_column, sess
 from service.errors import StoreUnavailableError
 from service.schemas import JobOut, JobProgress, JobState, PlanListItem, PlanOut, PlanRequest
 
-__all__ = ["JobRecord", "KeyRecord", "Store", "StoreUnavailableError", "StoredPlan", "utc_now"]
+__all__ = [
+    "JobRecord",
+    "KeyRecord",
+    "Replay",
+    "Store",
+    "StoreUnavailableError",
+    "StoredPlan",
+    "utc_now",
+]
 
 logger = logging.getLogger(__name__)
 
@@ -98,6 +106,27 @@ class KeyRecord:
 def _key_record(row: _KeyRow) -> KeyRecord:
     revoked = None if row.revoked_at is None else _aware(row.revoked_at)
     return KeyRecord(row.id, row.name, row.scope, _aware(row.created_at), revoked)
+
+
+class _ReplayRow(_Base):
+    __tablename__ = "idempotency"
+
+    key: Mapped[str] = mapped_column(sa.String(300), primary_key=True)
+    body_hash: Mapped[str] = mapped_column(sa.String(64))
+    status: Mapped[int] = mapped_column(sa.Integer)
+    location: Mapped[str] = mapped_column(sa.String(300))
+    body_json: Mapped[str] = mapped_column(sa.Text)
+    created_at: Mapped[datetime] = mapped_column(sa.DateTime(timezone=True))
+
+
+@dataclass(frozen=True)
+class Replay:
+    """The first answer to a POST made with an Idempotency-Key, kept to be given again."""
+
+    body_hash: str
+    status: int
+    location: str
+    body_json: str
 
 
 @dataclass(frozen=True)
@@ -286,6 +315,36 @@ class Store:
         query = sa.select(sa.func.count()).select_from(_JobRow).where(_JobRow.state == state.value)
         with self._session() as session:
             return int(session.scalar(query) or 0)
+
+    # ------------------------------------------------------------------------ idempotency
+
+    def find_replay(self, key: str) -> Replay | None:
+        """The answer first given for this Idempotency-Key (route-qualified), or None."""
+        with self._session() as session:
+            row = session.get(_ReplayRow, key)
+            if row is None:
+                return None
+            return Replay(row.body_hash, row.status, row.location, row.body_json)
+
+    def add_replay(self, key: str, replay: Replay) -> Replay:
+        """Keep the answer for this key; when another request kept one first, that one."""
+        row = _ReplayRow(
+            key=key,
+            body_hash=replay.body_hash,
+            status=replay.status,
+            location=replay.location,
+            body_json=replay.body_json,
+            created_at=utc_now(),
+        )
+        try:
+            with self._session() as session:
+                session.add(row)
+        except sa.exc.IntegrityError:
+            first = self.find_replay(key)
+            if first is not None:
+                return first
+            raise
+        return replay
 
     # ------------------------------------------------------------------------ API keys
 

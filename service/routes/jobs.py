@@ -5,9 +5,10 @@ from __future__ import annotations
 from typing import Annotated
 
 import anyio.to_thread
-from fastapi import APIRouter, Depends, Path, Response
+from fastapi import APIRouter, Depends, Path, Request, Response
 
 from service.errors import NotFoundError, ServiceError
+from service.idempotency import IdempotencyKey, remember, replayed
 from service.jobs import Runtime, get_runtime
 from service.routes.plans import BUSY, PROBLEM_RESPONSES, _problem
 from service.schemas import JobOut, JobState, PlanRequest
@@ -21,18 +22,28 @@ JobId = Annotated[str, Path(min_length=1, max_length=64, description="job id")]
 @router.post(
     "",
     status_code=202,
+    response_model=JobOut,
     operation_id="create_job",
     summary="Queue a planning request; poll the job at Location",
     responses={**PROBLEM_RESPONSES, **BUSY},
 )
 async def create_job(
-    body: PlanRequest, response: Response, runtime: Annotated[Runtime, Depends(get_runtime)]
-) -> JobOut:
+    body: PlanRequest,
+    request: Request,
+    response: Response,
+    runtime: Annotated[Runtime, Depends(get_runtime)],
+    idempotency_key: IdempotencyKey = None,
+) -> JobOut | Response:
     """202 Accepted with ``Location: /v1/jobs/{id}`` and ``Retry-After`` (s)."""
     jobs = runtime.jobs
     if jobs is None:
         raise ServiceError("the job manager is not running")
+    first = await anyio.to_thread.run_sync(replayed, runtime.store, request, idempotency_key, body)
+    if first is not None:
+        return first
     job = await anyio.to_thread.run_sync(jobs.submit, body)
+    answer = (202, f"/v1/jobs/{job.id}", job)
+    await anyio.to_thread.run_sync(remember, runtime.store, request, idempotency_key, body, answer)
     response.headers["Location"] = f"/v1/jobs/{job.id}"
     response.headers["Retry-After"] = str(runtime.settings.retry_after_s)
     return job

@@ -6,10 +6,12 @@ import threading
 from typing import Annotated, Any, Literal
 
 import anyio
+import anyio.to_thread
 from fastapi import APIRouter, Depends, Path, Query, Request, Response
 
 from service.caching import entity_tag, immutable, not_modified
 from service.errors import ClientGoneError, NotFoundError
+from service.idempotency import IdempotencyKey, remember, replayed
 from service.jobs import (
     Runtime,
     get_runtime,
@@ -85,6 +87,7 @@ async def _cancel_when_client_leaves(request: Request, cancel: threading.Event) 
 @router.post(
     "",
     status_code=201,
+    response_model=PlanOut,
     operation_id="create_plan",
     summary="Solve a planning request and store the plan",
     responses={**PROBLEM_RESPONSES, **BUSY},
@@ -94,10 +97,14 @@ async def create_plan(
     request: Request,
     response: Response,
     runtime: Annotated[Runtime, Depends(get_runtime)],
-) -> PlanOut:
+    idempotency_key: IdempotencyKey = None,
+) -> PlanOut | Response:
     """An infeasible problem is a successful computation: 201 with status "infeasible".
 
     A client that disconnects stops the solve, whatever its stage, and nothing is stored."""
+    first = await anyio.to_thread.run_sync(replayed, runtime.store, request, idempotency_key, body)
+    if first is not None:
+        return first
     cancel = threading.Event()
 
     def work() -> PlanOut:
@@ -122,7 +129,10 @@ async def create_plan(
             watchers.cancel_scope.cancel()
     if failure is not None:
         raise failure
-    response.headers["Location"] = f"/v1/plans/{out.id}"
+    location = f"/v1/plans/{out.id}"
+    answer = (201, location, out)
+    await anyio.to_thread.run_sync(remember, runtime.store, request, idempotency_key, body, answer)
+    response.headers["Location"] = location
     return out
 
 
