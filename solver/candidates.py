@@ -518,8 +518,9 @@ def _family_span(combos: _Combos, demand: Demand, raster_hz: float, max_width_hz
     """
     net, alpha = combos.net_bits_per_symbol, combos.rolloff
     rs_min = demand.min_rate_bps / net
-    rs_hi = np.minimum(
-        demand.target_rate_bps / net, _max_symbol_rate_baud(demand, combos.required_esn0_db)
+    rs_hi = np.minimum(  # never wider than the block: a family of astronomical width has none
+        np.minimum(demand.target_rate_bps / net, max_width_hz / (1 + alpha)),
+        _max_symbol_rate_baud(demand, combos.required_esn0_db),
     )
     step = 2.0 * raster_hz / (1 + alpha)  # symbol rate that fills one half-width unit
     ok = (rs_hi >= rs_min * (1 - 1e-12)) & (rs_min * (1 + alpha) <= max_width_hz)
