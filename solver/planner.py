@@ -614,10 +614,10 @@ def _pick_replan(problem: Problem, moved: _Outcome, stayed: _Outcome) -> _Outcom
     return moved if s_moved - penalty * r_moved > s_stayed - penalty * r_stayed else stayed
 
 
-CLOSING_S_PER_DEMAND = 0.008
+CLOSING_S_PER_DEMAND = 0.010
 """Time kept back per demand, from the search, for what follows it: the last verification,
 the bound and the summary (measured on 1,000 narrow carriers in one stretch: verification
-5.6 ms and the bound 1.3 ms per carrier on two cores, with some to spare)."""
+5.6–7.1 ms and the bound 1.3 ms per carrier on two cores, with a little to spare)."""
 
 
 @dataclass(frozen=True)

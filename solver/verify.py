@@ -250,20 +250,19 @@ class _Emitter:
     profile: emission.SpectrumProfile
     level: float
     reach_hz: float
-    key: emission.EmissionKey
     linear_key: emission.EmissionKey
+    shape: int
+    """What fixes this carrier's emission and matched filter, whatever its centre (profile,
+    filter, symbol rate, level), as a number of :func:`_shape_id`."""
 
     @classmethod
     def of(cls, problem: Problem, carrier: Carrier, level: float) -> _Emitter:
         key = _key(problem, carrier)
+        linear = _key(problem, carrier, linear=True)
         profile = emission.get_profile(key)
-        reach = float(np.max(np.abs(profile.freq))) * carrier.config.symbol_rate_baud
-        return cls(carrier, profile, level, reach, key, _key(problem, carrier, linear=True))
-
-    @property
-    def shape(self) -> tuple[emission.EmissionKey, emission.EmissionKey, float, float]:
-        """What fixes this carrier's emission and matched filter, whatever its centre."""
-        return self.key, self.linear_key, self.carrier.config.symbol_rate_baud, self.level
+        rate = carrier.config.symbol_rate_baud
+        reach = float(np.max(np.abs(profile.freq))) * rate
+        return cls(carrier, profile, level, reach, linear, _shape_id((key, linear, rate, level)))
 
     def density(self, freq_hz: NDArray[np.float64]) -> NDArray[np.float64]:
         """Power spectral density (linear, relative units) at ``freq_hz``."""
@@ -287,10 +286,10 @@ def _received(
     rs = victim.carrier.config.symbol_rate_baud
     grid, response = _response(victim.linear_key)
     freq = victim.carrier.center_hz + grid * rs
-    signal = _COUPLING.get((victim.shape, None, 0.0))
+    signal = _COUPLING.get((victim.shape, -1, 0.0))
     if signal is None:
         signal = float(np.trapezoid(victim.density(freq) * response, freq))
-        _remember((victim.shape, None, 0.0), signal)
+        _remember((victim.shape, -1, 0.0), signal)
     reach = float(np.max(np.abs(grid), initial=0.0)) * rs
     powers: dict[str, float] = {}
     for other in _near(victim, emitters, reach):
@@ -313,8 +312,22 @@ def _received(
     return signal, powers
 
 
-_Shape = tuple[emission.EmissionKey, emission.EmissionKey, float, float]
-_COUPLING: dict[tuple[_Shape, _Shape | None, float], float] = {}
+_SHAPES: dict[tuple[emission.EmissionKey, emission.EmissionKey, float, float], int] = {}
+_NEXT_SHAPE = itertools.count()
+
+
+def _shape_id(shape: tuple[emission.EmissionKey, emission.EmissionKey, float, float]) -> int:
+    """A number per shape, never given to another (so remembered pairs stay right when the
+    table of shapes is emptied and numbered afresh)."""
+    found = _SHAPES.get(shape)
+    if found is None:
+        if len(_SHAPES) >= COUPLING_ENTRIES:
+            _SHAPES.clear()
+        found = _SHAPES[shape] = next(_NEXT_SHAPE)
+    return found
+
+
+_COUPLING: dict[tuple[int, int, float], float] = {}
 """Power one carrier puts through another's matched filter, by the two carriers' shapes and
 the offset between their centres (and each carrier's own signal, with no other shape): the
 same two carriers at the same offset give the same figure wherever they sit, so a plan
@@ -325,7 +338,7 @@ COUPLING_ENTRIES = 400_000
 """Pairs remembered (some 100 MB at most); the memory is emptied when full."""
 
 
-def _remember(key: tuple[_Shape, _Shape | None, float], value: float) -> None:
+def _remember(key: tuple[int, int, float], value: float) -> None:
     if len(_COUPLING) >= COUPLING_ENTRIES:
         _COUPLING.clear()
     _COUPLING[key] = value

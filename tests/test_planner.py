@@ -247,11 +247,11 @@ def test_invalid_problem_names_the_field() -> None:
 
 
 def test_a_time_limit_too_short_for_the_request_is_refused_up_front() -> None:
-    # 400 demands need at least 400 × 15 ms = 6 s; the request allows 5 s
+    # 400 demands need at least 400 × 20 ms = 8 s; the request allows 5 s
     many = [
         Demand(id=f"d{i}", min_rate_bps=1e5, target_rate_bps=2e5, esn0_db=12.0) for i in range(400)
     ]
     with pytest.raises(ProblemError) as err:
         solve(_problem(many, time_limit_s=5.0))
     assert err.value.field == "time_limit_s"
-    assert "400 demands" in str(err.value) and "at least 6 s" in str(err.value)
+    assert "400 demands" in str(err.value) and "at least 8 s" in str(err.value)

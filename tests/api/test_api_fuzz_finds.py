@@ -82,7 +82,7 @@ async def test_a_job_is_refused_up_front_for_what_a_plan_is_refused(app: FastAPI
         {"id": f"d{i}", "min_rate_bps": 1e4, "target_rate_bps": 2e4, "esn0_db": 12.0}
         for i in range(250)
     ]
-    request = small_request(demands=demands, time_limit_s=3.0)  # 250 × 15 ms needs 3.75 s
+    request = small_request(demands=demands, time_limit_s=3.0)  # 250 × 20 ms needs 5 s
     async with serving(app) as client:
         job = await client.post("/v1/jobs", json=request)
         plan = await client.post("/v1/plans", json=request)

@@ -95,7 +95,7 @@ INVALID_CASES: list[tuple[dict[str, Any], str]] = [
     (_set(SMALL_REQUEST, ("demands",), []), "demands"),
     (_set(SMALL_REQUEST, ("time_limit_s",), 301), "time_limit_s"),
     (_set(SMALL_REQUEST, ("time_limit_s",), 0), "time_limit_s"),
-    (  # 250 demands need at least 3.75 s (15 ms each); the request allows 3 s
+    (  # 250 demands need at least 5 s (20 ms each); the request allows 3 s
         _set(
             SMALL_REQUEST,
             ("demands",),
