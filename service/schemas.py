@@ -120,7 +120,7 @@ class BlockIn(WireModel):
 
     start_hz: float = Field(ge=0, le=MAX_FREQUENCY_HZ, description="lower edge (Hz)")
     stop_hz: float = Field(gt=0, le=MAX_FREQUENCY_HZ, description="upper edge (Hz)")
-    raster_hz: float = Field(1000.0, gt=0, le=1e9, description="carrier placement raster (Hz)")
+    raster_hz: float = Field(1000.0, ge=1, le=1e9, description="carrier placement raster (Hz)")
     exclusions: list[ExclusionIn] = Field(
         default_factory=list, max_length=MAX_EXCLUSIONS, description="parts no carrier may use"
     )
@@ -139,7 +139,7 @@ class AmplifierIn(WireModel):
     """A memoryless power amplifier at an output back-off."""
 
     model: AmplifierModel = Field(AmplifierModel.RAPP, description="AM/AM (AM/PM) model")
-    smoothness: float = Field(2.0, gt=0, le=100, description="Rapp smoothness p (dimensionless)")
+    smoothness: float = Field(2.0, ge=0.1, le=100, description="Rapp smoothness p (dimensionless)")
     output_backoff_db: float = Field(
         6.0, ge=0, le=40, description="saturated over mean output power (dB)"
     )
@@ -197,8 +197,8 @@ class DemandIn(WireModel):
     model_config = ConfigDict(json_schema_extra=ONE_LINK_QUALITY)
 
     id: str = Field(pattern=DEMAND_ID_PATTERN, description="unique demand id")
-    min_rate_bps: float = Field(ge=0, le=MAX_RATE_BPS, description="least useful rate (bit/s)")
-    target_rate_bps: float = Field(gt=0, le=MAX_RATE_BPS, description="wanted rate (bit/s)")
+    min_rate_bps: float = Field(ge=1, le=MAX_RATE_BPS, description="least useful rate (bit/s)")
+    target_rate_bps: float = Field(ge=1, le=MAX_RATE_BPS, description="wanted rate (bit/s)")
     priority: int = Field(1, ge=1, le=1000, description="higher is served first")
     cn0_dbhz: Cn0 = None
     esn0_db: Esn0 = None

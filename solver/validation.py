@@ -17,6 +17,12 @@ __all__ = ["MAX_TIME_LIMIT_S", "MIN_S_PER_DEMAND", "validate_problem"]
 MAX_TIME_LIMIT_S = 300.0
 """Longest solve a single request may ask for."""
 
+LEAST_RASTER_HZ = 1.0
+"""A raster finer than 1 Hz describes no equipment (and denormal rasters broke the arithmetic)."""
+
+LEAST_RATE_BPS = 1.0
+"""A minimum rate below 1 bit/s describes no link."""
+
 MIN_S_PER_DEMAND = 0.020
 """The least time limit a request may set per demand: below it the final verification and
 bound alone could outlast the limit (7–9 ms per carrier measured on two cores, doubled)."""
@@ -40,7 +46,11 @@ def _check_block(block: Block) -> None:
         "block.stop_hz",
         f"{block.stop_hz} must be above start_hz {block.start_hz}",
     )
-    _require(block.raster_hz > 0, "block.raster_hz", f"{block.raster_hz} must be positive")
+    _require(
+        block.raster_hz >= LEAST_RASTER_HZ,
+        "block.raster_hz",
+        f"{block.raster_hz} must be at least {LEAST_RASTER_HZ:g} Hz",
+    )
     _require(
         block.width_hz / block.raster_hz <= 10_000_000,
         "block.raster_hz",
@@ -77,9 +87,9 @@ def _check_transmitter(tx: Transmitter) -> None:
         _require(0.0 < a <= 1.0, f"transmitter.rolloffs[{i}]", f"{a} must lie in (0, 1]")
     if tx.amplifier is not None:
         _require(
-            tx.amplifier.smoothness > 0,
+            tx.amplifier.smoothness >= 0.1,
             "transmitter.amplifier.smoothness",
-            f"{tx.amplifier.smoothness} must be positive",
+            f"{tx.amplifier.smoothness} must be at least 0.1 (Rapp p; 1 to 10 is usual)",
         )
         _require(
             0.0 <= tx.amplifier.output_backoff_db <= 30.0,
@@ -120,9 +130,9 @@ def _check_demand(i: int, d: Demand, block: Block) -> None:
     where = f"demands[{i}]"
     _require(bool(d.id.strip()), f"{where}.id", "must not be empty")
     _require(
-        d.min_rate_bps > 0 and math.isfinite(d.min_rate_bps),
+        d.min_rate_bps >= LEAST_RATE_BPS and math.isfinite(d.min_rate_bps),
         f"{where}.min_rate_bps",
-        f"{d.min_rate_bps} must be positive",
+        f"{d.min_rate_bps} must be at least {LEAST_RATE_BPS:g} bit/s",
     )
     _require(
         math.isfinite(d.target_rate_bps) and d.target_rate_bps >= d.min_rate_bps,

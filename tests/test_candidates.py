@@ -224,3 +224,15 @@ def test_a_target_far_above_the_family_makes_a_short_fine_grid() -> None:
     # the widest kept still closes the link with the margin (C/N0 − 10·log10 Rs, DESIGN.md)
     top = fine.top.config
     assert top.esn0_db - top.required_esn0_db >= demand.margin_db - 1e-9
+
+
+@pytest.mark.parametrize("level_db", [0.0, -3.0, -1e4])
+def test_no_mask_guard_is_needed_for_a_level_at_or_above_the_in_band_density(
+    level_db: float,
+) -> None:
+    # Found by the schema fuzzer: an Es/N0 of about 0 dB made a sensitivity of -10^4 dB, and
+    # 10^(-level/10) overflowed.  A skirt is never above the in-band density, so no guard.
+    from solver.packing.families import mask_guard_per_baud
+    from solver.physics.emission import EmissionKey
+
+    assert mask_guard_per_baud(EmissionKey(rolloff=0.2, span_symbols=12), level_db) == 0.0

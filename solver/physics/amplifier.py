@@ -195,7 +195,7 @@ def solve_drive(power: FloatArray, amplifier: Amplifier) -> float:
             return float(secant[0])
         return float(optimize.brentq(excess, lo, hi, rtol=1e-10))
     except ValueError as exc:
-        best_db = 10 * math.log10(float(powers[peak]) / saturation)
+        best_db = 10 * math.log10(max(float(powers[peak]) / saturation, 1e-300))
         raise ProblemError(
             "amplifier.output_backoff_db",
             f"{amplifier.output_backoff_db} dB cannot be reached: the largest mean output is "

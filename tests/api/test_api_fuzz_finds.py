@@ -65,15 +65,21 @@ async def test_an_offset_past_any_store_is_a_422(app: FastAPI) -> None:
     assert fine.status_code == 200 and fine.json()["items"] == []
 
 
-async def test_max_margin_with_a_tiny_minimum_rate_is_planned(app: FastAPI) -> None:
-    # Before: a minimum rate of 1e-7 bit/s made the width grid start at zero raster steps.
+async def test_max_margin_with_the_least_minimum_rate_is_planned(app: FastAPI) -> None:
+    # Before: a minimum rate of 1e-7 bit/s made the width grid start at zero raster steps and
+    # answered 500.  Rates below 1 bit/s are now refused (422); 1 bit/s is planned.
     request = small_request(objective="max_margin")
     for demand in request["demands"]:
-        demand["min_rate_bps"] = demand["target_rate_bps"] = 1e-7
+        demand["min_rate_bps"] = demand["target_rate_bps"] = 1.0
+    tiny = small_request(objective="max_margin")
+    tiny["demands"][0]["min_rate_bps"] = tiny["demands"][0]["target_rate_bps"] = 1e-7
     async with serving(app) as client:
         response = await client.post("/v1/plans", json=request)
+        refused = await client.post("/v1/plans", json=tiny)
     assert response.status_code == 201, response.text
     assert len(response.json()["carriers"]) == 2
+    assert refused.status_code == 422
+    assert refused.json()["errors"][0]["field"] == "demands[0].min_rate_bps"
 
 
 async def test_a_job_is_refused_up_front_for_what_a_plan_is_refused(app: FastAPI) -> None:
@@ -91,13 +97,11 @@ async def test_a_job_is_refused_up_front_for_what_a_plan_is_refused(app: FastAPI
 
 
 FUZZ_PLAN_BODIES = [
-    # a minimum rate of 5e-324 bit/s sized a carrier of 0 baud; a C/N0 of 0 dBHz put the
-    # Shannon bound's root outside its bracket
+    # (with a minimum rate of 5e-324 bit/s, now refused) a carrier was sized at 0 baud and a
+    # C/N0 of 0 dBHz put the Shannon bound's root outside its bracket
     {
         "block": {"start_hz": 0.0, "stop_hz": 2500000.0},
-        "demands": [
-            {"cn0_dbhz": 0.0, "id": "d0", "min_rate_bps": 5e-324, "target_rate_bps": 5e-324}
-        ],
+        "demands": [{"cn0_dbhz": 0.0, "id": "d0", "min_rate_bps": 1.0, "target_rate_bps": 1.0}],
         "time_limit_s": 1.0,
     },
     # an Es/N0 of about 0 dB gave a sensitivity far below 0 dB, and 10^(−level/10) overflowed
@@ -113,7 +117,7 @@ FUZZ_PLAN_BODIES = [
                 "esn0_db": 2.76e-260,
                 "priority": 248,
             },
-            {"id": "d2", "min_rate_bps": 5e-324, "target_rate_bps": 5.7e11, "cn0_dbhz": -4.7e-157},
+            {"id": "d2", "min_rate_bps": 1.0, "target_rate_bps": 5.7e11, "cn0_dbhz": -4.7e-157},
         ],
         "time_limit_s": 1.0,
     },

@@ -42,7 +42,7 @@ def test_every_contract_endpoint_is_documented() -> None:
 def test_schema_carries_units_and_bounds() -> None:
     schemas = openapi_document()["components"]["schemas"]
     demand = schemas["DemandIn"]["properties"]
-    assert demand["target_rate_bps"]["exclusiveMinimum"] == 0
+    assert demand["target_rate_bps"]["minimum"] == 1  # bit/s: the validator's least rate
     assert "bit/s" in demand["target_rate_bps"]["description"]
     assert schemas["PlanRequest"]["additionalProperties"] is False
     assert schemas["PlanRequest"]["properties"]["time_limit_s"]["maximum"] == 300
