@@ -12,7 +12,6 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
-from numpy.typing import NDArray
 
 from solver.model import Amplifier, CodeRate, Coding, Modulation, ProblemError, Window
 from solver.physics import emission, link, modcod
@@ -143,14 +142,10 @@ def evaluate_carrier(
     required = float(modcod.required_esn0_db(modulation, code_rate, coding))
     bits = constellation(modulation).bits_per_symbol
     margin = float(link.margin_db(esn0, required))
-    gaps = np.asarray(gaps_hz, dtype=np.float64)
-    with np.errstate(over="ignore"):  # a gap of many symbols at a tiny rate: beyond reach
-        ratios = _ratios_db(profile, gaps / symbol_rate_baud)
-    leakage = tuple(LeakageAtGap(float(g), float(r)) for g, r in zip(gaps, ratios, strict=True))
     return CarrierEvaluation(
         occupied_bandwidth_hz=emission.occupied_bandwidth_hz(key, symbol_rate_baud),
         allocated_bandwidth_hz=profile.nominal_bandwidth * symbol_rate_baud,
-        leakage_ratio_db=leakage,
+        leakage_ratio_db=_leakage(profile, gaps_hz, symbol_rate_baud),
         guard_needed_hz=emission.guard_needed_hz(key, symbol_rate_baud, leakage_limit_db),
         esn0_db=esn0,
         required_esn0_db=required,
@@ -163,13 +158,16 @@ def evaluate_carrier(
     )
 
 
-def _ratios_db(
-    profile: emission.SpectrumProfile, gaps_rs: NDArray[np.float64]
-) -> NDArray[np.float64]:
-    """Leakage ratios at ``gaps_rs`` (Rs units); infinite beyond the profile's reach, where the
-    model puts no power (the wire reports that as null: no leakage modelled)."""
+def _leakage(
+    profile: emission.SpectrumProfile, gaps_hz: Sequence[float], symbol_rate_baud: float
+) -> tuple[LeakageAtGap, ...]:
+    """The leakage ratio at each gap; infinite beyond the profile's reach, where the model puts
+    no power (the wire reports that as null: no leakage modelled)."""
+    gaps = np.asarray(gaps_hz, dtype=np.float64)
+    with np.errstate(over="ignore"):  # a gap of many symbols at a tiny rate: beyond reach
+        gaps_rs = gaps / symbol_rate_baud
     ratios = np.full(gaps_rs.shape, np.inf)
     inside = gaps_rs <= profile.max_gap
     if np.any(inside):
         ratios[inside] = profile.leakage_ratio_db(gaps_rs[inside])
-    return ratios
+    return tuple(LeakageAtGap(float(g), float(r)) for g, r in zip(gaps, ratios, strict=True))

@@ -99,9 +99,9 @@ def _widen(problem: Problem, st: Stretch, passes: Callable[[], bool], deadline: 
     st.halves, st.scales = list(kept[0]), dict(kept[1])
 
 
-FILL_TRIES = 3
-"""Verifications :func:`_fill` spends on each carrier: all the room it fits, then half, then a
-quarter."""
+FILL_SHARES = (1.0, 0.5, 0.25)
+"""Shares of the room a carrier fits that :func:`_fill` verifies in turn (one verification
+each, at most)."""
 
 
 def _fill(st: Stretch, passes: Callable[[], bool], deadline: float) -> None:
@@ -112,7 +112,7 @@ def _fill(st: Stretch, passes: Callable[[], bool], deadline: float) -> None:
     growing.sort(key=lambda i: -st.slots[i].value_per_half)
     for i in growing:
         most = _most_that_fits(st, i)
-        for share in (1.0, 0.5, 0.25)[:FILL_TRIES]:
+        for share in FILL_SHARES:
             step = int(most * share)
             if step < 1 or time.perf_counter() > deadline:
                 break
