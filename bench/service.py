@@ -36,7 +36,7 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 from service.cli import FALLBACK_DEMO_REQUEST  # noqa: E402
-from service.jobs import to_problem  # noqa: E402
+from service.convert import to_problem  # noqa: E402
 from service.schemas import PlanRequest  # noqa: E402
 
 logger = logging.getLogger("bench.service")

@@ -1,8 +1,9 @@
 """The FastAPI application factory.
 
 ``create_app(settings)`` builds an application around one :class:`~service.store.Store`, one
-:class:`~service.jobs.SolveGate` and one :class:`~service.jobs.JobManager`, created at start-up
-(lifespan) and closed at shutdown.  Tests pass their own settings (and, to exercise the service
+:class:`~service.runtime.SolveGate` and one job queue (:mod:`service.queue`: threads here, or
+Celery workers when ``BANDWRIGHT_BROKER_URL`` is set), created at start-up (lifespan) and closed
+at shutdown.  Tests pass their own settings (and, to exercise the service
 machinery alone, their own solve function).
 """
 
@@ -17,11 +18,12 @@ from fastapi import Depends, FastAPI
 
 from service.caching import NoSniffMiddleware
 from service.errors import BodyLimitMiddleware, UnexpectedErrorMiddleware, install_error_handlers
-from service.jobs import JobManager, Runtime, SolveFunction, SolveGate
 from service.keys import authorise
 from service.metrics import Metrics, MetricsMiddleware
+from service.queue import BrokerJobQueue, LocalJobQueue
 from service.routes import carriers, health, jobs, modcods, plans
 from service.routes.plans import AUTH_RESPONSES, COMMON_RESPONSES
+from service.runtime import Runtime, SolveFunction, SolveGate
 from service.settings import Settings, get_settings
 from service.store import Store, StoreUnavailableError
 
@@ -53,6 +55,15 @@ def _default_solve() -> SolveFunction:
     return solve_fn
 
 
+def _job_queue(runtime: Runtime) -> LocalJobQueue | BrokerJobQueue:
+    settings = runtime.settings
+    if settings.broker_url is None:
+        return LocalJobQueue(runtime)
+    from service.worker import make_sender
+
+    return BrokerJobQueue(runtime, make_sender(settings))
+
+
 def create_app(settings: Settings | None = None, *, solve: SolveFunction | None = None) -> FastAPI:
     """Build the application.
 
@@ -77,10 +88,11 @@ def create_app(settings: Settings | None = None, *, solve: SolveFunction | None 
             reachable = False
         solve_fn = _default_solve() if solve is None else solve
         runtime = Runtime(settings, store, metrics, solve_fn, SolveGate(settings, metrics))
-        runtime.jobs = JobManager(runtime)
+        queue = _job_queue(runtime)
+        runtime.jobs = queue
         app.state.runtime = runtime
         if reachable:
-            runtime.jobs.start()
+            queue.start()
         try:
             yield
         finally:

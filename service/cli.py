@@ -33,8 +33,8 @@ from typing import Any
 import httpx
 import pydantic
 
+from service.convert import finite_or_none, plan_to_wire, to_problem
 from service.errors import FieldIssue, InvalidInputError, field_path
-from service.jobs import finite_or_none, plan_to_wire, to_problem
 from service.schemas import DemandIn, PlanOut, PlanRequest
 from service.settings import Settings
 from service.store import utc_now

@@ -38,6 +38,7 @@ __all__ = [
     "PROBLEM_JSON",
     "BodyLimitMiddleware",
     "BodyTooLargeError",
+    "ConflictError",
     "FieldIssue",
     "ForbiddenError",
     "InvalidInputError",
@@ -88,6 +89,10 @@ class NotFoundError(ServiceError):
         super().__init__(f"no {kind} with id {resource_id!r}")
         self.kind = kind
         self.resource_id = resource_id
+
+
+class ConflictError(ServiceError):
+    """The resource's state does not allow the request (409), e.g. cancelling an ended job."""
 
 
 class StoreUnavailableError(RuntimeError):
@@ -207,6 +212,8 @@ async def _on_service_error(request: Request, exc: Exception) -> JSONResponse:
         )
     if isinstance(exc, NotFoundError):
         return problem_response(404, slug="not-found", detail=str(exc), instance=path)
+    if isinstance(exc, ConflictError):
+        return problem_response(409, slug="conflict", detail=str(exc), instance=path)
     if isinstance(exc, UnauthenticatedError):
         headers = {"WWW-Authenticate": 'Bearer realm="bandwright"'}
         return problem_response(

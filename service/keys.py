@@ -26,10 +26,10 @@ from fastapi import Depends, Request
 from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
 
 from service.errors import ForbiddenError, UnauthenticatedError
-from service.jobs import Runtime, get_runtime
+from service.runtime import Runtime, get_runtime
 from service.store import KeyRecord, Store
 
-__all__ = ["Scope", "authorise", "create_key", "key_hash", "open_serving_refused"]
+__all__ = ["Scope", "authorise", "create_key", "key_hash", "key_id_of", "open_serving_refused"]
 
 KEY_PREFIX = "bw_"
 OPEN_PATHS = frozenset({"/healthz", "/readyz"})
@@ -87,6 +87,13 @@ def authorise(
         raise UnauthenticatedError("unknown or revoked API key")
     if _RANK[Scope(record.scope)] < _RANK[needed]:
         raise ForbiddenError(f"this key's scope is {record.scope!r}; {needed.value!r} is needed")
+    request.state.key_id = record.id
+
+
+def key_id_of(request: Request) -> str | None:
+    """The id of the API key that :func:`authorise` accepted for this request (None when open)."""
+    key_id: str | None = getattr(request.state, "key_id", None)
+    return key_id
 
 
 def open_serving_refused(host: str, store: Store, allow_open: bool) -> str | None:

@@ -532,6 +532,7 @@ class JobState(StrEnum):
     RUNNING = "running"
     DONE = "done"
     FAILED = "failed"
+    CANCELLED = "cancelled"
 
 
 class JobProgress(BaseModel):
@@ -560,6 +561,13 @@ class JobOut(BaseModel):
     plan_id: str | None = Field(description="the stored plan once the job is done")
     plan_url: str | None
     error: dict[str, Any] | None = Field(description="problem document when the job failed")
+    attempts: int = Field(
+        0,
+        ge=0,
+        description="times a worker started this job (above 1 after a lost worker or a restart; "
+        "the job still gives at most one plan)",
+    )
+    batch_id: str | None = Field(None, description="the batch this job belongs to, if any")
 
 
 class HealthOut(BaseModel):

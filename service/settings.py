@@ -46,6 +46,26 @@ class Settings(BaseSettings):
     progress_interval_s: float = Field(
         0.5, gt=0, description="least time between stored job progress updates (s)"
     )
+    broker_url: str | None = Field(
+        None,
+        description="Celery broker (redis://host:6379/0): jobs go to `bandwright worker` "
+        "processes; unset, jobs run on threads in the API process",
+    )
+    job_lease_s: float = Field(
+        15.0,
+        ge=1.0,
+        le=600.0,
+        description="a job's holder renews its lease every third of this; a job whose lease "
+        "runs out (its process was killed) is run again by a live process",
+    )
+    unsent_after_s: float = Field(
+        10.0, gt=0, description="a stored job no queue was given after this long is sent again"
+    )
+    worker_heartbeat_file: str = Field(
+        "/tmp/bandwright-worker.alive",
+        description="touched by `bandwright worker` while it runs; `bandwright worker --check` "
+        "reads its age",
+    )
     keys_pepper: str = Field(
         "", description="secret mixed into every stored API key hash (set it in production)"
     )

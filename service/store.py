@@ -10,11 +10,11 @@ from __future__ import annotations
 
 import json
 import logging
-from collections.abc import Iterator
+from collections.abc import Iterable, Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass
-from datetime import UTC, datetime
-from typing import Any
+from datetime import UTC, datetime, timedelta
+from typing import Any, cast
 
 import sqlalchemy as sa
 from sqlalchemy.engine import Engine
@@ -38,6 +38,8 @@ logger = logging.getLogger(__name__)
 ID_LENGTH = 32
 NAME_LENGTH = 200
 STATE_LENGTH = 16
+OWNER_LENGTH = 200
+UNFINISHED = ("queued", "running")
 SQLITE_BUSY_TIMEOUT_S = 30
 
 
@@ -65,6 +67,7 @@ class _PlanRow(_Base):
     status: Mapped[str] = mapped_column(sa.String(STATE_LENGTH))
     request_json: Mapped[str] = mapped_column(sa.Text)
     plan_json: Mapped[str] = mapped_column(sa.Text)
+    job_id: Mapped[str | None] = mapped_column(sa.String(ID_LENGTH), unique=True)
 
 
 class _JobRow(_Base):
@@ -79,6 +82,23 @@ class _JobRow(_Base):
     progress_json: Mapped[str | None] = mapped_column(sa.Text)
     plan_id: Mapped[str | None] = mapped_column(sa.String(ID_LENGTH))
     error_json: Mapped[str | None] = mapped_column(sa.Text)
+    owner: Mapped[str | None] = mapped_column(sa.String(OWNER_LENGTH))
+    lease_until: Mapped[datetime | None] = mapped_column(sa.DateTime(timezone=True), index=True)
+    attempts: Mapped[int] = mapped_column(sa.Integer, default=0)
+    sent_at: Mapped[datetime | None] = mapped_column(sa.DateTime(timezone=True))
+    key_id: Mapped[str | None] = mapped_column(sa.String(ID_LENGTH), index=True)
+    batch_id: Mapped[str | None] = mapped_column(sa.String(ID_LENGTH), index=True)
+    batch_position: Mapped[int | None] = mapped_column(sa.Integer)
+
+
+class _BatchRow(_Base):
+    __tablename__ = "batches"
+
+    id: Mapped[str] = mapped_column(sa.String(ID_LENGTH), primary_key=True)
+    name: Mapped[str] = mapped_column(sa.String(NAME_LENGTH))
+    created_at: Mapped[datetime] = mapped_column(sa.DateTime(timezone=True), index=True)
+    size: Mapped[int] = mapped_column(sa.Integer)
+    key_id: Mapped[str | None] = mapped_column(sa.String(ID_LENGTH))
 
 
 class _KeyRow(_Base):
@@ -206,17 +226,8 @@ class Store:
         """Store a new plan (its ``id`` must be set)."""
         if plan.id is None:
             raise ValueError("plan.id is None; only identified plans are stored")
-        row = _PlanRow(
-            id=plan.id,
-            created_at=plan.created_at,
-            parent_id=plan.parent_id,
-            name=plan.name,
-            status=plan.status.value,
-            request_json=request.model_dump_json(),
-            plan_json=plan.model_dump_json(),
-        )
         with self._session() as session:
-            session.add(row)
+            session.add(_plan_row(plan, request, None))
 
     def get_plan(self, plan_id: str) -> StoredPlan | None:
         """The stored plan with this id, or ``None``."""
@@ -254,9 +265,26 @@ class Store:
         return items, total
 
     # ------------------------------------------------------------------------ jobs
+    #
+    # A job's row is the truth about it; a queue only carries its id.  The process running a job
+    # (or, in-process, holding it queued) is its ``owner`` and keeps a lease on it
+    # (``lease_until``).  A job whose lease ran out is adopted again by any live process
+    # (:meth:`adopt_expired`), so a killed worker strands nothing; :meth:`claim_job` and
+    # :meth:`finish_job` are compare-and-set, and ``plans.job_id`` is unique, so a job that runs
+    # twice still gives one plan.
 
-    def add_job(self, job_id: str, request: PlanRequest) -> JobOut:
-        """Store a new queued job."""
+    def add_job(
+        self,
+        job_id: str,
+        request: PlanRequest,
+        *,
+        owner: str | None = None,
+        lease_s: float | None = None,
+        key_id: str | None = None,
+        batch: tuple[str, int] | None = None,
+    ) -> JobOut:
+        """Store a new queued job, held by ``owner`` for ``lease_s`` (in-process queue) or by
+        nobody (a distributed queue carries it)."""
         now = utc_now()
         row = _JobRow(
             id=job_id,
@@ -265,9 +293,12 @@ class Store:
             created_at=now,
             updated_at=now,
             request_json=request.model_dump_json(),
-            progress_json=None,
-            plan_id=None,
-            error_json=None,
+            owner=owner,
+            lease_until=None if lease_s is None else now + timedelta(seconds=lease_s),
+            attempts=0,
+            key_id=key_id,
+            batch_id=None if batch is None else batch[0],
+            batch_position=None if batch is None else batch[1],
         )
         with self._session() as session:
             session.add(row)
@@ -281,40 +312,187 @@ class Store:
                 return None
             return JobRecord(_job_out(row), PlanRequest.model_validate_json(row.request_json))
 
-    def update_job(
-        self,
-        job_id: str,
-        *,
-        state: JobState | None = None,
-        progress: JobProgress | None = None,
-        plan_id: str | None = None,
-        error: dict[str, Any] | None = None,
-    ) -> None:
-        """Change a job's state, progress, plan or error (only the given ones)."""
-        values: dict[str, Any] = {"updated_at": utc_now()}
-        if state is not None:
-            values["state"] = state.value
-        if progress is not None:
-            values["progress_json"] = progress.model_dump_json()
-        if plan_id is not None:
-            values["plan_id"] = plan_id
-        if error is not None:
-            values["error_json"] = json.dumps(error)
+    def claim_job(self, job_id: str, owner: str, lease_s: float) -> JobRecord | None:
+        """Start the job for ``owner``: it must be queued (and not held by another live owner)
+        or running on an expired lease.  None when someone else has it or it has ended."""
+        now = utc_now()
+        free = sa.or_(_JobRow.owner.is_(None), _JobRow.owner == owner, _JobRow.lease_until < now)
+        claimable = sa.or_(
+            sa.and_(_JobRow.state == JobState.QUEUED.value, free),
+            sa.and_(_JobRow.state == JobState.RUNNING.value, _JobRow.lease_until < now),
+        )
+        values = {
+            "state": JobState.RUNNING.value,
+            "owner": owner,
+            "lease_until": now + timedelta(seconds=lease_s),
+            "attempts": _JobRow.attempts + 1,
+            "updated_at": now,
+        }
         with self._session() as session:
-            session.execute(sa.update(_JobRow).where(_JobRow.id == job_id).values(**values))
+            claimed = session.execute(
+                sa.update(_JobRow).where(_JobRow.id == job_id, claimable).values(**values)
+            )
+            if _changed(claimed) != 1:
+                return None
+        return self.get_job(job_id)
 
-    def unfinished_jobs(self) -> list[str]:
-        """Ids of jobs still queued or running, oldest first (to requeue after a restart)."""
-        states = [JobState.QUEUED.value, JobState.RUNNING.value]
-        query = sa.select(_JobRow.id).where(_JobRow.state.in_(states)).order_by(_JobRow.created_at)
+    def renew_leases(self, owner: str, job_ids: Iterable[str], lease_s: float) -> set[str]:
+        """Extend ``owner``'s lease on these jobs; returns the ones it still holds (a job
+        cancelled, finished or adopted by another process is not among them)."""
+        ids = list(job_ids)
+        if not ids:
+            return set()
+        held = sa.and_(_JobRow.id.in_(ids), _JobRow.owner == owner, _JobRow.state.in_(UNFINISHED))
+        until = utc_now() + timedelta(seconds=lease_s)
+        with self._session() as session:
+            session.execute(sa.update(_JobRow).where(held).values(lease_until=until))
+            return set(session.scalars(sa.select(_JobRow.id).where(held)))
+
+    def record_progress(self, job_id: str, owner: str, progress: JobProgress) -> bool:
+        """Store the running job's latest progress; False when ``owner`` no longer runs it."""
+        running = sa.and_(
+            _JobRow.id == job_id, _JobRow.owner == owner, _JobRow.state == JobState.RUNNING.value
+        )
+        values = {"progress_json": progress.model_dump_json(), "updated_at": utc_now()}
+        with self._session() as session:
+            return bool(
+                _changed(session.execute(sa.update(_JobRow).where(running).values(**values)))
+            )
+
+    def finish_job(self, job_id: str, plan: PlanOut, request: PlanRequest) -> str | None:
+        """Store the job's plan and mark it done, in one transaction.  When another attempt
+        stored a plan first, the job keeps that one (its id is returned); None when the job was
+        cancelled meanwhile (nothing is stored)."""
+        if plan.id is None:
+            raise ValueError("plan.id is None; only identified plans are stored")
+        try:
+            with self._session() as session:
+                row = session.get(_JobRow, job_id, with_for_update=True)
+                if row is None or row.state == JobState.CANCELLED.value:
+                    return None
+                if row.state == JobState.DONE.value:
+                    return row.plan_id
+                session.add(_plan_row(plan, request, job_id))
+                session.flush()
+                _mark_done(row, plan.id)
+                return plan.id
+        except sa.exc.IntegrityError:  # another attempt stored this job's plan first
+            with self._session() as session:
+                first = session.scalar(sa.select(_PlanRow.id).where(_PlanRow.job_id == job_id))
+                row = session.get(_JobRow, job_id, with_for_update=True)
+                if row is not None and first is not None and row.state in UNFINISHED:
+                    _mark_done(row, first)
+                return first
+
+    def fail_job(self, job_id: str, owner: str, error: dict[str, Any]) -> bool:
+        """Mark the job failed with a problem document, if ``owner`` still runs it."""
+        return self._end_held(job_id, owner, state=JobState.FAILED, error_json=json.dumps(error))
+
+    def release_job(self, job_id: str, owner: str) -> bool:
+        """Give a job ``owner`` holds back to the queue (its process is stopping)."""
+        values = {"state": JobState.QUEUED, "owner": None, "lease_until": None, "sent_at": None}
+        return self._end_held(job_id, owner, **values)
+
+    def _end_held(self, job_id: str, holder: str, **values: Any) -> bool:
+        if isinstance(values.get("state"), JobState):
+            values["state"] = values["state"].value
+        held = sa.and_(_JobRow.id == job_id, _JobRow.owner == holder, _JobRow.state.in_(UNFINISHED))
+        with self._session() as session:
+            changed = session.execute(
+                sa.update(_JobRow).where(held).values(updated_at=utc_now(), **values)
+            )
+            return bool(_changed(changed))
+
+    def cancel_job(self, job_id: str) -> JobOut | None:
+        """Cancel a queued or running job (its runner notices at its next lease renewal and
+        stores nothing); the job as it now stands, or None when there is no such job."""
+        unfinished = sa.and_(_JobRow.id == job_id, _JobRow.state.in_(UNFINISHED))
+        values = {"state": JobState.CANCELLED.value, "lease_until": None, "updated_at": utc_now()}
+        with self._session() as session:
+            session.execute(sa.update(_JobRow).where(unfinished).values(**values))
+            row = session.get(_JobRow, job_id)
+            return None if row is None else _job_out(row)
+
+    def adopt_jobs(
+        self, owner: str | None, lease_s: float | None, *, unheld: bool = False, limit: int = 100
+    ) -> list[str]:
+        """Take over jobs whose holder stopped renewing their lease (and, with ``unheld``,
+        queued jobs nobody holds or sent): they become queued again, held by ``owner`` for
+        ``lease_s`` (in-process) or by nobody, to be sent to the queue again."""
+        now = utc_now()
+        adoptable = sa.and_(_JobRow.state.in_(UNFINISHED), _JobRow.lease_until < now)
+        if unheld:
+            free = sa.and_(
+                _JobRow.state == JobState.QUEUED.value,
+                _JobRow.owner.is_(None),
+                _JobRow.sent_at.is_(None),
+            )
+            adoptable = sa.or_(adoptable, free)
+        until = None if lease_s is None else now + timedelta(seconds=lease_s)
+        values = {
+            "state": JobState.QUEUED.value,
+            "owner": owner,
+            "lease_until": until,
+            "sent_at": None,
+            "updated_at": now,
+        }
+        with self._session() as session:
+            candidates = session.scalars(
+                sa.select(_JobRow.id).where(adoptable).order_by(_JobRow.created_at).limit(limit)
+            ).all()
+        adopted = []
+        for job_id in candidates:  # one compare-and-set each: two adopters never both win
+            with self._session() as session:
+                won = session.execute(
+                    sa.update(_JobRow).where(_JobRow.id == job_id, adoptable).values(**values)
+                )
+                if _changed(won) == 1:
+                    adopted.append(job_id)
+        return adopted
+
+    def unsent_jobs(self, older_than_s: float, limit: int = 100) -> list[str]:
+        """Queued jobs nobody holds and no queue has been given (their sender stopped between
+        storing and sending them), older than ``older_than_s``."""
+        cutoff = utc_now() - timedelta(seconds=older_than_s)
+        query = (
+            sa.select(_JobRow.id)
+            .where(
+                _JobRow.state == JobState.QUEUED.value,
+                _JobRow.owner.is_(None),
+                _JobRow.sent_at.is_(None),
+                _JobRow.updated_at < cutoff,
+            )
+            .order_by(_JobRow.created_at)
+            .limit(limit)
+        )
         with self._session() as session:
             return list(session.scalars(query))
 
-    def count_jobs(self, state: JobState) -> int:
-        """How many jobs are in ``state``."""
+    def mark_sent(self, job_id: str, sent: bool = True) -> bool:
+        """Record that the job was handed to the queue (False: another process did it first).
+        ``sent=False`` undoes it after a failed send."""
+        if sent:
+            where = sa.and_(_JobRow.id == job_id, _JobRow.sent_at.is_(None))
+            value = utc_now()
+        else:
+            where, value = _JobRow.id == job_id, None
+        with self._session() as session:
+            return bool(
+                _changed(session.execute(sa.update(_JobRow).where(where).values(sent_at=value)))
+            )
+
+    def count_jobs(self, state: JobState, *, key_id: str | None = None) -> int:
+        """How many jobs are in ``state`` (only those submitted with ``key_id``, when given)."""
         query = sa.select(sa.func.count()).select_from(_JobRow).where(_JobRow.state == state.value)
+        if key_id is not None:
+            query = query.where(_JobRow.key_id == key_id)
         with self._session() as session:
             return int(session.scalar(query) or 0)
+
+    def plans_of_job(self, job_id: str) -> list[str]:
+        """Ids of the plans stored for this job (never more than one)."""
+        with self._session() as session:
+            return list(session.scalars(sa.select(_PlanRow.id).where(_PlanRow.job_id == job_id)))
 
     # ------------------------------------------------------------------------ idempotency
 
@@ -385,6 +563,31 @@ class Store:
             return bool(session.scalar(query.where(_KeyRow.revoked_at.is_(None))))
 
 
+def _changed(result: sa.Result[Any]) -> int:
+    """Rows an UPDATE changed (every UPDATE result is a cursor result)."""
+    return int(cast("sa.CursorResult[Any]", result).rowcount)
+
+
+def _plan_row(plan: PlanOut, request: PlanRequest, job_id: str | None) -> _PlanRow:
+    return _PlanRow(
+        id=plan.id,
+        created_at=plan.created_at,
+        parent_id=plan.parent_id,
+        name=plan.name,
+        status=plan.status.value,
+        request_json=request.model_dump_json(),
+        plan_json=plan.model_dump_json(),
+        job_id=job_id,
+    )
+
+
+def _mark_done(row: _JobRow, plan_id: str) -> None:
+    row.state = JobState.DONE.value
+    row.plan_id = plan_id
+    row.lease_until = None
+    row.updated_at = utc_now()
+
+
 def _job_out(row: _JobRow) -> JobOut:
     progress = (
         None if row.progress_json is None else JobProgress.model_validate_json(row.progress_json)
@@ -399,4 +602,6 @@ def _job_out(row: _JobRow) -> JobOut:
         plan_id=row.plan_id,
         plan_url=None if row.plan_id is None else f"/v1/plans/{row.plan_id}",
         error=None if row.error_json is None else json.loads(row.error_json),
+        attempts=row.attempts or 0,
+        batch_id=row.batch_id,
     )

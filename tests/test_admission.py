@@ -176,7 +176,7 @@ DEMO = Path(__file__).resolve().parents[1] / "examples" / "demo-request.json"
 
 @pytest.fixture(scope="module")
 def demo() -> tuple[Problem, Plan]:
-    from service.jobs import to_problem
+    from service.convert import to_problem
     from service.schemas import PlanRequest
 
     request = PlanRequest.model_validate(json.loads(DEMO.read_text()))

@@ -5,7 +5,7 @@ from __future__ import annotations
 from fastapi import APIRouter
 from starlette.concurrency import run_in_threadpool
 
-from service.jobs import amplifier_from_wire, coding_from_wire, finite_or_none
+from service.convert import amplifier_from_wire, coding_from_wire, finite_or_none
 from service.routes.plans import PROBLEM_RESPONSES
 from service.schemas import EvaluateRequest, EvaluateResponse, LeakageAtGap
 from solver import evaluate_carrier, parse_code_rate

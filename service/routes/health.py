@@ -8,10 +8,10 @@ from typing import Annotated
 from fastapi import APIRouter, Depends, Response
 from fastapi.responses import JSONResponse
 
-from service.jobs import Runtime, get_runtime
 from service.keys import authorise
 from service.metrics import CONTENT_TYPE
 from service.routes.plans import AUTH_RESPONSES
+from service.runtime import Runtime, get_runtime
 from service.schemas import HealthOut
 from service.store import StoreUnavailableError
 

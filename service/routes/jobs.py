@@ -1,4 +1,4 @@
-"""Background solves: ``POST /v1/jobs`` (202 + Location) and ``GET /v1/jobs/{id}``."""
+"""Background solves: ``POST /v1/jobs`` (202 + Location), ``GET`` and ``DELETE /v1/jobs/{id}``."""
 
 from __future__ import annotations
 
@@ -7,10 +7,11 @@ from typing import Annotated
 import anyio.to_thread
 from fastapi import APIRouter, Depends, Path, Request, Response
 
-from service.errors import NotFoundError, ServiceError
+from service.errors import ConflictError, NotFoundError, ServiceError
 from service.idempotency import IdempotencyKey, remember, replayed
-from service.jobs import Runtime, get_runtime
+from service.keys import key_id_of
 from service.routes.plans import BUSY, PROBLEM_RESPONSES, _problem
+from service.runtime import Runtime, get_runtime
 from service.schemas import JobOut, JobState, PlanRequest
 
 __all__ = ["router"]
@@ -41,7 +42,8 @@ async def create_job(
     first = await anyio.to_thread.run_sync(replayed, runtime.store, request, idempotency_key, body)
     if first is not None:
         return first
-    job = await anyio.to_thread.run_sync(jobs.submit, body)
+    owner_key = key_id_of(request)
+    job = await anyio.to_thread.run_sync(lambda: jobs.submit(body, owner_key=owner_key))
     answer = (202, f"/v1/jobs/{job.id}", job)
     await anyio.to_thread.run_sync(remember, runtime.store, request, idempotency_key, body, answer)
     response.headers["Location"] = f"/v1/jobs/{job.id}"
@@ -65,3 +67,31 @@ def get_job(
     if record.job.state in (JobState.QUEUED, JobState.RUNNING):
         response.headers["Retry-After"] = str(runtime.settings.retry_after_s)
     return record.job
+
+
+@router.delete(
+    "/{job_id}",
+    operation_id="cancel_job",
+    summary="Cancel a queued or running job",
+    responses={
+        404: _problem("no job with that id"),
+        409: _problem("the job has already ended (done, failed or cancelled)"),
+    },
+)
+def cancel_job(job_id: JobId, runtime: Annotated[Runtime, Depends(get_runtime)]) -> JobOut:
+    """A queued job is dropped; a running one stops its search within a lease tick and stores
+    nothing.  The job comes back ``cancelled``."""
+    jobs = runtime.jobs
+    if jobs is None:
+        raise ServiceError("the job manager is not running")
+    before = runtime.store.get_job(job_id)
+    if before is None:
+        raise NotFoundError("job", job_id)
+    if before.job.state not in (JobState.QUEUED, JobState.RUNNING):
+        raise ConflictError(f"job {job_id} has already ended ({before.job.state.value})")
+    job = jobs.cancel(job_id)
+    if job is None:
+        raise NotFoundError("job", job_id)
+    if job.state is not JobState.CANCELLED:
+        raise ConflictError(f"job {job_id} ended before it could be cancelled ({job.state.value})")
+    return job

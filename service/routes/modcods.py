@@ -6,7 +6,7 @@ from typing import Annotated
 
 from fastapi import APIRouter, Query
 
-from service.jobs import finite_or_none
+from service.convert import finite_or_none
 from service.routes.plans import PROBLEM_RESPONSES
 from service.schemas import ModcodOut
 from solver import Coding, Modulation, catalogue, format_code_rate

@@ -10,17 +10,10 @@ import anyio.to_thread
 from fastapi import APIRouter, Depends, Path, Query, Request, Response
 
 from service.caching import entity_tag, immutable, not_modified
+from service.convert import plan_from_wire, setting_from_wire, to_problem
 from service.errors import ClientGoneError, NotFoundError
 from service.idempotency import IdempotencyKey, remember, replayed
-from service.jobs import (
-    Runtime,
-    get_runtime,
-    plan_from_wire,
-    prepare,
-    run_solve,
-    store_plan,
-    to_problem,
-)
+from service.runtime import Runtime, get_runtime, prepare, run_solve, store_plan
 from service.schemas import (
     CarrierOut,
     DemandIn,
@@ -34,7 +27,7 @@ from service.schemas import (
     SettingOut,
 )
 from service.store import StoredPlan
-from solver import CurrentSetting, SolveCancelledError, parse_code_rate, setting_change
+from solver import SolveCancelledError, setting_change
 
 __all__ = ["AUTH_RESPONSES", "COMMON_RESPONSES", "PROBLEM_RESPONSES", "router"]
 
@@ -273,16 +266,6 @@ def compare_settings(
     return retunes
 
 
-def _solver_setting(setting: SettingOut) -> CurrentSetting:
-    return CurrentSetting(
-        center_hz=setting.center_hz,
-        symbol_rate_baud=setting.symbol_rate_baud,
-        rolloff=setting.rolloff,
-        modulation=setting.modulation,
-        code_rate=parse_code_rate(setting.code_rate),
-    )
-
-
 def _change(old: SettingOut | None, new: SettingOut | None) -> RetuneChange | None:
     """The solver's rule (:func:`solver.setting_change`), so that this list and the plan's
     ``retuned`` flags agree."""
@@ -290,7 +273,7 @@ def _change(old: SettingOut | None, new: SettingOut | None) -> RetuneChange | No
         return RetuneChange.ADDED
     if new is None:
         return RetuneChange.DROPPED
-    change = setting_change(_solver_setting(old), _solver_setting(new))
+    change = setting_change(setting_from_wire(old), setting_from_wire(new))
     if change.moved and change.reconfigured:
         return RetuneChange.MOVED_AND_RECONFIGURED
     if change.moved:

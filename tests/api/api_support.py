@@ -18,7 +18,7 @@ import pytest
 import sqlalchemy as sa
 from fastapi import FastAPI
 
-from service.jobs import SolveFunction
+from service.runtime import SolveFunction
 from service.settings import Settings
 from solver.model import Plan, Problem, ProgressEvent
 

@@ -8,7 +8,7 @@ import pytest
 from fastapi import FastAPI
 
 from service.app import create_app
-from service.jobs import SolveFunction
+from service.runtime import SolveFunction
 from service.settings import Settings
 
 

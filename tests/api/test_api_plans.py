@@ -16,7 +16,7 @@ from api_support import serving, small_request
 from fastapi import FastAPI
 
 from service.app import create_app
-from service.jobs import SolveFunction
+from service.runtime import SolveFunction
 from service.settings import Settings
 
 pytestmark = pytest.mark.anyio

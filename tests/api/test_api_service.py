@@ -17,7 +17,7 @@ import pytest
 from api_support import BlockingSolve, serving, small_request
 
 from service.app import create_app
-from service.jobs import SolveFunction
+from service.runtime import SolveFunction
 from service.schemas import JobState
 from service.settings import Settings
 from service.store import Store

@@ -55,9 +55,9 @@ async def test_a_store_that_is_down_is_a_503_before_any_solve(
 async def test_a_store_that_drops_out_during_the_solve_is_retried(
     settings: Settings, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    import service.jobs
+    import service.runtime
 
-    monkeypatch.setattr(service.jobs, "STORE_RETRIES_S", (0.01, 0.01, 0.01))
+    monkeypatch.setattr(service.runtime, "STORE_RETRIES_S", (0.01, 0.01, 0.01))
     real_add = Store.add_plan
     failures = iter([True, True])  # two failed attempts, then the store is back
 
@@ -78,9 +78,9 @@ async def test_a_store_that_drops_out_during_the_solve_is_retried(
 async def test_a_store_that_stays_down_after_the_solve_is_a_503_not_a_500(
     settings: Settings, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    import service.jobs
+    import service.runtime
 
-    monkeypatch.setattr(service.jobs, "STORE_RETRIES_S", (0.01, 0.01))
+    monkeypatch.setattr(service.runtime, "STORE_RETRIES_S", (0.01, 0.01))
     monkeypatch.setattr(Store, "add_plan", _down)
     app = create_app(settings)
     async with serving(app) as client:

@@ -12,7 +12,7 @@ import pytest
 from api_support import on_postgres, serving, small_request
 
 from service.app import create_app
-from service.jobs import SolveFunction
+from service.runtime import SolveFunction
 from service.settings import Settings
 
 pytestmark = pytest.mark.anyio
