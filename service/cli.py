@@ -394,6 +394,37 @@ def _cmd_keys(args: argparse.Namespace) -> ExitCode:
     return ExitCode.SERVED
 
 
+WORKER_STALE_AFTER_S = 60.0
+"""`worker --check` fails when the heartbeat file is older than this (six missed beats)."""
+
+
+def _cmd_worker(args: argparse.Namespace) -> ExitCode:
+    """``worker``: run a Celery worker for background jobs; ``--check``: is one alive here?"""
+    settings = Settings()
+    if args.check:
+        from service.worker import heartbeat_age_s
+
+        age = heartbeat_age_s(settings)
+        if age is None or age > WORKER_STALE_AFTER_S:
+            seen = "no heartbeat file" if age is None else f"last heartbeat {age:.0f} s ago"
+            raise CliError(ExitCode.FAILED, f"worker not alive: {seen}")
+        _err(f"worker alive: last heartbeat {age:.0f} s ago")
+        return ExitCode.SERVED
+    if settings.broker_url is None:
+        raise CliError(ExitCode.INVALID, "BANDWRIGHT_BROKER_URL is not set: no queue to work for")
+    from service.store import Store
+    from service.worker import run_worker
+
+    store = Store(settings.database_url)
+    try:
+        store.ensure_schema()
+    finally:
+        store.close()
+    logging.getLogger().setLevel(logging.INFO)
+    run_worker(settings, args.concurrency)
+    return ExitCode.SERVED
+
+
 def _free_socket() -> socket.socket:
     sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
     sock.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
@@ -461,6 +492,14 @@ def _parser() -> argparse.ArgumentParser:
     revoke = actions.add_parser("revoke", help="revoke a key by its id")
     revoke.add_argument("id")
     keys.set_defaults(run=_cmd_keys)
+    worker = sub.add_parser("worker", help="run a worker for background jobs (needs a broker)")
+    worker.add_argument(
+        "--concurrency", type=int, default=1, help="jobs solved at once (processes; default 1)"
+    )
+    worker.add_argument(
+        "--check", action="store_true", help="exit 0 when a worker here beat in the last minute"
+    )
+    worker.set_defaults(run=_cmd_worker)
     demo = sub.add_parser("demo", help="start a local service and plan the demo request")
     demo.add_argument("--request", type=Path, default=DEMO_REQUEST, help="request to plan")
     demo.add_argument("--svg", type=Path, default=DEMO_SVG, help="where to write the picture")
