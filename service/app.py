@@ -21,7 +21,7 @@ from service.errors import BodyLimitMiddleware, UnexpectedErrorMiddleware, insta
 from service.keys import authorise
 from service.metrics import Metrics, MetricsMiddleware
 from service.queue import BrokerJobQueue, LocalJobQueue
-from service.routes import carriers, health, jobs, modcods, plans
+from service.routes import batches, carriers, health, jobs, modcods, plans
 from service.routes.plans import AUTH_RESPONSES, COMMON_RESPONSES
 from service.runtime import Runtime, SolveFunction, SolveGate
 from service.settings import Settings, get_settings
@@ -115,7 +115,7 @@ def create_app(settings: Settings | None = None, *, solve: SolveFunction | None 
     app.add_middleware(BodyLimitMiddleware, limit_bytes=settings.max_body_bytes)
     app.add_middleware(MetricsMiddleware, metrics=metrics)
     app.add_middleware(NoSniffMiddleware)
-    for module in (plans, jobs, carriers, modcods):
+    for module in (plans, jobs, batches, carriers, modcods):
         app.include_router(
             module.router, dependencies=[Depends(authorise)], responses=AUTH_RESPONSES
         )

@@ -174,7 +174,13 @@ class SolveGate:
 class JobQueue(Protocol):
     """Background solves (:mod:`service.queue`): in-process threads or a distributed queue."""
 
-    def submit(self, request: PlanRequest, *, owner_key: str | None = None) -> JobOut: ...
+    def submit(
+        self,
+        request: PlanRequest,
+        *,
+        owner_key: str | None = None,
+        batch: tuple[str, int] | None = None,
+    ) -> JobOut: ...
     def cancel(self, job_id: str) -> JobOut | None: ...
     def shutdown(self) -> None: ...
 

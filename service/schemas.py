@@ -30,6 +30,7 @@ from solver import (
 
 MAX_DEMANDS = 2000
 MAX_EXCLUSIONS = 200
+MAX_BATCH_ITEMS = 500
 MAX_ROLLOFFS = 16
 MAX_GAPS = 64
 MAX_TIME_LIMIT_S = 300.0
@@ -568,6 +569,77 @@ class JobOut(BaseModel):
         "the job still gives at most one plan)",
     )
     batch_id: str | None = Field(None, description="the batch this job belongs to, if any")
+
+
+class BatchRequest(WireModel):
+    """Many plan or replan requests (one per block or region, say) solved as background jobs."""
+
+    name: str = Field(
+        "batch",
+        min_length=1,
+        max_length=200,
+        pattern=PRINTABLE_PATTERN,
+        description="label of the batch (no control characters)",
+    )
+    items: list[PlanRequest] = Field(
+        min_length=1,
+        max_length=MAX_BATCH_ITEMS,
+        description="each a plan request; a replan names its `previous_plan_id`",
+    )
+
+
+class BatchOutcome(StrEnum):
+    """How an item ended, or the worst of them, from best to worst."""
+
+    PENDING = "pending"
+    SERVED = "served"
+    UNSERVED = "unserved"
+    INFEASIBLE = "infeasible"
+    CANCELLED = "cancelled"
+    FAILED = "failed"
+
+
+class BatchItemOut(BaseModel):
+    """One item of a batch: its job and, once done, its plan's outcome."""
+
+    position: int = Field(description="index of the item in the request's `items`")
+    name: str
+    job_id: str
+    job_url: str
+    state: JobState
+    outcome: BatchOutcome = Field(
+        description="served: every demand served; unserved: some not; infeasible: none; "
+        "pending while the job is queued or running"
+    )
+    plan_id: str | None
+    plan_url: str | None
+    unserved_count: int | None = Field(description="demands the plan leaves unserved")
+    error: dict[str, Any] | None = Field(description="problem document when the job failed")
+
+
+class BatchSummary(BaseModel):
+    """Counts by job state, and the worst outcome so far."""
+
+    total: int
+    queued: int
+    running: int
+    done: int
+    failed: int
+    cancelled: int
+    finished: bool = Field(description="every item has ended")
+    worst: BatchOutcome = Field(
+        description="the worst outcome among ended items (pending while none has ended)"
+    )
+
+
+class BatchOut(BaseModel):
+    """A batch of background solves and where each stands."""
+
+    id: str
+    name: str
+    created_at: datetime
+    items: list[BatchItemOut]
+    summary: BatchSummary
 
 
 class HealthOut(BaseModel):

@@ -24,6 +24,8 @@ from service.errors import StoreUnavailableError
 from service.schemas import JobOut, JobProgress, JobState, PlanListItem, PlanOut, PlanRequest
 
 __all__ = [
+    "BatchEntry",
+    "BatchRecord",
     "JobRecord",
     "KeyRecord",
     "Replay",
@@ -163,6 +165,27 @@ class JobRecord:
 
     job: JobOut
     request: PlanRequest
+
+
+@dataclass(frozen=True)
+class BatchEntry:
+    """One job of a batch, with its plan's status and unserved count once it is done."""
+
+    job: JobOut
+    position: int
+    plan_status: str | None
+    unserved_count: int | None
+
+
+@dataclass(frozen=True)
+class BatchRecord:
+    """A batch as stored, with its jobs in item order."""
+
+    id: str
+    name: str
+    created_at: datetime
+    size: int
+    entries: list[BatchEntry]
 
 
 def _make_engine(url: str) -> Engine:
@@ -489,10 +512,49 @@ class Store:
         with self._session() as session:
             return int(session.scalar(query) or 0)
 
+    def job_owner(self, job_id: str) -> str | None:
+        """The process holding the job now (``host:pid:tag``), if any."""
+        with self._session() as session:
+            return session.scalar(sa.select(_JobRow.owner).where(_JobRow.id == job_id))
+
+    def count_plans(self) -> int:
+        """How many plans are stored."""
+        with self._session() as session:
+            return int(session.scalar(sa.select(sa.func.count()).select_from(_PlanRow)) or 0)
+
     def plans_of_job(self, job_id: str) -> list[str]:
         """Ids of the plans stored for this job (never more than one)."""
         with self._session() as session:
             return list(session.scalars(sa.select(_PlanRow.id).where(_PlanRow.job_id == job_id)))
+
+    # ------------------------------------------------------------------------ batches
+
+    def add_batch(self, batch_id: str, name: str, size: int, key_id: str | None) -> datetime:
+        """Store a new batch (its jobs are added with ``batch=(batch_id, position)``)."""
+        now = utc_now()
+        row = _BatchRow(id=batch_id, name=name, created_at=now, size=size, key_id=key_id)
+        with self._session() as session:
+            session.add(row)
+        return now
+
+    def get_batch(self, batch_id: str) -> BatchRecord | None:
+        """The batch with its jobs in item order, each with its plan's status and unserved
+        count once done; None when there is no such batch."""
+        query = (
+            sa.select(_JobRow, _PlanRow.status, _PlanRow.plan_json)
+            .outerjoin(_PlanRow, _PlanRow.id == _JobRow.plan_id)
+            .where(_JobRow.batch_id == batch_id)
+            .order_by(_JobRow.batch_position)
+        )
+        with self._session() as session:
+            batch = session.get(_BatchRow, batch_id)
+            if batch is None:
+                return None
+            items = []
+            for job, status, plan_json in session.execute(query):
+                unserved = None if plan_json is None else len(json.loads(plan_json)["unserved"])
+                items.append(BatchEntry(_job_out(job), job.batch_position or 0, status, unserved))
+            return BatchRecord(batch.id, batch.name, _aware(batch.created_at), batch.size, items)
 
     # ------------------------------------------------------------------------ idempotency
 
