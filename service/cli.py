@@ -20,6 +20,7 @@ from __future__ import annotations
 import argparse
 import json
 import logging
+import os
 import socket
 import sys
 import threading
@@ -233,6 +234,13 @@ def _problem_exit(response: httpx.Response) -> CliError:
     return CliError(ExitCode.FAILED, f"server answered {response.status_code}: {detail}")
 
 
+def _client(server: str) -> httpx.Client:
+    """An HTTP client for the service, sending ``BANDWRIGHT_API_KEY`` as a bearer key if set."""
+    key = os.environ.get("BANDWRIGHT_API_KEY", "")
+    headers = {"Authorization": f"Bearer {key}"} if key else {}
+    return httpx.Client(base_url=server, timeout=HTTP_TIMEOUT_S, headers=headers)
+
+
 def _post_job(client: httpx.Client, payload: dict[str, Any]) -> str:
     for _ in range(BUSY_RETRIES):
         response = client.post("/v1/jobs", json=payload)
@@ -291,7 +299,7 @@ def _solve_remote(
 ) -> tuple[PlanOut, bytes | None]:
     payload = _request_for_server(request, previous)
     try:
-        with httpx.Client(base_url=server, timeout=HTTP_TIMEOUT_S) as client:
+        with _client(server) as client:
             plan_url = _wait_for_job(client, _post_job(client, payload))
             response = client.get(plan_url)
             if response.status_code != httpx.codes.OK:
@@ -326,7 +334,103 @@ def _finish(plan: PlanOut, svg: bytes | None, outputs: _Outputs) -> ExitCode:
     return exit_code_for(plan)
 
 
+OUTCOME_EXIT = {
+    "served": ExitCode.SERVED,
+    "unserved": ExitCode.UNSERVED,
+    "infeasible": ExitCode.INFEASIBLE,
+    "cancelled": ExitCode.FAILED,
+    "failed": ExitCode.FAILED,
+}
+"""Exit code of a batch by its worst outcome (that of a single plan for the same outcome)."""
+
+
+def _load_batch(directory: Path) -> list[tuple[Path, PlanRequest]]:
+    if not directory.is_dir():
+        raise _invalid([FieldIssue("--batch", f"{directory} is not a directory")])
+    files = sorted(directory.glob("*.json"))
+    if not files:
+        raise _invalid([FieldIssue("--batch", f"no *.json request in {directory}")])
+    loaded, issues = [], []
+    for path in files:
+        try:
+            loaded.append((path, _load_request(path)))
+        except CliError as exc:
+            issues.append(FieldIssue(path.name, str(exc).removeprefix("invalid input: ")))
+    if issues:
+        raise _invalid(issues)
+    return loaded
+
+
+def _post_batch(client: httpx.Client, payload: dict[str, Any]) -> str:
+    for _ in range(BUSY_RETRIES):
+        response = client.post("/v1/batches", json=payload)
+        if response.status_code == httpx.codes.SERVICE_UNAVAILABLE:
+            time.sleep(float(response.headers.get("Retry-After", "1")))
+            continue
+        if response.status_code != httpx.codes.ACCEPTED:
+            raise _problem_exit(response)
+        return str(response.headers["Location"])
+    raise CliError(ExitCode.FAILED, "the server stayed busy; try again later")
+
+
+def _follow_batch(client: httpx.Client, location: str, total: int) -> dict[str, Any]:
+    from tqdm import tqdm
+
+    with tqdm(total=total, unit="plan", file=sys.stderr, dynamic_ncols=True) as bar:
+        while True:
+            response = client.get(location)
+            if response.status_code != httpx.codes.OK:
+                raise _problem_exit(response)
+            batch: dict[str, Any] = response.json()
+            s = batch["summary"]
+            bar.update(s["done"] + s["failed"] + s["cancelled"] - bar.n)
+            bar.set_postfix(running=s["running"], queued=s["queued"], worst=s["worst"])
+            if s["finished"]:
+                return batch
+            time.sleep(POLL_INTERVAL_S * 4)
+
+
+def _cmd_batch(args: argparse.Namespace) -> ExitCode:
+    """``replan --batch DIR --server URL``: every request in DIR as one batch of jobs."""
+    if args.server is None:
+        raise _invalid([FieldIssue("--server", "a batch runs on the service's workers")])
+    loaded = _load_batch(args.batch)
+    payload = {
+        "name": args.batch.resolve().name or "batch",
+        "items": [r.model_dump(mode="json") for _, r in loaded],
+    }
+    out_dir = args.batch / "plans" if args.output_dir is None else args.output_dir
+    try:
+        with _client(args.server) as client:
+            batch = _follow_batch(client, _post_batch(client, payload), len(loaded))
+            out_dir.mkdir(parents=True, exist_ok=True)
+            for (path, _), item in zip(loaded, batch["items"], strict=True):
+                line = f"{path.name}: {item['outcome']}"
+                if item["plan_url"]:
+                    plan = client.get(item["plan_url"])
+                    if plan.status_code != httpx.codes.OK:
+                        raise _problem_exit(plan)
+                    (out_dir / f"{path.stem}.plan.json").write_text(plan.text, encoding="utf-8")
+                    line += f" ({item['unserved_count']} unserved) → {item['plan_url']}"
+                elif item["error"]:
+                    line += f": {item['error'].get('detail', '')}"
+                print(line)
+    except httpx.TransportError as exc:
+        raise CliError(ExitCode.UNREACHABLE, f"server unreachable: {args.server}: {exc}") from exc
+    worst = batch["summary"]["worst"]
+    _err(f"batch {batch['id']}: {len(loaded)} item(s), worst outcome {worst}; plans in {out_dir}")
+    return OUTCOME_EXIT[worst]
+
+
 def _cmd_plan(args: argparse.Namespace) -> ExitCode:
+    if getattr(args, "batch", None) is not None:
+        if args.request is not None or args.previous is not None:
+            raise _invalid([FieldIssue("--batch", "give either --batch DIR or REQUEST.json")])
+        return _cmd_batch(args)
+    if args.request is None:
+        raise _invalid([FieldIssue("REQUEST.json", "required (or --batch DIR for replan)")])
+    if args.command == "replan" and args.previous is None:
+        raise _invalid([FieldIssue("--previous", "required with REQUEST.json")])
     request = _load_request(args.request)
     previous = _load_plan(args.previous) if getattr(args, "previous", None) else None
     outputs = _Outputs(args.output, args.svg)
@@ -476,9 +580,19 @@ def _parser() -> argparse.ArgumentParser:
     serve.set_defaults(run=_cmd_serve)
     for name, text in (("plan", "plan a request"), ("replan", "replan from a previous plan")):
         cmd = sub.add_parser(name, help=text)
-        cmd.add_argument("request", type=Path, metavar="REQUEST.json")
+        cmd.add_argument("request", type=Path, metavar="REQUEST.json", nargs="?")
         if name == "replan":
-            cmd.add_argument("--previous", type=Path, required=True, metavar="PLAN.json")
+            cmd.add_argument("--previous", type=Path, metavar="PLAN.json")
+            cmd.add_argument(
+                "--batch",
+                type=Path,
+                metavar="DIR",
+                help="every *.json request in DIR as one batch on --server (a replan names its "
+                "previous_plan_id); exit code of the worst outcome",
+            )
+            cmd.add_argument(
+                "--output-dir", type=Path, metavar="DIR", help="batch plans (default DIR/plans)"
+            )
         cmd.add_argument("--server", help="service URL; without it the plan is computed here")
         cmd.add_argument("-o", "--output", type=Path, metavar="PLAN.json", help="write the plan")
         cmd.add_argument("--svg", type=Path, metavar="FILE", help="write the spectrum picture")

@@ -9,6 +9,7 @@ from __future__ import annotations
 import copy
 import json
 import socket
+from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
@@ -142,3 +143,70 @@ def test_demo_serves_on_loopback_and_writes_the_picture(
     assert svg.read_bytes().lstrip().startswith((b"<?xml", b"<svg"))
     assert "plan " in captured.out and "(not stored)" not in captured.out
     assert (tmp_path / "bandwright.db").exists()
+
+
+@pytest.fixture
+def live_server(tmp_path: Path) -> Iterator[str]:
+    """The service on a loopback port of its own, with its own SQLite store."""
+    import threading
+    import time
+
+    import uvicorn
+
+    from service.app import create_app
+    from service.settings import Settings
+
+    settings = Settings(database_url=f"sqlite:///{tmp_path / 'server.db'}", job_workers=2)
+    sock = socket.socket()
+    sock.bind(("127.0.0.1", 0))
+    server = uvicorn.Server(uvicorn.Config(create_app(settings), log_level="warning"))
+    thread = threading.Thread(target=server.run, kwargs={"sockets": [sock]}, daemon=True)
+    thread.start()
+    deadline = time.monotonic() + 30
+    while not server.started and time.monotonic() < deadline:
+        time.sleep(0.05)
+    assert server.started
+    try:
+        yield f"http://127.0.0.1:{sock.getsockname()[1]}"
+    finally:
+        server.should_exit = True
+        thread.join(timeout=30)
+        sock.close()
+
+
+def test_a_batch_directory_runs_on_the_server_and_exits_with_the_worst(
+    tmp_path: Path, live_server: str, capsys: pytest.CaptureFixture[str]
+) -> None:
+    batch = tmp_path / "nightly"
+    batch.mkdir()
+    hopeless = {"id": "far", "min_rate_bps": 1e6, "target_rate_bps": 1e6, "esn0_db": -25.0}
+    _write(batch, _variant(name="east"), "east.json")
+    _write(batch, _variant(name="west"), "west.json")
+    _write(batch, _variant(name="south", demands=[*REQUEST["demands"], hopeless]), "south.json")
+    code = main(["replan", "--batch", str(batch), "--server", live_server])
+    out = capsys.readouterr().out
+    assert code == 3  # the worst item leaves a demand unserved
+    assert sorted(p.name for p in (batch / "plans").iterdir()) == [
+        "east.plan.json",
+        "south.plan.json",
+        "west.plan.json",
+    ]
+    south = json.loads((batch / "plans" / "south.plan.json").read_text(encoding="utf-8"))
+    assert [u["demand_id"] for u in south["unserved"]] == ["far"]
+    assert "east.json: served" in out
+    assert "south.json: unserved (1 unserved)" in out
+
+
+def test_a_batch_with_a_bad_file_exits_2_naming_it(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    batch = tmp_path / "nightly"
+    batch.mkdir()
+    _write(batch, REQUEST, "good.json")
+    _write(batch, _variant(time_limit_s=1000), "bad.json")
+    assert main(["replan", "--batch", str(batch), "--server", "http://127.0.0.1:9"]) == 2
+    err = capsys.readouterr().err
+    assert "bad.json" in err
+    assert "time_limit_s" in err
+    assert main(["replan", "--batch", str(batch)]) == 2  # no server
+    assert "--server" in capsys.readouterr().err
