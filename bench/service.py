@@ -10,6 +10,16 @@ store, then measures
 
 Targets on 2 cores: ≥ 500 evaluate req/s with p99 < 50 ms; overhead < 10 % of the solve time.
 Run: ``.venv/bin/python bench/service.py``.
+
+With ``--queue POSTGRES_URL`` (needs ``redis-server``, Debian's package) it also runs the job
+queue as deployed: an API process with a Redis broker and PostgreSQL, and 1 then 2
+``bandwright worker`` processes, and reports
+
+* plans per minute with 1 and 2 workers (the demo request, ``--queue-jobs`` jobs each);
+* the queue's overhead: a demo job's time from POST to ``done`` seen by polling, against the
+  same solve in this process, interleaved (target < 5 % of the solve);
+* evaluate throughput on the API with the broker configured, against the embedded default
+  measured in the same run (unchanged within noise).
 """
 
 from __future__ import annotations
@@ -63,10 +73,13 @@ def _free_port() -> int:
         return int(sock.getsockname()[1])
 
 
-def _start_server(db_dir: Path) -> tuple[subprocess.Popen[bytes], str]:
+def _start_server(
+    db_dir: Path, extra_env: dict[str, str] | None = None
+) -> tuple[subprocess.Popen[bytes], str]:
     port = _free_port()
     env = dict(os.environ, BANDWRIGHT_DATABASE_URL=f"sqlite:///{db_dir / 'bench.db'}")
     env["PYTHONPATH"] = str(ROOT)
+    env.update(extra_env or {})
     command = [
         sys.executable,
         "-m",
@@ -193,12 +206,152 @@ def _wrk_rows(light: dict[str, float] | None, seconds: int) -> list[tuple[str, s
     ]
 
 
+# ----------------------------------------------------------------------------- the job queue
+
+
+def _fresh_schema(postgres_url: str) -> str:
+    """A new empty schema in the PostgreSQL database; the URL that uses it."""
+    import uuid
+
+    import sqlalchemy as sa
+
+    schema = f"bench{uuid.uuid4().hex[:10]}"
+    engine = sa.create_engine(postgres_url)
+    with engine.begin() as conn:
+        conn.execute(sa.text(f"CREATE SCHEMA {schema}"))
+    engine.dispose()
+    separator = "&" if "?" in postgres_url else "?"
+    return f"{postgres_url}{separator}options=-csearch_path%3D{schema}"
+
+
+def _start_worker(env: dict[str, str], log: Path) -> subprocess.Popen[bytes]:
+    command = [sys.executable, "-m", "service.cli", "worker"]
+    worker = subprocess.Popen(
+        command, env=env, stdout=log.open("wb"), stderr=subprocess.STDOUT, start_new_session=True
+    )
+    deadline = time.monotonic() + START_TIMEOUT_S
+    while time.monotonic() < deadline:
+        if " ready." in log.read_text(errors="replace"):
+            return worker
+        if worker.poll() is not None:
+            break
+        time.sleep(0.1)
+    worker.kill()
+    raise RuntimeError(f"the worker did not start:\n{log.read_text(errors='replace')}")
+
+
+def _job_seconds(client: httpx.Client, request: dict[str, Any]) -> float:
+    """POST one job and poll it every 10 ms until done: seconds from POST to done."""
+    started = time.perf_counter()
+    answer = client.post("/v1/jobs", json=request)
+    answer.raise_for_status()
+    location = answer.headers["Location"]
+    while True:
+        state = client.get(location).json()["state"]
+        if state == "done":
+            return time.perf_counter() - started
+        if state in ("failed", "cancelled"):
+            raise RuntimeError(f"job {location} ended {state}")
+        time.sleep(0.01)
+
+
+def _throughput(client: httpx.Client, request: dict[str, Any], jobs: int) -> float:
+    """Plans per minute: ``jobs`` jobs posted at once, until the last is done."""
+    started = time.perf_counter()
+    locations = []
+    for _ in range(jobs):
+        answer = client.post("/v1/jobs", json=request)
+        answer.raise_for_status()
+        locations.append(answer.headers["Location"])
+    pending = set(locations)
+    while pending:
+        for location in list(pending):
+            if client.get(location).json()["state"] == "done":
+                pending.discard(location)
+        time.sleep(0.05)
+    return jobs / (time.perf_counter() - started) * 60.0
+
+
+def _queue_rows(
+    postgres_url: str, request: dict[str, Any], args: argparse.Namespace
+) -> list[tuple[str, str]]:
+    from solver import solve
+
+    redis_server = shutil.which("redis-server")
+    if redis_server is None:
+        return [("job queue", "redis-server not installed (apt-get install redis-server)")]
+    rows: list[tuple[str, str]] = []
+    with tempfile.TemporaryDirectory(prefix="bandwright-queue-") as tmp:
+        root = Path(tmp)
+        redis_port = _free_port()
+        redis = subprocess.Popen(
+            [redis_server, "--port", str(redis_port), "--bind", LOOPBACK, "--save", ""],
+            stdout=subprocess.DEVNULL,
+            start_new_session=True,
+        )
+        env = dict(
+            os.environ,
+            PYTHONPATH=str(ROOT),
+            BANDWRIGHT_DATABASE_URL=_fresh_schema(postgres_url),
+            BANDWRIGHT_BROKER_URL=f"redis://{LOOPBACK}:{redis_port}/0",
+            BANDWRIGHT_WORKER_HEARTBEAT_FILE=str(root / "worker.alive"),
+        )
+        processes: list[subprocess.Popen[bytes]] = [redis]
+        try:
+            api, base = _start_server(
+                root, {k: v for k, v in env.items() if k.startswith("BANDWRIGHT_")}
+            )
+            processes.append(api)
+            processes.append(_start_worker(env, root / "worker1.log"))
+            with httpx.Client(base_url=base, timeout=600.0) as client:
+                _job_seconds(client, request)  # warm-up: the worker's spectra and catalogue
+                solve(to_problem(PlanRequest.model_validate(request)))
+                job_s, local_s = [], []
+                for _ in range(args.plan_repeats):  # interleaved, one job at a time
+                    job_s.append(_job_seconds(client, request))
+                    started = time.perf_counter()
+                    solve(to_problem(PlanRequest.model_validate(request)))
+                    local_s.append(time.perf_counter() - started)
+                one = _throughput(client, request, args.queue_jobs)
+                processes.append(_start_worker(env, root / "worker2.log"))
+                _job_seconds(client, request)  # warm the second worker too (either may take it)
+                two = _throughput(client, request, args.queue_jobs)
+            evaluate = asyncio.run(_evaluate_load(base, args.requests, args.concurrency))
+        finally:
+            for process in reversed(processes):
+                if process.poll() is None:
+                    process.terminate()
+                    try:
+                        process.wait(timeout=30)
+                    except subprocess.TimeoutExpired:
+                        process.kill()
+    job_median, local_median = statistics.median(job_s), statistics.median(local_s)
+    overhead = (job_median - local_median) / local_median
+    rows += [
+        ("demo job via Redis + worker", f"median {job_median:.3f} s of {args.plan_repeats}"),
+        ("demo solve in process", f"median {local_median:.3f} s (interleaved)"),
+        ("  queue overhead", f"{overhead * PERCENT:+.1f} % of the solve   (target < 5 %)"),
+        ("plans per minute, 1 worker", f"{one:.1f} ({args.queue_jobs} demo jobs)"),
+        (
+            "plans per minute, 2 workers",
+            f"{two:.1f} ({args.queue_jobs} demo jobs)  ×{two / one:.2f}",
+        ),
+        ("evaluate with broker set (httpx)", f"{evaluate['per_second']:.0f} req/s"),
+    ]
+    return rows
+
+
 def main() -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     parser.add_argument("--requests", type=int, default=3000, help="evaluate requests")
     parser.add_argument("--concurrency", type=int, default=16, help="concurrent clients")
     parser.add_argument("--plan-repeats", type=int, default=5, help="timed plan requests")
     parser.add_argument("--wrk-seconds", type=int, default=10, help="length of the wrk run")
+    parser.add_argument(
+        "--queue", metavar="POSTGRES_URL", help="also measure the job queue (Redis + workers)"
+    )
+    parser.add_argument("--queue-jobs", type=int, default=8, help="jobs per throughput run")
+    parser.add_argument("--skip-plans", action="store_true", help="skip the synchronous plans")
     args = parser.parse_args()
     request = _demo_request()
     with tempfile.TemporaryDirectory(prefix="bandwright-bench-") as tmp:
@@ -206,31 +359,42 @@ def main() -> int:
         try:
             load = asyncio.run(_evaluate_load(base, args.requests, args.concurrency))
             light = _wrk_load(base, args.wrk_seconds, args.concurrency)
-            rounds = _plan_rounds(base, request, args.plan_repeats)
+            rounds = None if args.skip_plans else _plan_rounds(base, request, args.plan_repeats)
         finally:
             server.terminate()
             server.wait(timeout=30)
-    http_median = statistics.median(rounds["http_s"])
-    local_median = statistics.median(rounds["local_s"])
-    solve_median = statistics.median(rounds["server_solve_s"])
-    overhead = (http_median - local_median) / local_median
-    wrapping = (http_median - solve_median) / solve_median
     rows = [
         ("evaluate requests", f"{load['requests']:.0f} at {args.concurrency} clients"),
         ("evaluate throughput (httpx)", f"{load['per_second']:.0f} req/s   (target ≥ 500)"),
         ("evaluate p50 / p99 (httpx)", f"{load['p50_ms']:.1f} / {load['p99_ms']:.1f} ms"),
         *_wrk_rows(light, args.wrk_seconds),
-        ("demo plan over HTTP", f"median {http_median:.3f} s of {args.plan_repeats}"),
-        ("demo solve in process", f"median {local_median:.3f} s of {args.plan_repeats}"),
-        ("  overhead vs in process", f"{overhead * PERCENT:+.1f} %   (target < 10 %)"),
-        ("server-reported solve", f"median {solve_median:.3f} s"),
-        ("  HTTP + store around it", f"{wrapping * PERCENT:+.1f} % of the solve"),
+    ]
+    if rounds is not None:
+        rows += _plan_rows(rounds, args.plan_repeats)
+    if args.queue:
+        rows += _queue_rows(args.queue, request, args)
+    rows += [
         ("demo request", str(request.get("name"))),
         ("load average (1 min)", f"{os.getloadavg()[0]:.2f} on {os.cpu_count()} cores"),
     ]
     width = max(len(name) for name, _ in rows)
     sys.stdout.write("".join(f"{name:<{width}}  {value}\n" for name, value in rows))
     return 0
+
+
+def _plan_rows(rounds: dict[str, list[float]], repeats: int) -> list[tuple[str, str]]:
+    http_median = statistics.median(rounds["http_s"])
+    local_median = statistics.median(rounds["local_s"])
+    solve_median = statistics.median(rounds["server_solve_s"])
+    overhead = (http_median - local_median) / local_median
+    wrapping = (http_median - solve_median) / solve_median
+    return [
+        ("demo plan over HTTP", f"median {http_median:.3f} s of {repeats}"),
+        ("demo solve in process", f"median {local_median:.3f} s of {repeats}"),
+        ("  overhead vs in process", f"{overhead * PERCENT:+.1f} %   (target < 10 %)"),
+        ("server-reported solve", f"median {solve_median:.3f} s"),
+        ("  HTTP + store around it", f"{wrapping * PERCENT:+.1f} % of the solve"),
+    ]
 
 
 if __name__ == "__main__":
