@@ -316,7 +316,18 @@ def _queue_rows(
                 processes.append(_start_worker(env, root / "worker2.log"))
                 _job_seconds(client, request)  # warm the second worker too (either may take it)
                 two = _throughput(client, request, args.queue_jobs)
-            evaluate = asyncio.run(_evaluate_load(base, args.requests, args.concurrency))
+            for worker in processes[2:]:  # workers stopped: evaluate sees the API alone
+                worker.terminate()
+                worker.wait(timeout=60)
+            plain_env = {k: v for k, v in env.items() if k.startswith("BANDWRIGHT_")}
+            plain_env.pop("BANDWRIGHT_BROKER_URL")
+            plain, plain_base = _start_server(root, plain_env)
+            processes.append(plain)
+            brokered_rates, plain_rates = [], []
+            for _ in range(3):  # alternated, so machine load falls on both alike
+                for rates, url in ((brokered_rates, base), (plain_rates, plain_base)):
+                    load = asyncio.run(_evaluate_load(url, args.requests, args.concurrency))
+                    rates.append(load["per_second"])
         finally:
             for process in reversed(processes):
                 if process.poll() is None:
@@ -336,7 +347,17 @@ def _queue_rows(
             "plans per minute, 2 workers",
             f"{two:.1f} ({args.queue_jobs} demo jobs)  ×{two / one:.2f}",
         ),
-        ("evaluate with broker set (httpx)", f"{evaluate['per_second']:.0f} req/s"),
+        (
+            "evaluate, API with broker",
+            f"median {statistics.median(brokered_rates):.0f} req/s of 3 runs "
+            f"({min(brokered_rates):.0f}–{max(brokered_rates):.0f})",
+        ),
+        (
+            "evaluate, same store, no broker",
+            f"median {statistics.median(plain_rates):.0f} req/s "
+            f"({min(plain_rates):.0f}–{max(plain_rates):.0f})  "
+            f"(ratio {statistics.median(brokered_rates) / statistics.median(plain_rates):.2f})",
+        ),
     ]
     return rows
 

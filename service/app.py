@@ -57,7 +57,7 @@ def _default_solve() -> SolveFunction:
 
 def _job_queue(runtime: Runtime) -> LocalJobQueue | BrokerJobQueue:
     settings = runtime.settings
-    if settings.broker_url is None:
+    if not settings.broker_url:  # unset or empty: threads here
         return LocalJobQueue(runtime)
     from service.worker import make_sender
 

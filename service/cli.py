@@ -514,7 +514,7 @@ def _cmd_worker(args: argparse.Namespace) -> ExitCode:
             raise CliError(ExitCode.FAILED, f"worker not alive: {seen}")
         _err(f"worker alive: last heartbeat {age:.0f} s ago")
         return ExitCode.SERVED
-    if settings.broker_url is None:
+    if not settings.broker_url:
         raise CliError(ExitCode.INVALID, "BANDWRIGHT_BROKER_URL is not set: no queue to work for")
     from service.store import Store
     from service.worker import run_worker
