@@ -3,7 +3,8 @@
 50 jobs go through the API processes to the workers.  Mid-run one worker is killed with
 ``kill -9`` (its whole process group, as when a node is lost) while it solves, one API process
 is restarted, and the killed worker comes back.  Every job must end ``done`` exactly once, with
-one plan per job, and the job that was lost must be running again within 30 s.
+one plan per job, and the job that was lost must be running again within 30 s; one more job,
+cancelled while queued, must never run.
 
 Needs ``redis-server`` (Debian's package) and the test PostgreSQL; ``.ci/run`` provides both.
 """
@@ -196,6 +197,12 @@ def test_fifty_jobs_survive_a_killed_worker_and_a_restarted_api(
         answer = httpx.post(f"http://127.0.0.1:{port}/v1/jobs", json=body, timeout=30)
         assert answer.status_code == 202, answer.text
         ids.append(answer.json()["id"])
+    # one more, cancelled while it waits behind the others: it must never run
+    extra = httpx.post(f"http://127.0.0.1:{nodes.api_ports[1]}/v1/jobs", json=_long_request(99))
+    dropped = extra.json()["id"]
+    assert (
+        httpx.delete(f"http://127.0.0.1:{nodes.api_ports[0]}/v1/jobs/{dropped}").status_code == 200
+    )
 
     # kill -9 the worker (its whole process group) that is solving a long job
     victim = None
@@ -246,4 +253,8 @@ def test_fifty_jobs_survive_a_killed_worker_and_a_restarted_api(
     for job_id in ids:
         assert store.plans_of_job(job_id) == [first_done[job_id]]
     assert store.count_plans() == JOBS
+    cancelled = store.get_job(dropped)
+    assert cancelled is not None
+    assert (cancelled.job.state, cancelled.job.attempts) == (JobState.CANCELLED, 0)
+    assert store.plans_of_job(dropped) == []
     store.close()
