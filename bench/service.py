@@ -272,6 +272,59 @@ def _throughput(client: httpx.Client, request: dict[str, Any], jobs: int) -> flo
     return jobs / (time.perf_counter() - started) * 60.0
 
 
+SMALL_LOAD_REQUEST: dict[str, Any] = {
+    "name": "load: invented two-link block",
+    "block": {"start_hz": 2.40e9, "stop_hz": 2.41e9, "raster_hz": 10e3},
+    "demands": [
+        {"id": "north", "min_rate_bps": 1e6, "target_rate_bps": 2e6, "esn0_db": 12.0},
+        {"id": "south", "min_rate_bps": 1e6, "target_rate_bps": 3e6, "cn0_dbhz": 78.0},
+    ],
+    "time_limit_s": 2.0,
+}
+
+
+async def _write_load(base: str, plans: int, jobs: int, concurrency: int) -> dict[str, int]:
+    """``plans`` synchronous plans and ``jobs`` jobs posted by ``concurrency`` clients, retried
+    on 503 as a client would; then every plan answered 201 and every job's plan read back."""
+    counts: dict[str, int] = {}
+    created: list[str] = []
+    queued: list[str] = []
+    work = asyncio.Queue[str]()
+    for kind in ["plan"] * plans + ["job"] * jobs:
+        work.put_nowait(kind)
+    async with httpx.AsyncClient(base_url=base, timeout=120.0) as client:
+
+        async def poster() -> None:
+            while not work.empty():
+                kind = work.get_nowait()
+                path = "/v1/plans" if kind == "plan" else "/v1/jobs"
+                while True:
+                    answer = await client.post(path, json=SMALL_LOAD_REQUEST)
+                    key = f"{kind} {answer.status_code}"
+                    counts[key] = counts.get(key, 0) + 1
+                    if answer.status_code != 503:
+                        break
+                    await asyncio.sleep(float(answer.headers.get("Retry-After", "1")))
+                if answer.status_code == 201:
+                    created.append(answer.headers["Location"])
+                elif answer.status_code == 202:
+                    queued.append(answer.headers["Location"])
+
+        await asyncio.gather(*(poster() for _ in range(concurrency)))
+        for location in queued:  # jobs: wait for each, then read its plan like the others
+            while (job := (await client.get(location)).json())["state"] not in ("done", "failed"):
+                await asyncio.sleep(0.1)
+            if job["plan_url"]:
+                created.append(job["plan_url"])
+        read_back = 0
+        for location in created:
+            read_back += (await client.get(location)).status_code == 200
+    counts["created"] = len(created)
+    counts["read back"] = read_back
+    counts["lost"] = plans + jobs - read_back
+    return counts
+
+
 def _queue_rows(
     postgres_url: str, request: dict[str, Any], args: argparse.Namespace
 ) -> list[tuple[str, str]]:
@@ -316,6 +369,7 @@ def _queue_rows(
                 processes.append(_start_worker(env, root / "worker2.log"))
                 _job_seconds(client, request)  # warm the second worker too (either may take it)
                 two = _throughput(client, request, args.queue_jobs)
+            load = asyncio.run(_write_load(base, args.load_plans, args.load_jobs, args.concurrency))
             for worker in processes[2:]:  # workers stopped: evaluate sees the API alone
                 worker.terminate()
                 worker.wait(timeout=60)
@@ -336,6 +390,8 @@ def _queue_rows(
                         process.wait(timeout=30)
                     except subprocess.TimeoutExpired:
                         process.kill()
+    load_counts = ", ".join(f"{k}: {v}" for k, v in sorted(load.items()))
+    rows.append(("write load (PostgreSQL)", load_counts))
     job_median, local_median = statistics.median(job_s), statistics.median(local_s)
     overhead = (job_median - local_median) / local_median
     rows += [
@@ -372,6 +428,8 @@ def main() -> int:
         "--queue", metavar="POSTGRES_URL", help="also measure the job queue (Redis + workers)"
     )
     parser.add_argument("--queue-jobs", type=int, default=8, help="jobs per throughput run")
+    parser.add_argument("--load-plans", type=int, default=200, help="plans in the write load")
+    parser.add_argument("--load-jobs", type=int, default=100, help="jobs in the write load")
     parser.add_argument("--skip-plans", action="store_true", help="skip the synchronous plans")
     args = parser.parse_args()
     request = _demo_request()
