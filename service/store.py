@@ -3,8 +3,10 @@
 Plans are immutable: written once, never updated.  A replan is a new plan whose ``parent_id``
 names the old one.  JSON documents are stored as text, which every SQL database holds the same
 way, so the schema stays portable.  Every method opens its own short session, so one
-:class:`Store` may be shared by the event loop's thread pool and the job threads.  The tables
-are modelled in :mod:`service.tables`.
+:class:`Store` may be shared by the event loop's thread pool and the job threads.
+
+The tables are modelled in :mod:`service.tables` and made by the migrations in
+:mod:`service.migrations`; :meth:`Store.ensure_schema` is where the two meet.
 """
 
 from __future__ import annotations
@@ -21,9 +23,10 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Engine
 from sqlalchemy.orm import Session, sessionmaker
 
-from service.errors import StoreUnavailableError
+from service import migrations
+from service.errors import SchemaNotReadyError, StoreUnavailableError
 from service.schemas import JobOut, JobProgress, JobState, PlanListItem, PlanOut, PlanRequest
-from service.tables import METADATA, JobRow, KeyRow, PlanRow, ReplayRow
+from service.tables import JobRow, KeyRow, PlanRow, ReplayRow
 
 __all__ = [
     "JobRecord",
@@ -113,17 +116,56 @@ class Store:
         self._schema_ready = False
 
     def ensure_schema(self) -> None:
-        """Create missing tables; raises :class:`StoreUnavailableError` if unreachable."""
+        """Make sure the tables are this version's (the app calls this at start).
+
+        The embedded SQLite store migrates itself to the newest revision.  Any other database
+        is only checked, never migrated by the replicas (``bandwright db upgrade`` does that,
+        once per release): behind the newest revision it raises :class:`SchemaNotReadyError`.
+        A database a newer release migrated is used as it is.  Raises
+        :class:`StoreUnavailableError` if the database does not answer.
+        """
+        state = self.schema_state()
+        if state.behind and self._engine.dialect.name == "sqlite":
+            self.upgrade_schema()
+        elif state.behind:
+            raise SchemaNotReadyError(_behind(state))
+        elif not state.known:
+            logger.warning(
+                "the database is at revision %s, newer than this version's %s: used as it is",
+                state.current,
+                state.head,
+            )
+        self._schema_ready = True
+
+    def schema_state(self) -> migrations.SchemaState:
+        """The database's migration revision against this version's newest."""
+        with self._schema_errors():
+            return migrations.schema_state(self._engine)
+
+    def upgrade_schema(self) -> migrations.Upgrade:
+        """Migrate the database to the newest revision (``bandwright db upgrade``, tests)."""
+        with self._schema_errors():
+            return migrations.upgrade(self._engine)
+
+    @contextmanager
+    def _schema_errors(self) -> Iterator[None]:
         try:
-            METADATA.create_all(self._engine)
-        except sa.exc.SQLAlchemyError as exc:
+            yield
+        except migrations.MigrationError as exc:
+            raise SchemaNotReadyError(str(exc)) from exc
+        except (sa.exc.OperationalError, sa.exc.InterfaceError) as exc:  # the server, not the SQL
             raise StoreUnavailableError(
                 f"cannot reach the store: {exc.__class__.__name__}"
             ) from exc
-        self._schema_ready = True
+        except sa.exc.SQLAlchemyError as exc:  # e.g. no permission to read or change the schema
+            reason = str(getattr(exc, "orig", None) or exc).splitlines()[0]
+            raise SchemaNotReadyError(
+                f"the schema could not be read or migrated: {exc.__class__.__name__}: {reason}"
+            ) from exc
 
     def ping(self) -> None:
-        """Check the database answers (and has its tables); raises StoreUnavailableError."""
+        """Check the database answers with this version's schema (:meth:`ensure_schema` until it
+        has once); raises :class:`StoreUnavailableError` or :class:`SchemaNotReadyError`."""
         if not self._schema_ready:
             self.ensure_schema()
         try:
@@ -489,6 +531,14 @@ class Store:
         with self._session() as session:
             query = sa.select(sa.func.count()).select_from(KeyRow)
             return bool(session.scalar(query.where(KeyRow.revoked_at.is_(None))))
+
+
+def _behind(state: migrations.SchemaState) -> str:
+    found = state.current or "none (an empty database, or tables made before migrations)"
+    return (
+        f"the database's schema revision is {found}, behind this version's {state.head}: "
+        "run `bandwright db upgrade` (once, before the replicas of a new release start)"
+    )
 
 
 def _changed(result: sa.Result[Any]) -> int:

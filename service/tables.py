@@ -1,4 +1,10 @@
-"""The store's tables as SQLAlchemy 2 declarative models (used by :mod:`service.store`)."""
+"""The store's tables as SQLAlchemy 2 declarative models: this version's schema for the code.
+
+The tables in a database are made and changed by the migrations in :mod:`service.migrations`,
+never from these models directly; ``tests/test_migrations.py`` checks that a database at the
+newest revision has exactly these tables, columns, indexes and constraints, so a model changed
+without a new revision fails it (DEVELOPERS.md, "Schema migrations").
+"""
 
 from __future__ import annotations
 
@@ -46,7 +52,7 @@ class JobRow(Base):
     error_json: Mapped[str | None] = mapped_column(sa.Text)
     owner: Mapped[str | None] = mapped_column(sa.String(OWNER_LENGTH))
     lease_until: Mapped[datetime | None] = mapped_column(sa.DateTime(timezone=True), index=True)
-    attempts: Mapped[int] = mapped_column(sa.Integer, default=0)
+    attempts: Mapped[int] = mapped_column(sa.Integer, default=0, server_default=sa.text("0"))
     sent_at: Mapped[datetime | None] = mapped_column(sa.DateTime(timezone=True))
     key_id: Mapped[str | None] = mapped_column(sa.String(ID_LENGTH), index=True)
     batch_id: Mapped[str | None] = mapped_column(sa.String(ID_LENGTH), index=True)
@@ -86,4 +92,4 @@ class ReplayRow(Base):
 
 
 METADATA: sa.MetaData = Base.metadata
-"""Every table of the store."""
+"""Every table of the store, as this version's code expects it (Alembic's autogenerate target)."""

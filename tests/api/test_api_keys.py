@@ -8,7 +8,7 @@ import sqlite3
 from pathlib import Path
 
 import pytest
-from api_support import on_postgres, serving, small_request
+from api_support import serving, small_request
 
 from service.app import create_app
 from service.cli import main
@@ -17,12 +17,6 @@ from service.settings import Settings
 from service.store import Store
 
 pytestmark = pytest.mark.anyio
-
-
-@pytest.fixture(params=["sqlite", "postgres"])
-def stores(request: pytest.FixtureRequest, settings: Settings) -> Settings:
-    """The tests that go through the store run on SQLite and on PostgreSQL."""
-    return settings if request.param == "sqlite" else on_postgres(settings)
 
 
 def _keyed(settings: Settings, *scopes: Scope) -> list[str]:
