@@ -1,7 +1,7 @@
 """Schema migrations, on SQLite and on PostgreSQL: the newest revision makes exactly the tables
 the models declare, every revision goes down and up again, revision 0001 is the schema the
 models had before migrations existed, and a database made then is recognised, stamped and
-upgraded with its rows intact.
+upgraded with its rows intact.  ``bandwright db upgrade|current`` on top.
 
 The models of commit e3992df are copied below (``git show e3992df:service/store.py``): they are
 what ``create_all`` made in every database before this change.
@@ -25,6 +25,7 @@ from alembic.autogenerate import compare_metadata
 from alembic.runtime.migration import MigrationContext
 from db_support import BACKENDS, empty_database
 
+from service.cli import ExitCode, main
 from service.errors import SchemaNotReadyError
 from service.migrations import COMPARE_OPTIONS, alembic_config, head_revision
 from service.store import Store
@@ -319,3 +320,65 @@ def test_two_upgrades_at_once_from_two_processes_both_end_at_head(tmp_path: Path
         outputs = [p.communicate(timeout=PROCESS_TIMEOUT_S) for p in processes]
         assert [p.returncode for p in processes] == [0, 0], outputs
         _both_at_head([tuple(out.split()) for out, _ in outputs])  # type: ignore[misc]
+
+
+def test_db_upgrade_and_current_from_the_command_line(
+    empty_url: str, capsys: pytest.CaptureFixture[str]
+) -> None:
+    head = head_revision()
+    assert main(["db", "current", "--url", empty_url]) == ExitCode.OUTDATED
+    assert capsys.readouterr().out == f"none (behind head {head}: run `bandwright db upgrade`)\n"
+    _alembic(empty_url, "upgrade", FIRST)
+    assert main(["db", "current", "--url", empty_url]) == ExitCode.OUTDATED
+    assert capsys.readouterr().out.startswith(f"{FIRST} (behind head {head}")
+    assert main(["db", "upgrade", "--url", empty_url]) == ExitCode.SERVED
+    assert capsys.readouterr().out == f"{FIRST} → {head}\n"
+    assert main(["db", "upgrade", "--url", empty_url]) == ExitCode.SERVED
+    assert capsys.readouterr().out == f"{head} → {head} (already at head)\n"
+    assert main(["db", "current", "--url", empty_url]) == ExitCode.SERVED
+    outputs = capsys.readouterr()
+    assert outputs.out == f"{head} (head)\n"
+    assert "bandwright:bandwright@" not in outputs.err  # the password is not printed
+
+
+def test_db_commands_read_the_configured_database_and_stamp_old_tables(
+    empty_url: str, monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]
+) -> None:
+    _fill_before_migrations(empty_url)
+    monkeypatch.setenv("BANDWRIGHT_DATABASE_URL", empty_url)
+    assert main(["db", "upgrade"]) == ExitCode.SERVED
+    expected = f"{FIRST} (tables made before migrations, stamped) → {head_revision()}\n"
+    assert capsys.readouterr().out == expected
+
+
+@pytest.mark.parametrize(
+    ("url", "code", "message"),
+    [
+        ("not a url", ExitCode.INVALID, "invalid input: --url: Could not parse"),
+        ("nosuchdb://host/x", ExitCode.INVALID, "invalid input: --url: Can't load plugin"),
+        ("postgresql+psycopg://u:p@127.0.0.1:1/x", ExitCode.UNREACHABLE, "cannot reach the store"),
+    ],
+)
+def test_db_commands_name_a_bad_or_unreachable_url(
+    url: str, code: ExitCode, message: str, capsys: pytest.CaptureFixture[str]
+) -> None:
+    assert main(["db", "upgrade", "--url", url]) == code
+    assert message in capsys.readouterr().err
+
+
+def test_serve_starts_on_a_database_behind_its_release_and_says_why_it_is_not_ready(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, caplog: pytest.LogCaptureFixture
+) -> None:
+    import uvicorn
+
+    served: list[str] = []
+    monkeypatch.setattr(uvicorn, "run", lambda app, **kw: served.append(kw["host"]))
+    with empty_database("postgres", tmp_path) as url:
+        monkeypatch.setenv("BANDWRIGHT_DATABASE_URL", url)
+        assert main(["serve"]) == ExitCode.OUTDATED  # no tables at all: nothing to serve from
+        assert served == []
+        _alembic(url, "upgrade", FIRST)
+        assert main(["serve"]) == ExitCode.SERVED
+        assert served == ["127.0.0.1"]
+        assert _tables(url) >= {"plans", "jobs"} and "batches" not in _tables(url)  # not migrated
+    assert "run `bandwright db upgrade`" in caplog.text
