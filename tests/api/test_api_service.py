@@ -96,21 +96,21 @@ async def test_job_lifecycle(settings: Settings, real_solve: SolveFunction) -> N
     assert invalid.status_code == 422
 
 
-async def test_jobs_survive_a_restart(settings: Settings, real_solve: SolveFunction) -> None:
+async def test_jobs_survive_a_restart(stores: Settings, real_solve: SolveFunction) -> None:
     double = BlockingSolve(real_solve)
-    async with serving(create_app(settings, solve=double)) as client:
+    async with serving(create_app(stores, solve=double)) as client:
         first = (await client.post("/v1/jobs", json=small_request(name="first"))).headers
         second = (await client.post("/v1/jobs", json=small_request(name="second"))).headers
         await _wait_entered(double, 1)
         assert (await client.get(second["location"])).json()["state"] == "queued"
         # Leaving the block shuts the app down while "first" runs and "second" waits.
-    store = Store(settings.database_url)
+    store = Store(stores.database_url)
     for headers in (first, second):
         record = store.get_job(headers["location"].rsplit("/", 1)[-1])
         assert record is not None
         assert record.job.state is JobState.QUEUED
     store.close()
-    async with serving(create_app(settings, solve=real_solve)) as client:
+    async with serving(create_app(stores, solve=real_solve)) as client:
         for headers in (first, second):
             job = await _wait_job(client, headers["location"], "done")
             assert (await client.get(str(job["plan_url"]))).status_code == 200
