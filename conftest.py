@@ -9,6 +9,8 @@ import pytest
 
 from solver.physics.profilecache import CACHE_DIR_ENV
 
+collect_ignore = ["service/migrations/env.py"]  # runs migrations when imported: Alembic's alone
+
 
 @pytest.fixture(autouse=True, scope="session")
 def _private_profile_cache(tmp_path_factory: pytest.TempPathFactory) -> Iterator[None]:

@@ -17,7 +17,12 @@ from importlib.metadata import PackageNotFoundError, version
 from fastapi import Depends, FastAPI
 
 from service.caching import NoSniffMiddleware
-from service.errors import BodyLimitMiddleware, UnexpectedErrorMiddleware, install_error_handlers
+from service.errors import (
+    BodyLimitMiddleware,
+    SchemaNotReadyError,
+    UnexpectedErrorMiddleware,
+    install_error_handlers,
+)
 from service.keys import authorise
 from service.metrics import Metrics, MetricsMiddleware
 from service.queue import BrokerJobQueue, LocalJobQueue
@@ -83,8 +88,11 @@ def create_app(settings: Settings | None = None, *, solve: SolveFunction | None 
         reachable = True
         try:
             store.ensure_schema()
+        except SchemaNotReadyError as exc:  # replicas never migrate; /readyz reports it
+            logger.error("store not ready at start-up (jobs wait for /readyz to pass): %s", exc)
+            reachable = False
         except StoreUnavailableError as exc:  # /readyz reports it until the store answers
-            logger.error("store not reachable at start-up; jobs not requeued: %s", exc)
+            logger.error("store not reachable at start-up (jobs wait for /readyz to pass): %s", exc)
             reachable = False
         solve_fn = _default_solve() if solve is None else solve
         runtime = Runtime(settings, store, metrics, solve_fn, SolveGate(settings, metrics))
@@ -93,6 +101,8 @@ def create_app(settings: Settings | None = None, *, solve: SolveFunction | None 
         app.state.runtime = runtime
         if reachable:
             queue.start()
+        else:
+            runtime.start_when_ready(queue.start)
         try:
             yield
         finally:

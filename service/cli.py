@@ -6,13 +6,20 @@
     bandwright plan REQUEST.json [--server URL] [-o PLAN.json] [--svg FILE]
     bandwright replan REQUEST.json --previous PLAN.json [--server URL] [-o PLAN.json] [--svg FILE]
     bandwright demo [--request FILE] [--svg FILE]
+    bandwright keys create|list|revoke ...
+    bandwright db upgrade|current [--url URL]
 
 Without ``--server`` a plan is computed in this process and **nothing is stored**: the plan goes
 to ``-o`` (its ``id`` is null) and the summary to stdout.  With ``--server`` the request is sent
 as a job to that service, which stores the plan; progress is polled.  A progress line for long
 solves goes to stderr.  Exit codes a nightly script can branch on: 0 every demand served,
-3 some unserved, 4 infeasible, 2 invalid input (field and message on stderr), 5 server
-unreachable, 1 any other failure.
+3 some unserved, 4 infeasible, 2 invalid input (field and message on stderr), 5 server (or
+database) unreachable, 6 the database's schema is behind this version (run ``bandwright db
+upgrade``), 1 any other failure.
+
+``db upgrade`` migrates the store (``BANDWRIGHT_DATABASE_URL``, or ``--url``) to this version's
+newest schema revision and prints the revisions from → to; run it once per release, before the
+replicas start.  ``db current`` prints the database's revision (exit 6 when behind).
 """
 
 from __future__ import annotations
@@ -33,12 +40,19 @@ from typing import Any
 
 import httpx
 import pydantic
+import sqlalchemy as sa
 
 from service.convert import finite_or_none, plan_to_wire, to_problem
-from service.errors import FieldIssue, InvalidInputError, field_path
+from service.errors import (
+    FieldIssue,
+    InvalidInputError,
+    SchemaNotReadyError,
+    StoreUnavailableError,
+    field_path,
+)
 from service.schemas import DemandIn, PlanOut, PlanRequest
 from service.settings import Settings
-from service.store import utc_now
+from service.store import Store, utc_now
 from solver import ProblemError, ProgressEvent, SolveStatus
 
 __all__ = ["ExitCode", "main", "summary_table"]
@@ -81,6 +95,7 @@ class ExitCode(IntEnum):
     UNSERVED = 3
     INFEASIBLE = 4
     UNREACHABLE = 5
+    OUTDATED = 6
 
 
 class CliError(Exception):
@@ -446,16 +461,20 @@ def _cmd_serve(args: argparse.Namespace) -> ExitCode:
 
     from service.app import create_app
     from service.keys import open_serving_refused
-    from service.store import Store
 
     settings = Settings()
     host = args.host or settings.host
     port = settings.port if args.port is None else args.port
     store = Store(settings.database_url)
     try:
-        store.ensure_schema()
+        _check_schema_for_serving(store)
         refused = open_serving_refused(host, store, settings.allow_open)
         keyed = store.has_keys()
+    except sa.exc.SQLAlchemyError as exc:  # no key table: the database was never migrated
+        raise CliError(
+            ExitCode.OUTDATED,
+            f"the store has no tables yet: run `bandwright db upgrade` ({exc.__class__.__name__})",
+        ) from exc
     finally:
         store.close()
     if refused is not None:
@@ -472,10 +491,18 @@ def _cmd_serve(args: argparse.Namespace) -> ExitCode:
     return ExitCode.SERVED
 
 
+def _check_schema_for_serving(store: Store) -> None:
+    """The embedded SQLite store migrates itself; another database behind this version is
+    served anyway (``/readyz`` answers 503 until someone runs ``bandwright db upgrade``)."""
+    try:
+        store.ensure_schema()
+    except SchemaNotReadyError as exc:
+        logger.error("%s; serving, and /readyz answers 503 until then", exc)
+
+
 def _cmd_keys(args: argparse.Namespace) -> ExitCode:
     """``keys create|list|revoke``: manage the service's API keys in its store."""
     from service.keys import Scope, create_key
-    from service.store import Store
 
     settings = Settings()
     store = Store(settings.database_url)
@@ -526,6 +553,50 @@ def _cmd_worker(args: argparse.Namespace) -> ExitCode:
         store.close()
     logging.getLogger().setLevel(logging.INFO)
     run_worker(settings, args.concurrency)
+    return ExitCode.SERVED
+
+
+def _open_store(args: argparse.Namespace) -> Store:
+    """The store named by ``--url``, or by BANDWRIGHT_DATABASE_URL; a URL SQLAlchemy cannot use
+    is invalid input naming where it came from."""
+    url, source = (
+        (args.url, "--url") if args.url else (Settings().database_url, "BANDWRIGHT_DATABASE_URL")
+    )
+    try:
+        return Store(url)
+    except (sa.exc.ArgumentError, ImportError) as exc:  # unparsable, or no such dialect/driver
+        raise CliError(ExitCode.INVALID, f"invalid input: {source}: {exc}") from exc
+
+
+def _cmd_db(args: argparse.Namespace) -> ExitCode:
+    """``db upgrade|current``: the store's schema against this version's migrations."""
+    store = _open_store(args)
+    try:
+        _err(f"database: {sa.make_url(store.url).render_as_string(hide_password=True)}")
+        return _db_upgrade(store) if args.action == "upgrade" else _db_current(store)
+    finally:
+        store.close()
+
+
+def _db_upgrade(store: Store) -> ExitCode:
+    done = store.upgrade_schema()
+    before = done.before or "none"
+    if done.stamped is not None:
+        before = f"{done.stamped} (tables made before migrations, stamped)"
+    unchanged = " (already at head)" if done.before == done.after else ""
+    print(f"{before} → {done.after}{unchanged}")
+    return ExitCode.SERVED
+
+
+def _db_current(store: Store) -> ExitCode:
+    state = store.schema_state()
+    if state.behind:
+        print(f"{state.current or 'none'} (behind head {state.head}: run `bandwright db upgrade`)")
+        return ExitCode.OUTDATED
+    if not state.known:
+        print(f"{state.current} (newer than this version's head {state.head})")
+    else:
+        print(f"{state.current} (head)")
     return ExitCode.SERVED
 
 
@@ -614,6 +685,15 @@ def _parser() -> argparse.ArgumentParser:
         "--check", action="store_true", help="exit 0 when a worker here beat in the last minute"
     )
     worker.set_defaults(run=_cmd_worker)
+    db = sub.add_parser("db", help="the store's schema: migrate it, or show its revision")
+    db_actions = db.add_subparsers(dest="action", required=True)
+    for action, text in (
+        ("upgrade", "migrate the database to this version's newest revision (once per release)"),
+        ("current", "print the database's revision; exit 6 when it is behind this version"),
+    ):
+        command = db_actions.add_parser(action, help=text)
+        command.add_argument("--url", help="SQLAlchemy URL (default BANDWRIGHT_DATABASE_URL)")
+    db.set_defaults(run=_cmd_db)
     demo = sub.add_parser("demo", help="start a local service and plan the demo request")
     demo.add_argument("--request", type=Path, default=DEMO_REQUEST, help="request to plan")
     demo.add_argument("--svg", type=Path, default=DEMO_SVG, help="where to write the picture")
@@ -630,6 +710,12 @@ def main(argv: Sequence[str] | None = None) -> int:
     except CliError as exc:
         _err(str(exc))
         return int(exc.code)
+    except SchemaNotReadyError as exc:
+        _err(str(exc))
+        return int(ExitCode.OUTDATED)
+    except StoreUnavailableError as exc:
+        _err(str(exc))
+        return int(ExitCode.UNREACHABLE)
     except KeyboardInterrupt:
         _err("interrupted")
         return int(ExitCode.FAILED)

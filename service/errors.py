@@ -8,6 +8,9 @@ Exception tree of the service::
      ├── BodyTooLargeError     413  the body exceeds the limit
      └── SolverBusyError       503  every solve slot and queue place is taken (with Retry-After)
 
+    StoreUnavailableError      503  the database does not answer (with Retry-After)
+     └── SchemaNotReadyError   503  it answers, but its tables are not this version's
+
 Also mapped here: :class:`solver.ProblemError` (422, naming its field), FastAPI's
 ``RequestValidationError`` (422, one entry per bad field), Starlette's ``HTTPException`` (its own
 status, e.g. 405 or 413) and any other exception (500, logged with its traceback).  Every answer
@@ -43,6 +46,7 @@ __all__ = [
     "ForbiddenError",
     "InvalidInputError",
     "NotFoundError",
+    "SchemaNotReadyError",
     "ServiceError",
     "SolverBusyError",
     "StoreUnavailableError",
@@ -97,6 +101,12 @@ class ConflictError(ServiceError):
 
 class StoreUnavailableError(RuntimeError):
     """The database cannot be reached (a 503 with Retry-After, never a 500)."""
+
+
+class SchemaNotReadyError(StoreUnavailableError):
+    """The database answers but its tables are not this version's: behind the newest migration
+    (``bandwright db upgrade`` brings it there), or made by no known migration.  A 503 like an
+    unreachable store, whose detail says what to do."""
 
 
 class UnauthenticatedError(ServiceError):
@@ -331,10 +341,11 @@ class BodyLimitMiddleware:
 async def _on_store_unavailable(request: Request, exc: Exception) -> JSONResponse:
     logger.warning("%s %s: %s", request.method, request.url.path, exc)
     retry_after_s = request.app.state.runtime.settings.retry_after_s
+    unready = isinstance(exc, SchemaNotReadyError)
     return problem_response(
         503,
         slug="store-unavailable",
-        detail="the plan store does not answer; try again later",
+        detail=str(exc) if unready else "the plan store does not answer; try again later",
         instance=request.url.path,
         headers={"Retry-After": str(retry_after_s)},
     )

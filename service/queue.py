@@ -89,7 +89,8 @@ class LeaseKeeper:
         return self._runtime.settings.job_lease_s
 
     def start(self) -> None:
-        self._thread.start()
+        if self._thread.ident is None:  # a queue whose first start failed is started again
+            self._thread.start()
 
     def stop(self) -> None:
         self._stop.set()

@@ -16,7 +16,7 @@ import threading
 import time
 import uuid
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Protocol, TypeVar
 
 import anyio
@@ -195,6 +195,27 @@ class Runtime:
     solve: SolveFunction
     gate: SolveGate
     jobs: JobQueue | None = None
+    _waiting: Callable[[], object] | None = field(default=None, repr=False)
+    _lock: threading.Lock = field(default_factory=threading.Lock, repr=False)
+
+    def start_when_ready(self, start: Callable[[], object]) -> None:
+        """Run ``start`` (the job queue's) once the store is found ready: it was not at start-up
+        (unreachable, or its schema behind until ``bandwright db upgrade`` runs)."""
+        with self._lock:
+            self._waiting = start
+
+    def store_ready(self) -> None:
+        """The store answered with this version's schema (``/readyz``): start what waited for
+        it, once; when that fails on the store, it waits for the next time."""
+        with self._lock:
+            start, self._waiting = self._waiting, None
+        if start is None:
+            return
+        try:
+            start()
+        except StoreUnavailableError:
+            self.start_when_ready(start)
+            raise
 
 
 def get_runtime(request: Request) -> Runtime:

@@ -646,4 +646,9 @@ class HealthOut(BaseModel):
     """Liveness or readiness."""
 
     status: str
-    store: str | None = None
+    store: str | None = Field(
+        None,
+        description="readiness only: ok, unreachable, or outdated (the database answers but its "
+        "schema is behind this version: `bandwright db upgrade` brings it up to date)",
+    )
+    detail: str | None = Field(None, description="why the store is not ready, and what to do")

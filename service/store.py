@@ -4,6 +4,9 @@ Plans are immutable: written once, never updated.  A replan is a new plan whose 
 names the old one.  JSON documents are stored as text, which every SQL database holds the same
 way, so the schema stays portable.  Every method opens its own short session, so one
 :class:`Store` may be shared by the event loop's thread pool and the job threads.
+
+The tables are modelled in :mod:`service.tables` and made by the migrations in
+:mod:`service.migrations`; :meth:`Store.ensure_schema` is where the two meet.
 """
 
 from __future__ import annotations
@@ -18,10 +21,12 @@ from typing import Any, cast
 
 import sqlalchemy as sa
 from sqlalchemy.engine import Engine
-from sqlalchemy.orm import DeclarativeBase, Mapped, Session, mapped_column, sessionmaker
+from sqlalchemy.orm import Session, sessionmaker
 
-from service.errors import StoreUnavailableError
+from service import migrations
+from service.errors import SchemaNotReadyError, StoreUnavailableError
 from service.schemas import JobOut, JobProgress, JobState, PlanListItem, PlanOut, PlanRequest
+from service.tables import BatchRow, JobRow, KeyRow, PlanRow, ReplayRow
 
 __all__ = [
     "BatchEntry",
@@ -37,10 +42,6 @@ __all__ = [
 
 logger = logging.getLogger(__name__)
 
-ID_LENGTH = 32
-NAME_LENGTH = 200
-STATE_LENGTH = 16
-OWNER_LENGTH = 200
 UNFINISHED = ("queued", "running")
 SQLITE_BUSY_TIMEOUT_S = 30
 
@@ -55,65 +56,6 @@ def _aware(moment: datetime) -> datetime:
     return moment if moment.tzinfo is not None else moment.replace(tzinfo=UTC)
 
 
-class _Base(DeclarativeBase):
-    pass
-
-
-class _PlanRow(_Base):
-    __tablename__ = "plans"
-
-    id: Mapped[str] = mapped_column(sa.String(ID_LENGTH), primary_key=True)
-    created_at: Mapped[datetime] = mapped_column(sa.DateTime(timezone=True), index=True)
-    parent_id: Mapped[str | None] = mapped_column(sa.String(ID_LENGTH), index=True)
-    name: Mapped[str] = mapped_column(sa.String(NAME_LENGTH))
-    status: Mapped[str] = mapped_column(sa.String(STATE_LENGTH))
-    request_json: Mapped[str] = mapped_column(sa.Text)
-    plan_json: Mapped[str] = mapped_column(sa.Text)
-    job_id: Mapped[str | None] = mapped_column(sa.String(ID_LENGTH), unique=True)
-
-
-class _JobRow(_Base):
-    __tablename__ = "jobs"
-
-    id: Mapped[str] = mapped_column(sa.String(ID_LENGTH), primary_key=True)
-    name: Mapped[str] = mapped_column(sa.String(NAME_LENGTH))
-    state: Mapped[str] = mapped_column(sa.String(STATE_LENGTH), index=True)
-    created_at: Mapped[datetime] = mapped_column(sa.DateTime(timezone=True), index=True)
-    updated_at: Mapped[datetime] = mapped_column(sa.DateTime(timezone=True))
-    request_json: Mapped[str] = mapped_column(sa.Text)
-    progress_json: Mapped[str | None] = mapped_column(sa.Text)
-    plan_id: Mapped[str | None] = mapped_column(sa.String(ID_LENGTH))
-    error_json: Mapped[str | None] = mapped_column(sa.Text)
-    owner: Mapped[str | None] = mapped_column(sa.String(OWNER_LENGTH))
-    lease_until: Mapped[datetime | None] = mapped_column(sa.DateTime(timezone=True), index=True)
-    attempts: Mapped[int] = mapped_column(sa.Integer, default=0)
-    sent_at: Mapped[datetime | None] = mapped_column(sa.DateTime(timezone=True))
-    key_id: Mapped[str | None] = mapped_column(sa.String(ID_LENGTH), index=True)
-    batch_id: Mapped[str | None] = mapped_column(sa.String(ID_LENGTH), index=True)
-    batch_position: Mapped[int | None] = mapped_column(sa.Integer)
-
-
-class _BatchRow(_Base):
-    __tablename__ = "batches"
-
-    id: Mapped[str] = mapped_column(sa.String(ID_LENGTH), primary_key=True)
-    name: Mapped[str] = mapped_column(sa.String(NAME_LENGTH))
-    created_at: Mapped[datetime] = mapped_column(sa.DateTime(timezone=True), index=True)
-    size: Mapped[int] = mapped_column(sa.Integer)
-    key_id: Mapped[str | None] = mapped_column(sa.String(ID_LENGTH))
-
-
-class _KeyRow(_Base):
-    __tablename__ = "api_keys"
-
-    id: Mapped[str] = mapped_column(sa.String(ID_LENGTH), primary_key=True)
-    name: Mapped[str] = mapped_column(sa.String(NAME_LENGTH))
-    scope: Mapped[str] = mapped_column(sa.String(STATE_LENGTH))
-    key_hash: Mapped[str] = mapped_column(sa.String(128), unique=True)
-    created_at: Mapped[datetime] = mapped_column(sa.DateTime(timezone=True))
-    revoked_at: Mapped[datetime | None] = mapped_column(sa.DateTime(timezone=True))
-
-
 @dataclass(frozen=True)
 class KeyRecord:
     """An API key as stored: never the key itself, only its keyed hash."""
@@ -125,20 +67,9 @@ class KeyRecord:
     revoked_at: datetime | None
 
 
-def _key_record(row: _KeyRow) -> KeyRecord:
+def _key_record(row: KeyRow) -> KeyRecord:
     revoked = None if row.revoked_at is None else _aware(row.revoked_at)
     return KeyRecord(row.id, row.name, row.scope, _aware(row.created_at), revoked)
-
-
-class _ReplayRow(_Base):
-    __tablename__ = "idempotency"
-
-    key: Mapped[str] = mapped_column(sa.String(300), primary_key=True)
-    body_hash: Mapped[str] = mapped_column(sa.String(64))
-    status: Mapped[int] = mapped_column(sa.Integer)
-    location: Mapped[str] = mapped_column(sa.String(300))
-    body_json: Mapped[str] = mapped_column(sa.Text)
-    created_at: Mapped[datetime] = mapped_column(sa.DateTime(timezone=True))
 
 
 @dataclass(frozen=True)
@@ -208,17 +139,56 @@ class Store:
         self._schema_ready = False
 
     def ensure_schema(self) -> None:
-        """Create missing tables; raises :class:`StoreUnavailableError` if unreachable."""
+        """Make sure the tables are this version's (the app calls this at start).
+
+        The embedded SQLite store migrates itself to the newest revision.  Any other database
+        is only checked, never migrated by the replicas (``bandwright db upgrade`` does that,
+        once per release): behind the newest revision it raises :class:`SchemaNotReadyError`.
+        A database a newer release migrated is used as it is.  Raises
+        :class:`StoreUnavailableError` if the database does not answer.
+        """
+        state = self.schema_state()
+        if state.behind and self._engine.dialect.name == "sqlite":
+            self.upgrade_schema()
+        elif state.behind:
+            raise SchemaNotReadyError(_behind(state))
+        elif not state.known:
+            logger.warning(
+                "the database is at revision %s, newer than this version's %s: used as it is",
+                state.current,
+                state.head,
+            )
+        self._schema_ready = True
+
+    def schema_state(self) -> migrations.SchemaState:
+        """The database's migration revision against this version's newest."""
+        with self._schema_errors():
+            return migrations.schema_state(self._engine)
+
+    def upgrade_schema(self) -> migrations.Upgrade:
+        """Migrate the database to the newest revision (``bandwright db upgrade``, tests)."""
+        with self._schema_errors():
+            return migrations.upgrade(self._engine)
+
+    @contextmanager
+    def _schema_errors(self) -> Iterator[None]:
         try:
-            _Base.metadata.create_all(self._engine)
-        except sa.exc.SQLAlchemyError as exc:
+            yield
+        except migrations.MigrationError as exc:
+            raise SchemaNotReadyError(str(exc)) from exc
+        except (sa.exc.OperationalError, sa.exc.InterfaceError) as exc:  # the server, not the SQL
             raise StoreUnavailableError(
                 f"cannot reach the store: {exc.__class__.__name__}"
             ) from exc
-        self._schema_ready = True
+        except sa.exc.SQLAlchemyError as exc:  # e.g. no permission to read or change the schema
+            reason = str(getattr(exc, "orig", None) or exc).splitlines()[0]
+            raise SchemaNotReadyError(
+                f"the schema could not be read or migrated: {exc.__class__.__name__}: {reason}"
+            ) from exc
 
     def ping(self) -> None:
-        """Check the database answers (and has its tables); raises StoreUnavailableError."""
+        """Check the database answers with this version's schema (:meth:`ensure_schema` until it
+        has once); raises :class:`StoreUnavailableError` or :class:`SchemaNotReadyError`."""
         if not self._schema_ready:
             self.ensure_schema()
         try:
@@ -255,7 +225,7 @@ class Store:
     def get_plan(self, plan_id: str) -> StoredPlan | None:
         """The stored plan with this id, or ``None``."""
         with self._session() as session:
-            row = session.get(_PlanRow, plan_id)
+            row = session.get(PlanRow, plan_id)
             if row is None:
                 return None
             return StoredPlan(
@@ -267,14 +237,14 @@ class Store:
         """A page of plans, newest first, and the total count."""
         query = (
             sa.select(
-                _PlanRow.id, _PlanRow.name, _PlanRow.created_at, _PlanRow.parent_id, _PlanRow.status
+                PlanRow.id, PlanRow.name, PlanRow.created_at, PlanRow.parent_id, PlanRow.status
             )
-            .order_by(_PlanRow.created_at.desc(), _PlanRow.id)
+            .order_by(PlanRow.created_at.desc(), PlanRow.id)
             .offset(offset)
             .limit(limit)
         )
         with self._session() as session:
-            total = session.scalar(sa.select(sa.func.count()).select_from(_PlanRow)) or 0
+            total = session.scalar(sa.select(sa.func.count()).select_from(PlanRow)) or 0
             items = [
                 PlanListItem(
                     id=r.id,
@@ -309,7 +279,7 @@ class Store:
         """Store a new queued job, held by ``owner`` for ``lease_s`` (in-process queue) or by
         nobody (a distributed queue carries it)."""
         now = utc_now()
-        row = _JobRow(
+        row = JobRow(
             id=job_id,
             name=request.name,
             state=JobState.QUEUED.value,
@@ -330,7 +300,7 @@ class Store:
     def get_job(self, job_id: str) -> JobRecord | None:
         """The job with this id, or ``None``."""
         with self._session() as session:
-            row = session.get(_JobRow, job_id)
+            row = session.get(JobRow, job_id)
             if row is None:
                 return None
             return JobRecord(_job_out(row), PlanRequest.model_validate_json(row.request_json))
@@ -339,21 +309,21 @@ class Store:
         """Start the job for ``owner``: it must be queued (and not held by another live owner)
         or running on an expired lease.  None when someone else has it or it has ended."""
         now = utc_now()
-        free = sa.or_(_JobRow.owner.is_(None), _JobRow.owner == owner, _JobRow.lease_until < now)
+        free = sa.or_(JobRow.owner.is_(None), JobRow.owner == owner, JobRow.lease_until < now)
         claimable = sa.or_(
-            sa.and_(_JobRow.state == JobState.QUEUED.value, free),
-            sa.and_(_JobRow.state == JobState.RUNNING.value, _JobRow.lease_until < now),
+            sa.and_(JobRow.state == JobState.QUEUED.value, free),
+            sa.and_(JobRow.state == JobState.RUNNING.value, JobRow.lease_until < now),
         )
         values = {
             "state": JobState.RUNNING.value,
             "owner": owner,
             "lease_until": now + timedelta(seconds=lease_s),
-            "attempts": _JobRow.attempts + 1,
+            "attempts": JobRow.attempts + 1,
             "updated_at": now,
         }
         with self._session() as session:
             claimed = session.execute(
-                sa.update(_JobRow).where(_JobRow.id == job_id, claimable).values(**values)
+                sa.update(JobRow).where(JobRow.id == job_id, claimable).values(**values)
             )
             if _changed(claimed) != 1:
                 return None
@@ -365,21 +335,21 @@ class Store:
         ids = list(job_ids)
         if not ids:
             return set()
-        held = sa.and_(_JobRow.id.in_(ids), _JobRow.owner == owner, _JobRow.state.in_(UNFINISHED))
+        held = sa.and_(JobRow.id.in_(ids), JobRow.owner == owner, JobRow.state.in_(UNFINISHED))
         until = utc_now() + timedelta(seconds=lease_s)
         with self._session() as session:
-            session.execute(sa.update(_JobRow).where(held).values(lease_until=until))
-            return set(session.scalars(sa.select(_JobRow.id).where(held)))
+            session.execute(sa.update(JobRow).where(held).values(lease_until=until))
+            return set(session.scalars(sa.select(JobRow.id).where(held)))
 
     def record_progress(self, job_id: str, owner: str, progress: JobProgress) -> bool:
         """Store the running job's latest progress; False when ``owner`` no longer runs it."""
         running = sa.and_(
-            _JobRow.id == job_id, _JobRow.owner == owner, _JobRow.state == JobState.RUNNING.value
+            JobRow.id == job_id, JobRow.owner == owner, JobRow.state == JobState.RUNNING.value
         )
         values = {"progress_json": progress.model_dump_json(), "updated_at": utc_now()}
         with self._session() as session:
             return bool(
-                _changed(session.execute(sa.update(_JobRow).where(running).values(**values)))
+                _changed(session.execute(sa.update(JobRow).where(running).values(**values)))
             )
 
     def finish_job(self, job_id: str, plan: PlanOut, request: PlanRequest) -> str | None:
@@ -390,7 +360,7 @@ class Store:
             raise ValueError("plan.id is None; only identified plans are stored")
         try:
             with self._session() as session:
-                row = session.get(_JobRow, job_id, with_for_update=True)
+                row = session.get(JobRow, job_id, with_for_update=True)
                 if row is None or row.state == JobState.CANCELLED.value:
                     return None
                 if row.state == JobState.DONE.value:
@@ -401,8 +371,8 @@ class Store:
                 return plan.id
         except sa.exc.IntegrityError:  # another attempt stored this job's plan first
             with self._session() as session:
-                first = session.scalar(sa.select(_PlanRow.id).where(_PlanRow.job_id == job_id))
-                row = session.get(_JobRow, job_id, with_for_update=True)
+                first = session.scalar(sa.select(PlanRow.id).where(PlanRow.job_id == job_id))
+                row = session.get(JobRow, job_id, with_for_update=True)
                 if row is not None and first is not None and row.state in UNFINISHED:
                     _mark_done(row, first)
                 return first
@@ -419,21 +389,21 @@ class Store:
     def _end_held(self, job_id: str, holder: str, **values: Any) -> bool:
         if isinstance(values.get("state"), JobState):
             values["state"] = values["state"].value
-        held = sa.and_(_JobRow.id == job_id, _JobRow.owner == holder, _JobRow.state.in_(UNFINISHED))
+        held = sa.and_(JobRow.id == job_id, JobRow.owner == holder, JobRow.state.in_(UNFINISHED))
         with self._session() as session:
             changed = session.execute(
-                sa.update(_JobRow).where(held).values(updated_at=utc_now(), **values)
+                sa.update(JobRow).where(held).values(updated_at=utc_now(), **values)
             )
             return bool(_changed(changed))
 
     def cancel_job(self, job_id: str) -> JobOut | None:
         """Cancel a queued or running job (its runner notices at its next lease renewal and
         stores nothing); the job as it now stands, or None when there is no such job."""
-        unfinished = sa.and_(_JobRow.id == job_id, _JobRow.state.in_(UNFINISHED))
+        unfinished = sa.and_(JobRow.id == job_id, JobRow.state.in_(UNFINISHED))
         values = {"state": JobState.CANCELLED.value, "lease_until": None, "updated_at": utc_now()}
         with self._session() as session:
-            session.execute(sa.update(_JobRow).where(unfinished).values(**values))
-            row = session.get(_JobRow, job_id)
+            session.execute(sa.update(JobRow).where(unfinished).values(**values))
+            row = session.get(JobRow, job_id)
             return None if row is None else _job_out(row)
 
     def adopt_jobs(
@@ -443,12 +413,12 @@ class Store:
         queued jobs nobody holds or sent): they become queued again, held by ``owner`` for
         ``lease_s`` (in-process) or by nobody, to be sent to the queue again."""
         now = utc_now()
-        adoptable = sa.and_(_JobRow.state.in_(UNFINISHED), _JobRow.lease_until < now)
+        adoptable = sa.and_(JobRow.state.in_(UNFINISHED), JobRow.lease_until < now)
         if unheld:
             free = sa.and_(
-                _JobRow.state == JobState.QUEUED.value,
-                _JobRow.owner.is_(None),
-                _JobRow.sent_at.is_(None),
+                JobRow.state == JobState.QUEUED.value,
+                JobRow.owner.is_(None),
+                JobRow.sent_at.is_(None),
             )
             adoptable = sa.or_(adoptable, free)
         until = None if lease_s is None else now + timedelta(seconds=lease_s)
@@ -461,13 +431,13 @@ class Store:
         }
         with self._session() as session:
             candidates = session.scalars(
-                sa.select(_JobRow.id).where(adoptable).order_by(_JobRow.created_at).limit(limit)
+                sa.select(JobRow.id).where(adoptable).order_by(JobRow.created_at).limit(limit)
             ).all()
         adopted = []
         for job_id in candidates:  # one compare-and-set each: two adopters never both win
             with self._session() as session:
                 won = session.execute(
-                    sa.update(_JobRow).where(_JobRow.id == job_id, adoptable).values(**values)
+                    sa.update(JobRow).where(JobRow.id == job_id, adoptable).values(**values)
                 )
                 if _changed(won) == 1:
                     adopted.append(job_id)
@@ -478,14 +448,14 @@ class Store:
         storing and sending them), older than ``older_than_s``."""
         cutoff = utc_now() - timedelta(seconds=older_than_s)
         query = (
-            sa.select(_JobRow.id)
+            sa.select(JobRow.id)
             .where(
-                _JobRow.state == JobState.QUEUED.value,
-                _JobRow.owner.is_(None),
-                _JobRow.sent_at.is_(None),
-                _JobRow.updated_at < cutoff,
+                JobRow.state == JobState.QUEUED.value,
+                JobRow.owner.is_(None),
+                JobRow.sent_at.is_(None),
+                JobRow.updated_at < cutoff,
             )
-            .order_by(_JobRow.created_at)
+            .order_by(JobRow.created_at)
             .limit(limit)
         )
         with self._session() as session:
@@ -495,44 +465,44 @@ class Store:
         """Record that the job was handed to the queue (False: another process did it first).
         ``sent=False`` undoes it after a failed send."""
         if sent:
-            where = sa.and_(_JobRow.id == job_id, _JobRow.sent_at.is_(None))
+            where = sa.and_(JobRow.id == job_id, JobRow.sent_at.is_(None))
             value = utc_now()
         else:
-            where, value = _JobRow.id == job_id, None
+            where, value = JobRow.id == job_id, None
         with self._session() as session:
             return bool(
-                _changed(session.execute(sa.update(_JobRow).where(where).values(sent_at=value)))
+                _changed(session.execute(sa.update(JobRow).where(where).values(sent_at=value)))
             )
 
     def count_jobs(self, state: JobState, *, key_id: str | None = None) -> int:
         """How many jobs are in ``state`` (only those submitted with ``key_id``, when given)."""
-        query = sa.select(sa.func.count()).select_from(_JobRow).where(_JobRow.state == state.value)
+        query = sa.select(sa.func.count()).select_from(JobRow).where(JobRow.state == state.value)
         if key_id is not None:
-            query = query.where(_JobRow.key_id == key_id)
+            query = query.where(JobRow.key_id == key_id)
         with self._session() as session:
             return int(session.scalar(query) or 0)
 
     def job_owner(self, job_id: str) -> str | None:
         """The process holding the job now (``host:pid:tag``), if any."""
         with self._session() as session:
-            return session.scalar(sa.select(_JobRow.owner).where(_JobRow.id == job_id))
+            return session.scalar(sa.select(JobRow.owner).where(JobRow.id == job_id))
 
     def count_plans(self) -> int:
         """How many plans are stored."""
         with self._session() as session:
-            return int(session.scalar(sa.select(sa.func.count()).select_from(_PlanRow)) or 0)
+            return int(session.scalar(sa.select(sa.func.count()).select_from(PlanRow)) or 0)
 
     def plans_of_job(self, job_id: str) -> list[str]:
         """Ids of the plans stored for this job (never more than one)."""
         with self._session() as session:
-            return list(session.scalars(sa.select(_PlanRow.id).where(_PlanRow.job_id == job_id)))
+            return list(session.scalars(sa.select(PlanRow.id).where(PlanRow.job_id == job_id)))
 
     # ------------------------------------------------------------------------ batches
 
     def add_batch(self, batch_id: str, name: str, size: int, key_id: str | None) -> datetime:
         """Store a new batch (its jobs are added with ``batch=(batch_id, position)``)."""
         now = utc_now()
-        row = _BatchRow(id=batch_id, name=name, created_at=now, size=size, key_id=key_id)
+        row = BatchRow(id=batch_id, name=name, created_at=now, size=size, key_id=key_id)
         with self._session() as session:
             session.add(row)
         return now
@@ -541,13 +511,13 @@ class Store:
         """The batch with its jobs in item order, each with its plan's status and unserved
         count once done; None when there is no such batch."""
         query = (
-            sa.select(_JobRow, _PlanRow.status, _PlanRow.plan_json)
-            .outerjoin(_PlanRow, _PlanRow.id == _JobRow.plan_id)
-            .where(_JobRow.batch_id == batch_id)
-            .order_by(_JobRow.batch_position)
+            sa.select(JobRow, PlanRow.status, PlanRow.plan_json)
+            .outerjoin(PlanRow, PlanRow.id == JobRow.plan_id)
+            .where(JobRow.batch_id == batch_id)
+            .order_by(JobRow.batch_position)
         )
         with self._session() as session:
-            batch = session.get(_BatchRow, batch_id)
+            batch = session.get(BatchRow, batch_id)
             if batch is None:
                 return None
             items = []
@@ -561,14 +531,14 @@ class Store:
     def find_replay(self, key: str) -> Replay | None:
         """The answer first given for this Idempotency-Key (route-qualified), or None."""
         with self._session() as session:
-            row = session.get(_ReplayRow, key)
+            row = session.get(ReplayRow, key)
             if row is None:
                 return None
             return Replay(row.body_hash, row.status, row.location, row.body_json)
 
     def add_replay(self, key: str, replay: Replay) -> Replay:
         """Keep the answer for this key; when another request kept one first, that one."""
-        row = _ReplayRow(
+        row = ReplayRow(
             key=key,
             body_hash=replay.body_hash,
             status=replay.status,
@@ -590,7 +560,7 @@ class Store:
 
     def add_key(self, key_id: str, name: str, scope: str, key_hash: str) -> KeyRecord:
         """Store a new key's hash (the key itself is never stored)."""
-        row = _KeyRow(id=key_id, name=name, scope=scope, key_hash=key_hash, created_at=utc_now())
+        row = KeyRow(id=key_id, name=name, scope=scope, key_hash=key_hash, created_at=utc_now())
         with self._session() as session:
             session.add(row)
         return _key_record(row)
@@ -598,13 +568,13 @@ class Store:
     def list_keys(self) -> list[KeyRecord]:
         """Every key, oldest first, revoked ones included."""
         with self._session() as session:
-            rows = session.scalars(sa.select(_KeyRow).order_by(_KeyRow.created_at)).all()
+            rows = session.scalars(sa.select(KeyRow).order_by(KeyRow.created_at)).all()
             return [_key_record(r) for r in rows]
 
     def revoke_key(self, key_id: str) -> bool:
         """Revoke a key; False when there is no such key or it was revoked already."""
         with self._session() as session:
-            row = session.get(_KeyRow, key_id)
+            row = session.get(KeyRow, key_id)
             if row is None or row.revoked_at is not None:
                 return False
             row.revoked_at = utc_now()
@@ -614,15 +584,23 @@ class Store:
         """The live (not revoked) key with this hash, or None."""
         with self._session() as session:
             row = session.scalars(
-                sa.select(_KeyRow).where(_KeyRow.key_hash == key_hash, _KeyRow.revoked_at.is_(None))
+                sa.select(KeyRow).where(KeyRow.key_hash == key_hash, KeyRow.revoked_at.is_(None))
             ).first()
             return None if row is None else _key_record(row)
 
     def has_keys(self) -> bool:
         """Whether any live key exists (without one the service runs open)."""
         with self._session() as session:
-            query = sa.select(sa.func.count()).select_from(_KeyRow)
-            return bool(session.scalar(query.where(_KeyRow.revoked_at.is_(None))))
+            query = sa.select(sa.func.count()).select_from(KeyRow)
+            return bool(session.scalar(query.where(KeyRow.revoked_at.is_(None))))
+
+
+def _behind(state: migrations.SchemaState) -> str:
+    found = state.current or "none (an empty database, or tables made before migrations)"
+    return (
+        f"the database's schema revision is {found}, behind this version's {state.head}: "
+        "run `bandwright db upgrade` (once, before the replicas of a new release start)"
+    )
 
 
 def _changed(result: sa.Result[Any]) -> int:
@@ -630,8 +608,8 @@ def _changed(result: sa.Result[Any]) -> int:
     return int(cast("sa.CursorResult[Any]", result).rowcount)
 
 
-def _plan_row(plan: PlanOut, request: PlanRequest, job_id: str | None) -> _PlanRow:
-    return _PlanRow(
+def _plan_row(plan: PlanOut, request: PlanRequest, job_id: str | None) -> PlanRow:
+    return PlanRow(
         id=plan.id,
         created_at=plan.created_at,
         parent_id=plan.parent_id,
@@ -643,14 +621,14 @@ def _plan_row(plan: PlanOut, request: PlanRequest, job_id: str | None) -> _PlanR
     )
 
 
-def _mark_done(row: _JobRow, plan_id: str) -> None:
+def _mark_done(row: JobRow, plan_id: str) -> None:
     row.state = JobState.DONE.value
     row.plan_id = plan_id
     row.lease_until = None
     row.updated_at = utc_now()
 
 
-def _job_out(row: _JobRow) -> JobOut:
+def _job_out(row: JobRow) -> JobOut:
     progress = (
         None if row.progress_json is None else JobProgress.model_validate_json(row.progress_json)
     )

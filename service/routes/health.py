@@ -1,4 +1,5 @@
-"""Probes and metrics: ``/healthz`` (alive), ``/readyz`` (store reachable), ``/metrics``."""
+"""Probes and metrics: ``/healthz`` (alive), ``/readyz`` (store reachable and its schema this
+version's), ``/metrics``."""
 
 from __future__ import annotations
 
@@ -8,6 +9,7 @@ from typing import Annotated
 from fastapi import APIRouter, Depends, Response
 from fastapi.responses import JSONResponse
 
+from service.errors import SchemaNotReadyError
 from service.keys import authorise
 from service.metrics import CONTENT_TYPE
 from service.routes.plans import AUTH_RESPONSES
@@ -30,16 +32,26 @@ async def healthz() -> HealthOut:
 @router.get(
     "/readyz",
     operation_id="readyz",
-    summary="The store answers",
+    summary="The store answers, with this version's schema",
     responses={
         200: {"model": HealthOut, "description": "store reachable"},
-        503: {"model": HealthOut, "description": "store unreachable"},
+        503: {
+            "model": HealthOut,
+            "description": "store unreachable, or its schema behind this version (the detail "
+            "says to run `bandwright db upgrade`)",
+        },
     },
 )
 def readyz(runtime: Annotated[Runtime, Depends(get_runtime)]) -> JSONResponse:
-    """503 while the store cannot be reached."""
+    """503 while the store cannot be reached or its schema is behind this version.  The first
+    time it answers, a job queue that could not start without it starts."""
     try:
         runtime.store.ping()
+        runtime.store_ready()
+    except SchemaNotReadyError as exc:
+        logger.warning("not ready: %s", exc)
+        body = HealthOut(status="unavailable", store="outdated", detail=str(exc))
+        return JSONResponse(body.model_dump(), status_code=503)
     except StoreUnavailableError as exc:
         logger.warning("not ready: %s", exc)
         body = HealthOut(status="unavailable", store="unreachable")

@@ -6,20 +6,19 @@ Requests are small invented scenarios with short time limits so the whole API su
 from __future__ import annotations
 
 import copy
-import os
 import threading
-import uuid
 from collections.abc import AsyncIterator, Callable
 from contextlib import asynccontextmanager
 from typing import Any
 
 import httpx
-import pytest
-import sqlalchemy as sa
+from db_support import POSTGRES_URL as POSTGRES_URL  # kept importable from here
+from db_support import fresh_postgres_url
 from fastapi import FastAPI
 
 from service.runtime import SolveFunction
 from service.settings import Settings
+from service.store import Store
 from solver.model import Plan, Problem, ProgressEvent
 
 SMALL_REQUEST: dict[str, Any] = {
@@ -80,20 +79,13 @@ class BlockingSolve:
         return self.real(problem, progress=progress, cancel=cancel)
 
 
-POSTGRES_URL = os.environ.get("BANDWRIGHT_TEST_POSTGRES_URL", "")
-"""A PostgreSQL database for the store tests (``.ci/run`` starts one and sets it)."""
-
-
-def on_postgres(settings: Settings) -> Settings:
-    """``settings`` with a fresh schema of the test PostgreSQL database as the store (the test
-    is skipped when there is none)."""
-    if not POSTGRES_URL:
-        pytest.skip("BANDWRIGHT_TEST_POSTGRES_URL is not set (.ci/run sets it)")
-    schema = f"t{uuid.uuid4().hex[:12]}"
-    engine = sa.create_engine(POSTGRES_URL)
-    with engine.begin() as conn:
-        conn.execute(sa.text(f"CREATE SCHEMA {schema}"))
-    engine.dispose()
-    separator = "&" if "?" in POSTGRES_URL else "?"
-    url = f"{POSTGRES_URL}{separator}options=-csearch_path%3D{schema}"
+def on_postgres(settings: Settings, *, migrated: bool = True) -> Settings:
+    """``settings`` with a fresh schema of the test PostgreSQL database as the store, brought to
+    the newest migration (as ``bandwright db upgrade`` does; replicas never migrate it), or left
+    empty with ``migrated=False``.  The test is skipped when there is no test database."""
+    url = fresh_postgres_url()
+    if migrated:
+        store = Store(url)
+        store.upgrade_schema()
+        store.close()
     return settings.model_copy(update={"database_url": url})

@@ -1,10 +1,13 @@
-"""Fixtures of the API tests: settings on a temporary SQLite file, an app, the real solver."""
+"""Fixtures of the API tests: settings on a temporary SQLite file (or, for the store tests, on
+SQLite and on PostgreSQL), an app, the real solver."""
 
 from __future__ import annotations
 
 from pathlib import Path
 
 import pytest
+from api_support import on_postgres
+from db_support import BACKENDS
 from fastapi import FastAPI
 
 from service.app import create_app
@@ -28,6 +31,13 @@ def settings(tmp_path: Path) -> Settings:
         retry_after_s=3,
         progress_interval_s=0.01,
     )
+
+
+@pytest.fixture(params=BACKENDS)
+def stores(request: pytest.FixtureRequest, settings: Settings) -> Settings:
+    """``settings`` on SQLite, then on PostgreSQL: the tests that go through the store run on
+    both (the PostgreSQL run is skipped when there is no test database)."""
+    return settings if request.param == "sqlite" else on_postgres(settings)
 
 
 @pytest.fixture

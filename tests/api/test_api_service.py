@@ -1,5 +1,5 @@
 """Service machinery: solve slots and 503, probes during a long solve, jobs across a restart,
-metrics and readiness.
+metrics and readiness (a store unreachable, or its schema behind this version).
 
 Sources: RFC 9110 §15.6.4 (503 Service Unavailable) with §10.2.3 (Retry-After, delay in seconds)
 and §15.3.3 (202 Accepted); Prometheus text exposition format 0.0.4 (``# TYPE`` lines, counter
@@ -8,19 +8,23 @@ samples ending in ``_total``, histogram ``_bucket``/``_count``/``_sum`` samples)
 
 from __future__ import annotations
 
+import logging
 import time
 from pathlib import Path
 
 import anyio
 import httpx
 import pytest
-from api_support import BlockingSolve, serving, small_request
+import sqlalchemy as sa
+from alembic import command
+from api_support import BlockingSolve, on_postgres, serving, small_request
 
 from service.app import create_app
-from service.runtime import SolveFunction
-from service.schemas import JobState
+from service.migrations import alembic_config, head_revision
+from service.runtime import SolveFunction, new_id
+from service.schemas import JobState, PlanRequest
 from service.settings import Settings
-from service.store import Store
+from service.store import Store, utc_now
 
 pytestmark = pytest.mark.anyio
 
@@ -92,21 +96,21 @@ async def test_job_lifecycle(settings: Settings, real_solve: SolveFunction) -> N
     assert invalid.status_code == 422
 
 
-async def test_jobs_survive_a_restart(settings: Settings, real_solve: SolveFunction) -> None:
+async def test_jobs_survive_a_restart(stores: Settings, real_solve: SolveFunction) -> None:
     double = BlockingSolve(real_solve)
-    async with serving(create_app(settings, solve=double)) as client:
+    async with serving(create_app(stores, solve=double)) as client:
         first = (await client.post("/v1/jobs", json=small_request(name="first"))).headers
         second = (await client.post("/v1/jobs", json=small_request(name="second"))).headers
         await _wait_entered(double, 1)
         assert (await client.get(second["location"])).json()["state"] == "queued"
         # Leaving the block shuts the app down while "first" runs and "second" waits.
-    store = Store(settings.database_url)
+    store = Store(stores.database_url)
     for headers in (first, second):
         record = store.get_job(headers["location"].rsplit("/", 1)[-1])
         assert record is not None
         assert record.job.state is JobState.QUEUED
     store.close()
-    async with serving(create_app(settings, solve=real_solve)) as client:
+    async with serving(create_app(stores, solve=real_solve)) as client:
         for headers in (first, second):
             job = await _wait_job(client, headers["location"], "done")
             assert (await client.get(str(job["plan_url"]))).status_code == 200
@@ -140,3 +144,59 @@ async def test_readyz_fails_while_the_store_is_unreachable(tmp_path: Path) -> No
     assert (down.status_code, down.json()["store"]) == (503, "unreachable")
     assert alive.status_code == 200
     assert (up.status_code, up.json()["store"]) == (200, "ok")
+
+
+def _left_by_the_previous_release(url: str) -> str:
+    """Bring an empty database to revision 0001 (the schema before job leases) with one job
+    queued in it, as the release before would have left it; the job's id."""
+    job_id = new_id()
+    request = PlanRequest.model_validate(small_request(time_limit_s=1.0)).model_dump_json()
+    now = utc_now()
+    engine = sa.create_engine(url)
+    with engine.begin() as connection:
+        command.upgrade(alembic_config(connection), "0001")
+        connection.execute(
+            sa.text(
+                "INSERT INTO jobs (id, name, state, created_at, updated_at, request_json) "
+                "VALUES (:id, 'left queued', 'queued', :now, :now, :request)"
+            ),
+            {"id": job_id, "now": now, "request": request},
+        )
+    engine.dispose()
+    return job_id
+
+
+async def test_readyz_is_503_on_a_schema_behind_until_db_upgrade_runs(
+    settings: Settings, real_solve: SolveFunction, caplog: pytest.LogCaptureFixture
+) -> None:
+    behind = on_postgres(settings, migrated=False)  # replicas never migrate PostgreSQL
+    job_id = _left_by_the_previous_release(behind.database_url)
+    with caplog.at_level(logging.WARNING):
+        async with serving(create_app(behind, solve=real_solve)) as client:
+            down = await client.get("/readyz")
+            refused = await client.post("/v1/plans", json=small_request())
+            store = Store(behind.database_url)
+            store.upgrade_schema()  # what `bandwright db upgrade` does
+            store.close()
+            up = await client.get("/readyz")
+            job = await _wait_job(client, f"/v1/jobs/{job_id}", "done")
+    assert (down.status_code, down.json()["store"]) == (503, "outdated")
+    assert "0001, behind this version's" in down.json()["detail"]
+    assert "run `bandwright db upgrade`" in down.json()["detail"]
+    assert refused.status_code == 503 and "bandwright db upgrade" in refused.json()["detail"]
+    assert (up.status_code, up.json()["store"]) == (200, "ok")
+    assert "store not ready at start-up" in caplog.text
+    assert job["attempts"] == 1  # the queue started once the store was ready
+
+
+async def test_the_embedded_sqlite_store_migrates_itself_at_start(
+    settings: Settings, real_solve: SolveFunction
+) -> None:
+    job_id = _left_by_the_previous_release(settings.database_url)
+    async with serving(create_app(settings, solve=real_solve)) as client:
+        ready = await client.get("/readyz")
+        await _wait_job(client, f"/v1/jobs/{job_id}", "done")
+    store = Store(settings.database_url)
+    assert store.schema_state().current == head_revision()
+    store.close()
+    assert ready.status_code == 200
