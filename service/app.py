@@ -3,8 +3,14 @@
 ``create_app(settings)`` builds an application around one :class:`~service.store.Store`, one
 :class:`~service.runtime.SolveGate` and one job queue (:mod:`service.queue`: threads here, or
 Celery workers when ``BANDWRIGHT_BROKER_URL`` is set), created at start-up (lifespan) and closed
-at shutdown.  Tests pass their own settings (and, to exercise the service
-machinery alone, their own solve function).
+at shutdown, with its request rates (:mod:`service.ratelimit`) and its pictures and their
+drawing processes (:mod:`service.pictures`).
+Tests pass their own settings (and, to exercise the service machinery alone, their own solve
+and drawing functions).
+
+Middleware, outermost first: nosniff, metrics, body limit, unexpected errors.  On every
+route but the probes the key check runs first, then the request rate; the solving POSTs then
+count against the solve rate.
 """
 
 from __future__ import annotations
@@ -20,9 +26,11 @@ from service.caching import NoSniffMiddleware
 from service.errors import BodyLimitMiddleware, UnexpectedErrorMiddleware, install_error_handlers
 from service.keys import authorise
 from service.metrics import Metrics, MetricsMiddleware
+from service.pictures import DrawFunction, Pictures, draw_picture
 from service.queue import BrokerJobQueue, LocalJobQueue
+from service.ratelimit import RateLimits, limit_requests
 from service.routes import batches, carriers, health, jobs, modcods, plans
-from service.routes.plans import AUTH_RESPONSES, COMMON_RESPONSES
+from service.routes.plans import AUTH_RESPONSES, COMMON_RESPONSES, LIMIT_RESPONSES
 from service.runtime import Runtime, SolveFunction, SolveGate
 from service.settings import Settings, get_settings
 from service.store import Store, StoreUnavailableError
@@ -64,7 +72,12 @@ def _job_queue(runtime: Runtime) -> LocalJobQueue | BrokerJobQueue:
     return BrokerJobQueue(runtime, make_sender(settings))
 
 
-def create_app(settings: Settings | None = None, *, solve: SolveFunction | None = None) -> FastAPI:
+def create_app(
+    settings: Settings | None = None,
+    *,
+    solve: SolveFunction | None = None,
+    draw: DrawFunction | None = None,
+) -> FastAPI:
     """Build the application.
 
     Parameters
@@ -73,9 +86,13 @@ def create_app(settings: Settings | None = None, *, solve: SolveFunction | None 
         Defaults to :func:`service.settings.get_settings` (environment variables).
     solve : callable, optional
         The planning function; defaults to :func:`solver.solve`.
+    draw : callable, optional
+        Draws a plan's picture in a worker process (picklable); defaults to
+        :func:`service.pictures.draw_picture`.
     """
     settings = get_settings() if settings is None else settings
     metrics = Metrics()
+    pictures = Pictures(settings, metrics, draw_picture if draw is None else draw)
 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
@@ -96,6 +113,7 @@ def create_app(settings: Settings | None = None, *, solve: SolveFunction | None 
         try:
             yield
         finally:
+            pictures.close()
             runtime.jobs.shutdown()
             store.close()
 
@@ -110,6 +128,8 @@ def create_app(settings: Settings | None = None, *, solve: SolveFunction | None 
         redoc_url="/redoc" if settings.docs else None,
     )
     app.dependency_overrides[get_settings] = lambda: settings
+    app.state.rate_limits = RateLimits(settings, metrics)
+    app.state.pictures = pictures
     install_error_handlers(app)
     app.add_middleware(UnexpectedErrorMiddleware)  # innermost: the 500 is counted and timed
     app.add_middleware(BodyLimitMiddleware, limit_bytes=settings.max_body_bytes)
@@ -117,7 +137,9 @@ def create_app(settings: Settings | None = None, *, solve: SolveFunction | None 
     app.add_middleware(NoSniffMiddleware)
     for module in (plans, jobs, batches, carriers, modcods):
         app.include_router(
-            module.router, dependencies=[Depends(authorise)], responses=AUTH_RESPONSES
+            module.router,
+            dependencies=[Depends(authorise), Depends(limit_requests)],
+            responses={**AUTH_RESPONSES, **LIMIT_RESPONSES},
         )
-    app.include_router(health.router)  # the probes are open; /metrics checks its own key
+    app.include_router(health.router)  # the probes are open and unlimited; /metrics is neither
     return app

@@ -12,7 +12,8 @@ from __future__ import annotations
 
 from functools import lru_cache
 
-from pydantic import Field
+from limits import parse_many
+from pydantic import Field, field_validator
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
 __all__ = ["Settings", "get_settings"]
@@ -75,6 +76,47 @@ class Settings(BaseSettings):
     docs: bool = Field(True, description="serve /docs and /redoc (the OpenAPI document stays)")
     host: str = Field("127.0.0.1", description="address `bandwright serve` binds")
     port: int = Field(8000, ge=0, le=65535, description="port `bandwright serve` binds")
+    rate_limit: str = Field(
+        "120/minute",
+        description="requests per API key (open: per client address) on every route but the "
+        "probes, as `limits` strings ('120/minute', '10/second;1000/hour'); empty: no limit",
+    )
+    solve_rate_limit: str = Field(
+        "10/minute",
+        description="solving POSTs (/v1/plans, /v1/jobs) per API key or address, counted on "
+        "top of rate_limit; empty: no limit",
+    )
+    max_jobs_per_key: int = Field(
+        10, ge=1, description="queued plus running jobs one API key may hold; beyond this → 429"
+    )
+    max_work_configurations: int = Field(
+        2_000_000,
+        ge=1,
+        description="upper bound on the carrier configurations one plan may ask the solver to "
+        "weigh (service.worksize); beyond this → 422",
+    )
+    picture_workers: int = Field(
+        1, ge=1, le=16, description="processes drawing spectrum pictures (one picture each)"
+    )
+    picture_queue: int = Field(
+        4, ge=0, description="pictures allowed to wait for a drawing process; beyond this → 503"
+    )
+    picture_cache_bytes: int = Field(
+        64 * MEBIBYTE, ge=0, description="memory kept for drawn pictures (bytes; 0: none kept)"
+    )
+    picture_timeout_s: float = Field(
+        120.0, gt=0, le=3600, description="a drawing that takes longer is stopped (s)"
+    )
+
+    @field_validator("rate_limit", "solve_rate_limit")
+    @classmethod
+    def _rate(cls, value: str) -> str:
+        if value.strip():
+            try:
+                parse_many(value)
+            except ValueError as exc:
+                raise ValueError(f"{value!r} is not a rate such as '120/minute': {exc}") from exc
+        return value.strip()
 
 
 @lru_cache(maxsize=1)

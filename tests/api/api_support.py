@@ -8,9 +8,11 @@ from __future__ import annotations
 import copy
 import os
 import threading
+import time
 import uuid
 from collections.abc import AsyncIterator, Callable
 from contextlib import asynccontextmanager
+from pathlib import Path
 from typing import Any
 
 import httpx
@@ -97,3 +99,27 @@ def on_postgres(settings: Settings) -> Settings:
     separator = "&" if "?" in POSTGRES_URL else "?"
     url = f"{POSTGRES_URL}{separator}options=-csearch_path%3D{schema}"
     return settings.model_copy(update={"database_url": url})
+
+
+# ----------------------------------------------------------------------------- drawing doubles
+# They run in the picture worker processes, so they are module-level functions (picklable),
+# bound to their arguments with functools.partial.
+
+
+def sized_picture(size: int, plan_json: str, request_json: str, fmt: str) -> bytes:
+    """A drawing double: a picture of ``size`` bytes, drawn at once (no matplotlib)."""
+    return b"<svg/>".ljust(size)
+
+
+HELD_PICTURE = b"<svg>held</svg>"
+
+
+def held_picture(folder: str, plan_json: str, request_json: str, fmt: str) -> bytes:
+    """A drawing double that keeps working until released: it writes ``pid-<its pid>`` into
+    ``folder``, then works until a file ``release`` appears there."""
+    here = Path(folder)
+    (here / f"pid-{os.getpid()}").write_text(plan_json)
+    while not (here / "release").exists():
+        sum(range(20_000))  # a little CPU work, as a drawing does
+        time.sleep(0.005)
+    return HELD_PICTURE
