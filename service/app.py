@@ -3,12 +3,12 @@
 ``create_app(settings)`` builds an application around one :class:`~service.store.Store`, one
 :class:`~service.runtime.SolveGate` and one job queue (:mod:`service.queue`: threads here, or
 Celery workers when ``BANDWRIGHT_BROKER_URL`` is set), created at start-up (lifespan) and closed
-at shutdown, with its request rates (:mod:`service.ratelimit`) and its pictures and their
-drawing processes (:mod:`service.pictures`).
+at shutdown, with its request rates (:mod:`service.ratelimit`), its pictures and their drawing
+processes (:mod:`service.pictures`) and, when origins are listed, CORS (:mod:`service.cors`).
 Tests pass their own settings (and, to exercise the service machinery alone, their own solve
 and drawing functions).
 
-Middleware, outermost first: nosniff, metrics, body limit, unexpected errors.  On every
+Middleware, outermost first: CORS, nosniff, metrics, body limit, unexpected errors.  On every
 route but the probes the key check runs first, then the request rate; the solving POSTs then
 count against the solve rate.
 """
@@ -23,6 +23,7 @@ from importlib.metadata import PackageNotFoundError, version
 from fastapi import Depends, FastAPI
 
 from service.caching import NoSniffMiddleware
+from service.cors import add_cors
 from service.errors import BodyLimitMiddleware, UnexpectedErrorMiddleware, install_error_handlers
 from service.keys import authorise
 from service.metrics import Metrics, MetricsMiddleware
@@ -135,6 +136,7 @@ def create_app(
     app.add_middleware(BodyLimitMiddleware, limit_bytes=settings.max_body_bytes)
     app.add_middleware(MetricsMiddleware, metrics=metrics)
     app.add_middleware(NoSniffMiddleware)
+    add_cors(app, settings.cors_origins)  # outermost: refusals carry the CORS headers too
     for module in (plans, jobs, batches, carriers, modcods):
         app.include_router(
             module.router,

@@ -11,12 +11,14 @@ itself (:mod:`solver.physics.profilecache`), so the command line, the service an
 from __future__ import annotations
 
 from functools import lru_cache
+from typing import Annotated
+from urllib.parse import urlsplit
 
 from limits import parse_many
 from pydantic import Field, field_validator
-from pydantic_settings import BaseSettings, SettingsConfigDict
+from pydantic_settings import BaseSettings, NoDecode, SettingsConfigDict
 
-__all__ = ["Settings", "get_settings"]
+__all__ = ["Settings", "get_settings", "origin_problem"]
 
 DEFAULT_DATABASE_URL = "sqlite:///./bandwright.db"
 MEBIBYTE = 1024 * 1024
@@ -95,6 +97,11 @@ class Settings(BaseSettings):
         description="upper bound on the carrier configurations one plan may ask the solver to "
         "weigh (service.worksize); beyond this → 422",
     )
+    cors_origins: Annotated[list[str], NoDecode] = Field(
+        default_factory=list,
+        description="origins allowed to call from a browser, comma-separated and exact "
+        "(https://ops.example.org); empty: no CORS headers at all",
+    )
     picture_workers: int = Field(
         1, ge=1, le=16, description="processes drawing spectrum pictures (one picture each)"
     )
@@ -117,6 +124,47 @@ class Settings(BaseSettings):
             except ValueError as exc:
                 raise ValueError(f"{value!r} is not a rate such as '120/minute': {exc}") from exc
         return value.strip()
+
+    @field_validator("cors_origins", mode="before")
+    @classmethod
+    def _split_origins(cls, value: object) -> object:
+        if isinstance(value, str):
+            return [item.strip() for item in value.split(",") if item.strip()]
+        return value
+
+    @field_validator("cors_origins")
+    @classmethod
+    def _exact_origins(cls, value: list[str]) -> list[str]:
+        for origin in value:
+            why = origin_problem(origin)
+            if why is not None:
+                raise ValueError(f"{origin!r} {why}")
+        return value
+
+
+def origin_problem(origin: str) -> str | None:
+    """Why ``origin`` is not an exact web origin (RFC 6454 §6.2 serialisation:
+    ``scheme://host[:port]``, no path, no wildcard), or None when it is one.
+
+    >>> origin_problem("https://ops.example.org:8443") is None
+    True
+    >>> origin_problem("https://ops.example.org/")
+    'must be scheme://host[:port] with no path, query or fragment'
+    """
+    if origin == "*":
+        return "is a wildcard; list each origin"
+    try:
+        parts = urlsplit(origin)
+        port = parts.port
+    except ValueError:
+        return "is not a URL"
+    if parts.scheme not in ("http", "https") or not parts.hostname:
+        return "must start with http:// or https:// and name a host"
+    if parts.path or parts.query or parts.fragment or "@" in parts.netloc:
+        return "must be scheme://host[:port] with no path, query or fragment"
+    if port is not None and not 0 < port < 65536:
+        return "has a port outside 1–65535"
+    return None
 
 
 @lru_cache(maxsize=1)
