@@ -212,26 +212,13 @@ def _job_error(job_id: str, exc: Exception) -> dict[str, Any]:
 
 
 def _admit(runtime: Runtime, owner_key: str | None) -> None:
-    """Refuse a job over its key's cap of queued plus running jobs (429), then one the queue
-    has no place for (503).  Served open (no key) only the queue's bound applies.  The count
-    and the insert that follows are not one transaction: submissions racing on one key may
-    pass the cap by the number that race."""
-    from service.errors import TooManyRequestsError
+    """Refuse a job past its key's cap of queued plus running jobs (429), then one the queue
+    has no place for (503)."""
+    from service.ratelimit import check_job_cap
 
+    check_job_cap(runtime, owner_key)
     settings = runtime.settings
-    store = runtime.store
-    if owner_key is not None:
-        cap = settings.max_jobs_per_key
-        held = sum(
-            store.count_jobs(s, key_id=owner_key) for s in (JobState.QUEUED, JobState.RUNNING)
-        )
-        if held >= cap:
-            detail = (
-                f"this API key holds {held} queued or running jobs and its cap is {cap} "
-                "(BANDWRIGHT_MAX_JOBS_PER_KEY): wait for one to end, or cancel one"
-            )
-            raise TooManyRequestsError("too-many-jobs", detail, settings.retry_after_s)
-    if store.count_jobs(JobState.QUEUED) >= settings.max_queued_jobs:
+    if runtime.store.count_jobs(JobState.QUEUED) >= settings.max_queued_jobs:
         raise SolverBusyError(settings.retry_after_s)
 
 

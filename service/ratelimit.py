@@ -1,4 +1,5 @@
-"""Request rates per API key: 429 Too Many Requests with Retry-After, counted by ``limits``.
+"""Limits per API key: request rates, counted by ``limits``, and the cap on a key's jobs; past
+either, 429 Too Many Requests with Retry-After.
 
 Every request but the probes counts against ``BANDWRIGHT_RATE_LIMIT`` for its API key (served
 open: for its client address); the solving POSTs (``/v1/plans``, ``/v1/jobs``) also count
@@ -11,6 +12,10 @@ when ``BANDWRIGHT_BROKER_URL`` is a ``redis://`` (or ``rediss://``) URL, so that
 them.  A storage that fails or does not answer within :data:`STORAGE_TIMEOUT_S` lets the request
 through (fail open) and is logged, at most once per :data:`LOG_EVERY_S`: a rate limit is worth
 less than the service.
+
+A key may hold at most ``BANDWRIGHT_MAX_JOBS_PER_KEY`` queued or running jobs
+(:func:`check_job_cap`, called when a job or a batch is submitted); past it, 429
+``too-many-jobs``.  Served open (no key) only the queue's own bound applies.
 
 Behind a reverse proxy the client address is the proxy's unless the server is told to trust
 its forwarding headers (``uvicorn --proxy-headers --forwarded-allow-ips``).
@@ -38,11 +43,14 @@ from limits.storage import storage_from_string
 from service.errors import TooManyRequestsError
 from service.keys import key_id_of
 from service.metrics import Metrics
+from service.runtime import Runtime
+from service.schemas import JobState
 from service.settings import Settings
 
 __all__ = [
     "RateKind",
     "RateLimits",
+    "check_job_cap",
     "client_identity",
     "limit_requests",
     "limit_solves",
@@ -158,3 +166,28 @@ async def limit_requests(request: Request) -> None:
 async def limit_solves(request: Request) -> None:
     """FastAPI dependency of the solving POSTs: count against the solve rate as well."""
     await _limits(request).check(RateKind.SOLVE, client_identity(request))
+
+
+def check_job_cap(runtime: Runtime, owner_key: str | None, adding: int = 1) -> None:
+    """Refuse (429 ``too-many-jobs``) ``adding`` more jobs for ``owner_key`` when its queued
+    and running jobs would then exceed ``BANDWRIGHT_MAX_JOBS_PER_KEY``; no cap served open.
+
+    The count and the inserts that follow are not one transaction: submissions racing on one
+    key may pass the cap by the number that race.
+    """
+    if owner_key is None:
+        return
+    settings = runtime.settings
+    cap = settings.max_jobs_per_key
+    held = sum(
+        runtime.store.count_jobs(state, key_id=owner_key)
+        for state in (JobState.QUEUED, JobState.RUNNING)
+    )
+    if held + adding > cap:
+        asked = "one more" if adding == 1 else f"{adding} more"
+        detail = (
+            f"this API key holds {held} queued or running jobs and its cap is {cap} "
+            f"(BANDWRIGHT_MAX_JOBS_PER_KEY), so {asked} cannot be queued: wait for some to end, "
+            "or cancel some"
+        )
+        raise TooManyRequestsError("too-many-jobs", detail, settings.retry_after_s)

@@ -89,7 +89,10 @@ class Settings(BaseSettings):
         "top of rate_limit; empty: no limit",
     )
     max_jobs_per_key: int = Field(
-        10, ge=1, description="queued plus running jobs one API key may hold; beyond this → 429"
+        50,
+        ge=1,
+        description="queued plus running jobs one API key may hold (a batch's items included); "
+        "beyond this → 429",
     )
     max_work_configurations: int = Field(
         2_000_000,

@@ -189,6 +189,41 @@ async def test_a_key_past_its_job_cap_gets_429_naming_the_cap(
     assert after_cancel.status_code == 202  # a cancelled job no longer counts
 
 
+async def test_a_batch_that_would_pass_the_job_cap_is_refused_whole(
+    settings: Settings, real_solve: SolveFunction
+) -> None:
+    capped = settings.model_copy(update={"max_jobs_per_key": 3, "solve_rate_limit": ""})
+    [key] = _keys(capped, Scope.PLAN)
+    held = BlockingSolve(real_solve)
+    app = create_app(capped, solve=held)
+    body = small_request(time_limit_s=1.0)
+    async with serving(app) as client:
+        single = await client.post("/v1/jobs", json=body, headers=key)
+        too_big = await client.post(
+            "/v1/batches", json={"name": "nightly", "items": [body] * 3}, headers=key
+        )
+        stored = sum(app.state.runtime.store.count_jobs(state) for state in JobState)
+        fits = await client.post(
+            "/v1/batches", json={"name": "nightly", "items": [body] * 2}, headers=key
+        )
+        held.release.set()
+    assert single.status_code == 202
+    _assert_too_many(too_big, "too-many-jobs", capped.retry_after_s)
+    assert "3 more cannot be queued" in too_big.json()["detail"]
+    assert stored == 1  # none of the batch's items was queued
+    assert fits.status_code == 202, fits.text
+
+
+async def test_a_batch_counts_once_against_the_solve_rate(settings: Settings) -> None:
+    limited = settings.model_copy(update={"solve_rate_limit": "1/minute"})
+    batch = {"name": "nightly", "items": [small_request(time_limit_s=1.0)] * 2}
+    async with serving(create_app(limited)) as client:
+        first = await client.post("/v1/batches", json=batch)
+        second = await client.post("/v1/batches", json=batch)
+    assert first.status_code == 202, first.text
+    _assert_too_many(second, "rate-limited", 60)
+
+
 # ----------------------------------------------------------------------------- work size
 
 
@@ -217,6 +252,9 @@ async def test_a_request_over_the_work_size_is_refused_naming_its_fields(
     async with serving(app) as client:
         plan = await client.post("/v1/plans", json=two_rolloffs)
         job = await client.post("/v1/jobs", json=two_rolloffs)
+        batch = await client.post(
+            "/v1/batches", json={"name": "nightly", "items": [one_rolloff, two_rolloffs]}
+        )
         jobs_stored = sum(app.state.runtime.store.count_jobs(state) for state in JobState)
         narrower = await client.post("/v1/plans", json=one_rolloff)
     assert expected > limit >= expected // 2  # the request is over only by its roll-offs
@@ -227,7 +265,9 @@ async def test_a_request_over_the_work_size_is_refused_naming_its_fields(
         assert f"{expected:,}" in fields["demands"] and f"{limit:,}" in fields["demands"]
         assert "2 roll-offs" in fields["transmitter.rolloffs"]
         assert f"{MODULATIONS} modulations" in fields["demands[0].modulations"]
-    assert jobs_stored == 0  # the job was refused before it was stored
+    assert batch.status_code == 422, batch.text
+    assert f"{expected:,}" in _fields(batch)["items[1].demands"]  # the item over it, by place
+    assert jobs_stored == 0  # the job and the batch were refused before anything was stored
     assert narrower.status_code == 201, narrower.text  # half the configurations: under it
 
 
