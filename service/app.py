@@ -3,8 +3,14 @@
 ``create_app(settings)`` builds an application around one :class:`~service.store.Store`, one
 :class:`~service.runtime.SolveGate` and one job queue (:mod:`service.queue`: threads here, or
 Celery workers when ``BANDWRIGHT_BROKER_URL`` is set), created at start-up (lifespan) and closed
-at shutdown.  Tests pass their own settings (and, to exercise the service
-machinery alone, their own solve function).
+at shutdown, with its request rates (:mod:`service.ratelimit`), its pictures and their drawing
+processes (:mod:`service.pictures`) and, when origins are listed, CORS (:mod:`service.cors`).
+Tests pass their own settings (and, to exercise the service machinery alone, their own solve
+and drawing functions).
+
+Middleware, outermost first: CORS, nosniff, metrics, body limit, unexpected errors.  On every
+route but the probes the key check runs first, then the request rate; the solving POSTs then
+count against the solve rate.
 """
 
 from __future__ import annotations
@@ -17,6 +23,7 @@ from importlib.metadata import PackageNotFoundError, version
 from fastapi import Depends, FastAPI
 
 from service.caching import NoSniffMiddleware
+from service.cors import add_cors
 from service.errors import (
     BodyLimitMiddleware,
     SchemaNotReadyError,
@@ -25,9 +32,11 @@ from service.errors import (
 )
 from service.keys import authorise
 from service.metrics import Metrics, MetricsMiddleware
+from service.pictures import DrawFunction, Pictures, draw_picture
 from service.queue import BrokerJobQueue, LocalJobQueue
+from service.ratelimit import RateLimits, limit_requests
 from service.routes import batches, carriers, health, jobs, modcods, plans
-from service.routes.plans import AUTH_RESPONSES, COMMON_RESPONSES
+from service.routes.plans import AUTH_RESPONSES, COMMON_RESPONSES, LIMIT_RESPONSES
 from service.runtime import Runtime, SolveFunction, SolveGate
 from service.settings import Settings, get_settings
 from service.store import Store, StoreUnavailableError
@@ -69,7 +78,12 @@ def _job_queue(runtime: Runtime) -> LocalJobQueue | BrokerJobQueue:
     return BrokerJobQueue(runtime, make_sender(settings))
 
 
-def create_app(settings: Settings | None = None, *, solve: SolveFunction | None = None) -> FastAPI:
+def create_app(
+    settings: Settings | None = None,
+    *,
+    solve: SolveFunction | None = None,
+    draw: DrawFunction | None = None,
+) -> FastAPI:
     """Build the application.
 
     Parameters
@@ -78,9 +92,13 @@ def create_app(settings: Settings | None = None, *, solve: SolveFunction | None 
         Defaults to :func:`service.settings.get_settings` (environment variables).
     solve : callable, optional
         The planning function; defaults to :func:`solver.solve`.
+    draw : callable, optional
+        Draws a plan's picture in a worker process (picklable); defaults to
+        :func:`service.pictures.draw_picture`.
     """
     settings = get_settings() if settings is None else settings
     metrics = Metrics()
+    pictures = Pictures(settings, metrics, draw_picture if draw is None else draw)
 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
@@ -106,6 +124,7 @@ def create_app(settings: Settings | None = None, *, solve: SolveFunction | None 
         try:
             yield
         finally:
+            pictures.close()
             runtime.jobs.shutdown()
             store.close()
 
@@ -120,14 +139,19 @@ def create_app(settings: Settings | None = None, *, solve: SolveFunction | None 
         redoc_url="/redoc" if settings.docs else None,
     )
     app.dependency_overrides[get_settings] = lambda: settings
+    app.state.rate_limits = RateLimits(settings, metrics)
+    app.state.pictures = pictures
     install_error_handlers(app)
     app.add_middleware(UnexpectedErrorMiddleware)  # innermost: the 500 is counted and timed
     app.add_middleware(BodyLimitMiddleware, limit_bytes=settings.max_body_bytes)
     app.add_middleware(MetricsMiddleware, metrics=metrics)
     app.add_middleware(NoSniffMiddleware)
+    add_cors(app, settings.cors_origins)  # outermost: refusals carry the CORS headers too
     for module in (plans, jobs, batches, carriers, modcods):
         app.include_router(
-            module.router, dependencies=[Depends(authorise)], responses=AUTH_RESPONSES
+            module.router,
+            dependencies=[Depends(authorise), Depends(limit_requests)],
+            responses={**AUTH_RESPONSES, **LIMIT_RESPONSES},
         )
-    app.include_router(health.router)  # the probes are open; /metrics checks its own key
+    app.include_router(health.router)  # the probes are open and unlimited; /metrics is neither
     return app

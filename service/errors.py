@@ -6,7 +6,9 @@ Exception tree of the service::
      ├── InvalidInputError     422  the request is well-formed JSON but not a valid problem
      ├── NotFoundError         404  no plan or job with that id
      ├── BodyTooLargeError     413  the body exceeds the limit
-     └── SolverBusyError       503  every solve slot and queue place is taken (with Retry-After)
+     ├── TooManyRequestsError  429  over the request rate, or the key's job cap (with Retry-After)
+     ├── SolverBusyError       503  every solve slot and queue place is taken (with Retry-After)
+     └── PicturesBusyError     503  every drawing process and waiting place is taken (Retry-After)
 
     StoreUnavailableError      503  the database does not answer (with Retry-After)
      └── SchemaNotReadyError   503  it answers, but its tables are not this version's
@@ -19,6 +21,8 @@ is an ``application/problem+json`` document; no request ever gets a bare 500.
 References
 ----------
 RFC 9457, "Problem Details for HTTP APIs", IETF, July 2023.
+RFC 6585, "Additional HTTP Status Codes", §4 (429 Too Many Requests), IETF, April 2012.
+RFC 9110, "HTTP Semantics", §10.2.3 (Retry-After), IETF, June 2022.
 """
 
 from __future__ import annotations
@@ -46,10 +50,12 @@ __all__ = [
     "ForbiddenError",
     "InvalidInputError",
     "NotFoundError",
+    "PicturesBusyError",
     "SchemaNotReadyError",
     "ServiceError",
     "SolverBusyError",
     "StoreUnavailableError",
+    "TooManyRequestsError",
     "UnauthenticatedError",
     "UnexpectedErrorMiddleware",
     "field_path",
@@ -118,11 +124,13 @@ class ForbiddenError(ServiceError):
 
 
 class ClientGoneError(ServiceError):
-    """The client left before its synchronous plan was ready: the solve was stopped and
-    nothing was stored."""
+    """The client left before its answer was ready (a synchronous plan: the solve was stopped
+    and nothing was stored; a picture: the drawing was stopped)."""
 
-    def __init__(self) -> None:
-        super().__init__("the client disconnected; the solve was stopped and nothing stored")
+    def __init__(
+        self, detail: str = "the client disconnected; the solve was stopped and nothing stored"
+    ) -> None:
+        super().__init__(detail)
 
 
 CLIENT_GONE_STATUS = 499
@@ -142,6 +150,25 @@ class SolverBusyError(ServiceError):
 
     def __init__(self, retry_after_s: int) -> None:
         super().__init__(f"all solver slots are busy; retry after {retry_after_s} s")
+        self.retry_after_s = retry_after_s
+
+
+class TooManyRequestsError(ServiceError):
+    """The client is over a limit of its own (429, RFC 6585 §4): its request rate
+    (``rate-limited``) or its key's concurrent jobs (``too-many-jobs``); retry after
+    ``retry_after_s`` seconds (RFC 9110 §10.2.3)."""
+
+    def __init__(self, slug: str, detail: str, retry_after_s: int) -> None:
+        super().__init__(detail)
+        self.slug = slug
+        self.retry_after_s = retry_after_s
+
+
+class PicturesBusyError(ServiceError):
+    """Every drawing process and waiting place is taken; retry after ``retry_after_s``."""
+
+    def __init__(self, retry_after_s: int) -> None:
+        super().__init__(f"every picture drawing slot is busy; retry after {retry_after_s} s")
         self.retry_after_s = retry_after_s
 
 
@@ -236,11 +263,13 @@ async def _on_service_error(request: Request, exc: Exception) -> JSONResponse:
         return JSONResponse({"detail": str(exc)}, status_code=CLIENT_GONE_STATUS)
     if isinstance(exc, BodyTooLargeError):
         return problem_response(413, slug="body-too-large", detail=str(exc), instance=path)
-    if isinstance(exc, SolverBusyError):
+    if isinstance(exc, TooManyRequestsError):
         headers = {"Retry-After": str(exc.retry_after_s)}
-        return problem_response(
-            503, slug="solver-busy", detail=str(exc), instance=path, headers=headers
-        )
+        return problem_response(429, slug=exc.slug, detail=str(exc), instance=path, headers=headers)
+    if isinstance(exc, SolverBusyError | PicturesBusyError):
+        slug = "solver-busy" if isinstance(exc, SolverBusyError) else "pictures-busy"
+        headers = {"Retry-After": str(exc.retry_after_s)}
+        return problem_response(503, slug=slug, detail=str(exc), instance=path, headers=headers)
     return await _on_unexpected(request, exc)
 
 

@@ -60,6 +60,23 @@ class Metrics:
             registry=self.registry,
         )
 
+        self.rate_limit_failures = Counter(
+            "bandwright_rate_limit_storage_failures",
+            "requests let through uncounted because the rate-limit storage failed",
+            registry=self.registry,
+        )
+        self.pictures_drawn = Counter(
+            "bandwright_pictures_drawn",
+            "spectrum pictures drawn, by format (a picture served from memory is not counted)",
+            ["format"],
+            registry=self.registry,
+        )
+        self.picture_hits = Counter(
+            "bandwright_picture_cache_hits",
+            "spectrum pictures served from memory without drawing",
+            registry=self.registry,
+        )
+
     def render(self) -> bytes:
         """The Prometheus text exposition of every collector."""
         return bytes(generate_latest(self.registry))

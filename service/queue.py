@@ -213,6 +213,11 @@ def _job_error(job_id: str, exc: Exception) -> dict[str, Any]:
 
 
 def _admit(runtime: Runtime, owner_key: str | None) -> None:
+    """Refuse a job past its key's cap of queued plus running jobs (429), then one the queue
+    has no place for (503)."""
+    from service.ratelimit import check_job_cap
+
+    check_job_cap(runtime, owner_key)
     settings = runtime.settings
     if runtime.store.count_jobs(JobState.QUEUED) >= settings.max_queued_jobs:
         raise SolverBusyError(settings.retry_after_s)

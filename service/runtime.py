@@ -29,6 +29,7 @@ from service.metrics import Metrics
 from service.schemas import JobOut, PlanOut, PlanRequest
 from service.settings import Settings
 from service.store import Store, StoreUnavailableError, utc_now
+from service.worksize import check_work_size
 from solver import Plan, Problem, ProblemError, ProgressEvent
 
 __all__ = [
@@ -76,10 +77,11 @@ class PreparedSolve:
 
 
 def prepare(request: PlanRequest, store: Store, settings: Settings) -> PreparedSolve:
-    """Validate across fields, resolve ``previous_plan_id`` and build the problem.
+    """Validate across fields, resolve ``previous_plan_id``, build the problem and hold it to
+    the work-size limit (:mod:`service.worksize`).
 
     Raises :class:`~service.errors.InvalidInputError` naming the bad field (an unknown
-    ``previous_plan_id`` included).
+    ``previous_plan_id`` and a request over the work-size limit included).
     """
     previous = None
     if request.previous_plan_id is not None:
@@ -89,6 +91,7 @@ def prepare(request: PlanRequest, store: Store, settings: Settings) -> PreparedS
             raise InvalidInputError([issue])
         previous = stored.plan
     problem = to_problem(request, previous=previous, num_workers=settings.workers_per_solve)
+    check_work_size(problem, settings.max_work_configurations)
     return PreparedSolve(request, problem, request.previous_plan_id)
 
 

@@ -227,7 +227,16 @@ class DemandIn(WireModel):
 
 
 class PlanRequest(WireModel):
-    """A planning request: the block, the equipment, the coding assumptions and the demands."""
+    """A planning request: the block, the equipment, the coding assumptions and the demands.
+
+    Work-size limit: the solver weighs, for each demand, its modulations (all ten when it
+    lists none) × the catalogue's 12 code-rate entries × the transmitter's roll-offs, and under
+    ``max_margin`` each of those again at every width of a 1 % grid between ``min_rate_bps``
+    and ``target_rate_bps``.  A request whose sum over its demands exceeds the service's limit
+    (``BANDWRIGHT_MAX_WORK_CONFIGURATIONS``, 2,000,000 by default) is refused with a 422 whose
+    ``errors`` name the fields that drive the figure (``demands``, ``transmitter.rolloffs``,
+    ``demands[k].modulations``, ``demands[k].target_rate_bps``) with the figures.
+    """
 
     name: str = Field(
         "plan",

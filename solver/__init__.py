@@ -40,6 +40,7 @@ from solver.rules import rule_of_thumb_plan
 from solver.summary import CAUTIONS, SettingChange, setting_change
 from solver.validation import validate_problem
 from solver.verify import Verification, Violation, verify_plan
+from solver.worksize import ConfigurationBound, configuration_bound
 
 __all__ = [
     "CAUTIONS",
@@ -50,6 +51,7 @@ __all__ = [
     "CarrierConfig",
     "CarrierEvaluation",
     "Coding",
+    "ConfigurationBound",
     "CurrentSetting",
     "Demand",
     "EmissionKey",
@@ -75,6 +77,7 @@ __all__ = [
     "Violation",
     "Window",
     "catalogue",
+    "configuration_bound",
     "evaluate_carrier",
     "format_code_rate",
     "get_profile",

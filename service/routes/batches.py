@@ -12,6 +12,7 @@ from service.errors import NotFoundError, ServiceError, SolverBusyError
 from service.idempotency import IdempotencyKey, remember, replayed
 from service.keys import key_id_of
 from service.queue import validate_job
+from service.ratelimit import check_job_cap, limit_solves
 from service.routes.plans import BUSY, PROBLEM_RESPONSES, _problem
 from service.runtime import Runtime, get_runtime, new_id
 from service.schemas import (
@@ -89,6 +90,7 @@ def _submit_batch(runtime: Runtime, body: BatchRequest, owner_key: str | None) -
         raise ServiceError("the job manager is not running")
     for position, item in enumerate(body.items):  # 422 naming items[i]... before anything runs
         validate_job(runtime, item, f"items[{position}]")
+    check_job_cap(runtime, owner_key, len(body.items))  # the whole batch, before any job
     settings = runtime.settings
     if runtime.store.count_jobs(JobState.QUEUED) + len(body.items) > settings.max_queued_jobs:
         raise SolverBusyError(settings.retry_after_s)
@@ -116,6 +118,7 @@ def _submit_batch(runtime: Runtime, body: BatchRequest, owner_key: str | None) -
     operation_id="create_batch",
     summary="Queue many planning requests as one batch; poll it at Location",
     responses={**PROBLEM_RESPONSES, **BUSY},
+    dependencies=[Depends(limit_solves)],
 )
 async def create_batch(
     body: BatchRequest,
@@ -125,7 +128,9 @@ async def create_batch(
     idempotency_key: IdempotencyKey = None,
 ) -> BatchOut | Response:
     """202 Accepted with ``Location: /v1/batches/{id}``.  Every item is checked first (a 422
-    names ``items[i]`` and the field); then each becomes a job, all or none."""
+    names ``items[i]`` and the field, the work-size limit included); then each becomes a job,
+    all or none.  The batch counts once against the solve rate; its items count against the
+    key's cap of queued and running jobs (429 ``too-many-jobs`` when they would pass it)."""
     first = await anyio.to_thread.run_sync(replayed, runtime.store, request, idempotency_key, body)
     if first is not None:
         return first

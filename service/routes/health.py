@@ -1,5 +1,8 @@
 """Probes and metrics: ``/healthz`` (alive), ``/readyz`` (store reachable and its schema this
-version's), ``/metrics``."""
+version's), ``/metrics``.
+
+The probes need no key and are never rate-limited; ``/metrics`` needs an admin key and counts
+against the request rate."""
 
 from __future__ import annotations
 
@@ -12,7 +15,8 @@ from fastapi.responses import JSONResponse
 from service.errors import SchemaNotReadyError
 from service.keys import authorise
 from service.metrics import CONTENT_TYPE
-from service.routes.plans import AUTH_RESPONSES
+from service.ratelimit import limit_requests
+from service.routes.plans import AUTH_RESPONSES, LIMIT_RESPONSES
 from service.runtime import Runtime, get_runtime
 from service.schemas import HealthOut
 from service.store import StoreUnavailableError
@@ -64,8 +68,8 @@ def readyz(runtime: Annotated[Runtime, Depends(get_runtime)]) -> JSONResponse:
     operation_id="metrics",
     summary="Prometheus text exposition",
     response_class=Response,
-    responses={200: {"content": {"text/plain": {}}}, **AUTH_RESPONSES},
-    dependencies=[Depends(authorise)],
+    responses={200: {"content": {"text/plain": {}}}, **AUTH_RESPONSES, **LIMIT_RESPONSES},
+    dependencies=[Depends(authorise), Depends(limit_requests)],
 )
 async def metrics(runtime: Annotated[Runtime, Depends(get_runtime)]) -> Response:
     """Requests and latency by route, solve-time histogram, solver outcomes."""

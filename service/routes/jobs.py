@@ -10,6 +10,7 @@ from fastapi import APIRouter, Depends, Path, Request, Response
 from service.errors import ConflictError, NotFoundError, ServiceError
 from service.idempotency import IdempotencyKey, remember, replayed
 from service.keys import key_id_of
+from service.ratelimit import limit_solves
 from service.routes.plans import BUSY, PROBLEM_RESPONSES, _problem
 from service.runtime import Runtime, get_runtime
 from service.schemas import JobOut, JobState, PlanRequest
@@ -27,6 +28,7 @@ JobId = Annotated[str, Path(min_length=1, max_length=64, description="job id")]
     operation_id="create_job",
     summary="Queue a planning request; poll the job at Location",
     responses={**PROBLEM_RESPONSES, **BUSY},
+    dependencies=[Depends(limit_solves)],
 )
 async def create_job(
     body: PlanRequest,
@@ -35,7 +37,10 @@ async def create_job(
     runtime: Annotated[Runtime, Depends(get_runtime)],
     idempotency_key: IdempotencyKey = None,
 ) -> JobOut | Response:
-    """202 Accepted with ``Location: /v1/jobs/{id}`` and ``Retry-After`` (s)."""
+    """202 Accepted with ``Location: /v1/jobs/{id}`` and ``Retry-After`` (s).
+
+    A 429 ``too-many-jobs`` when the API key already holds its cap of queued and running jobs
+    (``BANDWRIGHT_MAX_JOBS_PER_KEY``)."""
     jobs = runtime.jobs
     if jobs is None:
         raise ServiceError("the job manager is not running")

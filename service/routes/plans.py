@@ -3,16 +3,19 @@
 from __future__ import annotations
 
 import threading
-from typing import Annotated, Any, Literal
+from collections.abc import Awaitable
+from typing import Annotated, Any
 
 import anyio
 import anyio.to_thread
 from fastapi import APIRouter, Depends, Path, Query, Request, Response
 
 from service.caching import entity_tag, immutable, not_modified
-from service.convert import plan_from_wire, setting_from_wire, to_problem
+from service.convert import setting_from_wire
 from service.errors import ClientGoneError, NotFoundError
 from service.idempotency import IdempotencyKey, remember, replayed
+from service.pictures import Picture, PictureKey, Pictures
+from service.ratelimit import limit_solves
 from service.runtime import Runtime, get_runtime, prepare, run_solve, store_plan
 from service.schemas import (
     CarrierOut,
@@ -29,7 +32,13 @@ from service.schemas import (
 from service.store import StoredPlan
 from solver import SolveCancelledError, setting_change
 
-__all__ = ["AUTH_RESPONSES", "COMMON_RESPONSES", "PROBLEM_RESPONSES", "router"]
+__all__ = [
+    "AUTH_RESPONSES",
+    "COMMON_RESPONSES",
+    "LIMIT_RESPONSES",
+    "PROBLEM_RESPONSES",
+    "router",
+]
 
 router = APIRouter(prefix="/v1/plans", tags=["plans"])
 
@@ -59,21 +68,54 @@ AUTH_RESPONSES: dict[int | str, dict[str, Any]] = {
 }
 """What the key check (:func:`service.keys.authorise`) may answer."""
 
+RETRY_AFTER_HEADER: dict[str, Any] = {
+    "Retry-After": {
+        "description": "seconds to wait before trying again (RFC 9110 §10.2.3)",
+        "schema": {"type": "integer", "minimum": 1},
+    }
+}
+
+LIMIT_RESPONSES: dict[int | str, dict[str, Any]] = {
+    429: {
+        **_problem(
+            "over the request rate of this API key (served open: of this client address), "
+            "`rate-limited`; for POST /v1/jobs also over the key's cap of queued and running "
+            "jobs, `too-many-jobs`; see Retry-After"
+        ),
+        "headers": RETRY_AFTER_HEADER,
+    },
+}
+"""What the rate check (:mod:`service.ratelimit`) may answer."""
+
 PROBLEM_RESPONSES: dict[int | str, dict[str, Any]] = {
     413: _problem("request body larger than the limit"),
     **COMMON_RESPONSES,
 }
 NOT_FOUND: dict[int | str, dict[str, Any]] = {404: _problem("no plan with that id")}
 BUSY: dict[int | str, dict[str, Any]] = {
-    503: _problem("every solver slot is busy; see Retry-After"),
+    503: {**_problem("every solver slot is busy; see Retry-After"), "headers": RETRY_AFTER_HEADER},
+}
+PICTURES_BUSY: dict[int | str, dict[str, Any]] = {
+    503: {
+        **_problem(
+            "every picture drawing place is taken (`pictures-busy`), or the store does not "
+            "answer; see Retry-After"
+        ),
+        "headers": RETRY_AFTER_HEADER,
+    },
 }
 
 
-async def _cancel_when_client_leaves(request: Request, cancel: threading.Event) -> None:
+async def _cancel_when_client_leaves(
+    request: Request, cancel: threading.Event, scope: anyio.CancelScope | None = None
+) -> None:
+    """Set ``cancel`` (and cancel ``scope``) once the client disconnects."""
     while True:
         message = await request.receive()
         if message["type"] == "http.disconnect":
             cancel.set()
+            if scope is not None:
+                scope.cancel()
             return
 
 
@@ -84,6 +126,7 @@ async def _cancel_when_client_leaves(request: Request, cancel: threading.Event) 
     operation_id="create_plan",
     summary="Solve a planning request and store the plan",
     responses={**PROBLEM_RESPONSES, **BUSY},
+    dependencies=[Depends(limit_solves)],
 )
 async def create_plan(
     body: PlanRequest,
@@ -173,47 +216,93 @@ def get_plan(
 
 RENDERING = b"spectrum picture 1"
 """Part of every picture's ETag: change it when the drawing changes."""
+MEDIA_TYPES = {"svg": "image/svg+xml", "png": "image/png"}
 
 
-def _picture(
-    runtime: Runtime, plan_id: str, fmt: Literal["svg", "png"], request: Request
+def get_pictures(request: Request) -> Pictures:
+    """FastAPI dependency: the application's :class:`~service.pictures.Pictures`."""
+    pictures: Pictures = request.app.state.pictures
+    return pictures
+
+
+async def _picture(
+    runtime: Runtime, pictures: Pictures, key: PictureKey, request: Request
 ) -> Response:
-    from service.render import render_spectrum
+    """A picture kept in memory, else drawn (once for every client asking meanwhile) in a
+    worker process that stops when its last client leaves."""
+    plan_id, fmt = key
+    picture = pictures.kept(key)
+    if picture is None:
+        stored = await anyio.to_thread.run_sync(_stored, runtime, plan_id)
+        plan_json = stored.plan.model_dump_json()
+        tag = entity_tag(plan_json.encode(), fmt.encode(), RENDERING)
+        unchanged = not_modified(request, tag)
+        if unchanged is not None:
+            return unchanged
+        args = (key, tag, plan_json, stored.request.model_dump_json())
+        picture = await _unless_client_leaves(request, pictures.draw(*args))
+    unchanged = not_modified(request, picture.tag)
+    return unchanged or immutable(picture.content, MEDIA_TYPES[fmt], picture.tag)
 
-    stored = _stored(runtime, plan_id)
-    tag = entity_tag(stored.plan.model_dump_json().encode(), fmt.encode(), RENDERING)
-    cached = not_modified(request, tag)
-    if cached is not None:
-        return cached
-    problem = to_problem(stored.request)
-    media_type = "image/svg+xml" if fmt == "svg" else "image/png"
-    return immutable(render_spectrum(plan_from_wire(stored.plan), problem, fmt), media_type, tag)
+
+async def _unless_client_leaves(request: Request, drawn: Awaitable[Picture]) -> Picture:
+    """Await ``drawn``, abandoned (and with it the drawing) when the client disconnects."""
+    picture: Picture | None = None
+    failure: Exception | None = None
+    async with anyio.create_task_group() as watchers:
+        gone = threading.Event()
+        watchers.start_soon(_cancel_when_client_leaves, request, gone, watchers.cancel_scope)
+        try:
+            picture = await drawn
+        except Exception as exc:  # re-raised below, outside the task group
+            failure = exc
+        finally:
+            watchers.cancel_scope.cancel()
+    if failure is not None:
+        raise failure
+    if picture is None:
+        raise ClientGoneError("the client disconnected; the drawing was stopped")
+    return picture
+
+
+Pictured = Annotated[Pictures, Depends(get_pictures)]
 
 
 @router.get(
     "/{plan_id}/spectrum.svg",
     operation_id="get_plan_spectrum_svg",
     response_class=Response,
-    responses={200: {"content": {"image/svg+xml": {}}}, **NOT_FOUND, **NOT_MODIFIED},
+    responses={
+        200: {"content": {"image/svg+xml": {}}},
+        **NOT_FOUND,
+        **NOT_MODIFIED,
+        **PICTURES_BUSY,
+    },
 )
-def get_spectrum_svg(
-    plan_id: PlanId, request: Request, runtime: Annotated[Runtime, Depends(get_runtime)]
+async def get_spectrum_svg(
+    plan_id: PlanId,
+    request: Request,
+    runtime: Annotated[Runtime, Depends(get_runtime)],
+    pictures: Pictured,
 ) -> Response:
-    """The plan's spectrum picture (SVG)."""
-    return _picture(runtime, plan_id, "svg", request)
+    """The plan's spectrum picture (SVG), drawn once and then served from memory."""
+    return await _picture(runtime, pictures, (plan_id, "svg"), request)
 
 
 @router.get(
     "/{plan_id}/spectrum.png",
     operation_id="get_plan_spectrum_png",
     response_class=Response,
-    responses={200: {"content": {"image/png": {}}}, **NOT_FOUND, **NOT_MODIFIED},
+    responses={200: {"content": {"image/png": {}}}, **NOT_FOUND, **NOT_MODIFIED, **PICTURES_BUSY},
 )
-def get_spectrum_png(
-    plan_id: PlanId, request: Request, runtime: Annotated[Runtime, Depends(get_runtime)]
+async def get_spectrum_png(
+    plan_id: PlanId,
+    request: Request,
+    runtime: Annotated[Runtime, Depends(get_runtime)],
+    pictures: Pictured,
 ) -> Response:
-    """The plan's spectrum picture (PNG)."""
-    return _picture(runtime, plan_id, "png", request)
+    """The plan's spectrum picture (PNG), drawn once and then served from memory."""
+    return await _picture(runtime, pictures, (plan_id, "png"), request)
 
 
 @router.get(

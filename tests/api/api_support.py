@@ -6,9 +6,12 @@ Requests are small invented scenarios with short time limits so the whole API su
 from __future__ import annotations
 
 import copy
+import os
 import threading
+import time
 from collections.abc import AsyncIterator, Callable
 from contextlib import asynccontextmanager
+from pathlib import Path
 from typing import Any
 
 import httpx
@@ -89,3 +92,27 @@ def on_postgres(settings: Settings, *, migrated: bool = True) -> Settings:
         store.upgrade_schema()
         store.close()
     return settings.model_copy(update={"database_url": url})
+
+
+# ----------------------------------------------------------------------------- drawing doubles
+# They run in the picture worker processes, so they are module-level functions (picklable),
+# bound to their arguments with functools.partial.
+
+
+def sized_picture(size: int, plan_json: str, request_json: str, fmt: str) -> bytes:
+    """A drawing double: a picture of ``size`` bytes, drawn at once (no matplotlib)."""
+    return b"<svg/>".ljust(size)
+
+
+HELD_PICTURE = b"<svg>held</svg>"
+
+
+def held_picture(folder: str, plan_json: str, request_json: str, fmt: str) -> bytes:
+    """A drawing double that keeps working until released: it writes ``pid-<its pid>`` into
+    ``folder``, then works until a file ``release`` appears there."""
+    here = Path(folder)
+    (here / f"pid-{os.getpid()}").write_text(plan_json)
+    while not (here / "release").exists():
+        sum(range(20_000))  # a little CPU work, as a drawing does
+        time.sleep(0.005)
+    return HELD_PICTURE

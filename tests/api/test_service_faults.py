@@ -112,6 +112,7 @@ def _serve(tmp_path: Path, database_url: str, **env: str) -> tuple[subprocess.Po
         **os.environ,
         "BANDWRIGHT_DATABASE_URL": database_url,
         "BANDWRIGHT_CACHE_DIR": str(tmp_path / "profiles"),
+        "BANDWRIGHT_SOLVE_RATE_LIMIT": "",  # faults are under test here, not the client's rate
         **env,
     }
     process = subprocess.Popen(
