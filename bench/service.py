@@ -372,7 +372,9 @@ def _queue_rows(
                 processes.append(_start_worker(env, root / "worker2.log"))
                 _job_seconds(client, request)  # warm the second worker too (either may take it)
                 two = _throughput(client, request, args.queue_jobs)
-            load = asyncio.run(_write_load(base, args.load_plans, args.load_jobs, args.concurrency))
+            written = asyncio.run(
+                _write_load(base, args.load_plans, args.load_jobs, args.concurrency)
+            )
             for worker in processes[2:]:  # workers stopped: evaluate sees the API alone
                 worker.terminate()
                 worker.wait(timeout=60)
@@ -383,8 +385,8 @@ def _queue_rows(
             brokered_rates, plain_rates = [], []
             for _ in range(3):  # alternated, so machine load falls on both alike
                 for rates, url in ((brokered_rates, base), (plain_rates, plain_base)):
-                    load = asyncio.run(_evaluate_load(url, args.requests, args.concurrency))
-                    rates.append(load["per_second"])
+                    run = asyncio.run(_evaluate_load(url, args.requests, args.concurrency))
+                    rates.append(run["per_second"])
         finally:
             for process in reversed(processes):
                 if process.poll() is None:
@@ -393,7 +395,7 @@ def _queue_rows(
                         process.wait(timeout=30)
                     except subprocess.TimeoutExpired:
                         process.kill()
-    load_counts = ", ".join(f"{k}: {v}" for k, v in sorted(load.items()))
+    load_counts = ", ".join(f"{k}: {v}" for k, v in sorted(written.items()))
     rows.append(("write load (PostgreSQL)", load_counts))
     job_median, local_median = statistics.median(job_s), statistics.median(local_s)
     overhead = (job_median - local_median) / local_median

@@ -66,6 +66,8 @@ PROGRESS_AFTER_S = 1.0
 POLL_INTERVAL_S = 0.25
 HTTP_TIMEOUT_S = 30.0
 BUSY_RETRIES = 10
+WAIT_AND_RETRY = frozenset({httpx.codes.SERVICE_UNAVAILABLE, httpx.codes.TOO_MANY_REQUESTS})
+"""Answers after which a POST is sent again once its Retry-After has passed."""
 SERVER_START_TIMEOUT_S = 20.0
 MHZ = 1e6
 KHZ = 1e3
@@ -259,7 +261,7 @@ def _client(server: str) -> httpx.Client:
 def _post_job(client: httpx.Client, payload: dict[str, Any]) -> str:
     for _ in range(BUSY_RETRIES):
         response = client.post("/v1/jobs", json=payload)
-        if response.status_code == httpx.codes.SERVICE_UNAVAILABLE:
+        if response.status_code in WAIT_AND_RETRY:
             time.sleep(float(response.headers.get("Retry-After", "1")))
             continue
         if response.status_code != httpx.codes.ACCEPTED:
@@ -379,7 +381,7 @@ def _load_batch(directory: Path) -> list[tuple[Path, PlanRequest]]:
 def _post_batch(client: httpx.Client, payload: dict[str, Any]) -> str:
     for _ in range(BUSY_RETRIES):
         response = client.post("/v1/batches", json=payload)
-        if response.status_code == httpx.codes.SERVICE_UNAVAILABLE:
+        if response.status_code in WAIT_AND_RETRY:
             time.sleep(float(response.headers.get("Retry-After", "1")))
             continue
         if response.status_code != httpx.codes.ACCEPTED:

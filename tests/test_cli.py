@@ -210,3 +210,26 @@ def test_a_batch_with_a_bad_file_exits_2_naming_it(
     assert "time_limit_s" in err
     assert main(["replan", "--batch", str(batch)]) == 2  # no server
     assert "--server" in capsys.readouterr().err
+
+
+def test_a_busy_or_rate_limited_answer_is_waited_out_then_sent_again() -> None:
+    import httpx
+
+    from service.cli import _post_batch
+
+    answers = iter(
+        [
+            httpx.Response(429, headers={"Retry-After": "0"}),  # RFC 6585 §4
+            httpx.Response(503, headers={"Retry-After": "0"}),  # RFC 9110 §15.6.4
+            httpx.Response(202, headers={"Location": "/v1/batches/abc"}),
+        ]
+    )
+    sent: list[str] = []
+
+    def answer(request: httpx.Request) -> httpx.Response:
+        sent.append(request.url.path)
+        return next(answers)
+
+    with httpx.Client(transport=httpx.MockTransport(answer), base_url="http://bw") as client:
+        assert _post_batch(client, {"items": []}) == "/v1/batches/abc"
+    assert sent == ["/v1/batches"] * 3

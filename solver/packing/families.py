@@ -34,9 +34,20 @@ class Candidate:
         return cls(
             config,
             width_units,
-            math.ceil(config.guard_hz / raster_hz - 1e-9),
-            math.ceil(config.edge_guard_hz / raster_hz - 1e-9),
+            _guard_units(config.guard_hz, raster_hz),
+            _guard_units(config.edge_guard_hz, raster_hz),
         )
+
+
+ALONE_UNITS = 2**53
+"""Raster steps standing for a guard no gap meets (a bound's family may keep such a carrier: it
+can only sit alone); more steps than any block holds, and exact as a float."""
+
+
+def _guard_units(guard_hz: float, raster_hz: float) -> int:
+    if math.isinf(guard_hz):
+        return ALONE_UNITS
+    return math.ceil(guard_hz / raster_hz - 1e-9)
 
 
 @functools.lru_cache(maxsize=8192)
