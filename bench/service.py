@@ -213,7 +213,7 @@ def _wrk_rows(light: dict[str, float] | None, seconds: int) -> list[tuple[str, s
 
 
 def _fresh_schema(postgres_url: str) -> str:
-    """A new empty schema in the PostgreSQL database; the URL that uses it."""
+    """A new schema in the PostgreSQL database, migrated to head; the URL that uses it."""
     import uuid
 
     import sqlalchemy as sa
@@ -224,7 +224,13 @@ def _fresh_schema(postgres_url: str) -> str:
         conn.execute(sa.text(f"CREATE SCHEMA {schema}"))
     engine.dispose()
     separator = "&" if "?" in postgres_url else "?"
-    return f"{postgres_url}{separator}options=-csearch_path%3D{schema}"
+    url = f"{postgres_url}{separator}options=-csearch_path%3D{schema}"
+    from service.store import Store
+
+    store = Store(url)
+    store.upgrade_schema()  # as `bandwright db upgrade` does once per release
+    store.close()
+    return url
 
 
 def _start_worker(env: dict[str, str], log: Path) -> subprocess.Popen[bytes]:
@@ -328,15 +334,88 @@ async def _write_load(base: str, plans: int, jobs: int, concurrency: int) -> dic
     return counts
 
 
+def _job_timings(
+    client: httpx.Client, request: dict[str, Any], repeats: int
+) -> tuple[list[float], list[float]]:
+    """A demo job from POST to done, and the same solve here, interleaved, both warm."""
+    from solver import solve
+
+    _job_seconds(client, request)  # warm-up: the worker's spectra and catalogue
+    solve(to_problem(PlanRequest.model_validate(request)))
+    job_s, local_s = [], []
+    for _ in range(repeats):  # one job at a time
+        job_s.append(_job_seconds(client, request))
+        started = time.perf_counter()
+        solve(to_problem(PlanRequest.model_validate(request)))
+        local_s.append(time.perf_counter() - started)
+    return job_s, local_s
+
+
+def _alternated_evaluate(urls: list[str], args: argparse.Namespace) -> list[list[float]]:
+    """Evaluate throughput on each URL, three runs each, alternated so load falls alike."""
+    rates: list[list[float]] = [[] for _ in urls]
+    for _ in range(3):
+        for got, url in zip(rates, urls, strict=True):
+            got.append(
+                asyncio.run(_evaluate_load(url, args.requests, args.concurrency))["per_second"]
+            )
+    return rates
+
+
+def _measure_queue(
+    root: Path, env: dict[str, str], request: dict[str, Any], args: argparse.Namespace
+) -> dict[str, Any]:
+    """Every queue figure, on the processes started here (stopped before returning)."""
+    settings = {k: v for k, v in env.items() if k.startswith("BANDWRIGHT_")}
+    processes: list[subprocess.Popen[bytes]] = []
+    workers: list[subprocess.Popen[bytes]] = []
+    try:
+        api, base = _start_server(root, settings)
+        processes.append(api)
+        workers.append(_start_worker(env, root / "worker1.log"))
+        with httpx.Client(base_url=base, timeout=600.0) as client:
+            job_s, local_s = _job_timings(client, request, args.plan_repeats)
+            one = _throughput(client, request, args.queue_jobs)
+            workers.append(_start_worker(env, root / "worker2.log"))
+            _job_seconds(client, request)  # warm the second worker too (either may take it)
+            two = _throughput(client, request, args.queue_jobs)
+        written = asyncio.run(_write_load(base, args.load_plans, args.load_jobs, args.concurrency))
+        for worker in workers:  # stopped: evaluate sees the API alone
+            worker.terminate()
+            worker.wait(timeout=60)
+        settings.pop("BANDWRIGHT_BROKER_URL")
+        plain, plain_base = _start_server(root, settings)
+        processes.append(plain)
+        brokered, unbrokered = _alternated_evaluate([base, plain_base], args)
+    finally:
+        _stop(processes + workers)
+    return {
+        "job_s": job_s,
+        "local_s": local_s,
+        "one": one,
+        "two": two,
+        "written": written,
+        "brokered": brokered,
+        "plain": unbrokered,
+    }
+
+
+def _stop(processes: list[subprocess.Popen[bytes]]) -> None:
+    for process in reversed(processes):
+        if process.poll() is None:
+            process.terminate()
+            try:
+                process.wait(timeout=30)
+            except subprocess.TimeoutExpired:
+                process.kill()
+
+
 def _queue_rows(
     postgres_url: str, request: dict[str, Any], args: argparse.Namespace
 ) -> list[tuple[str, str]]:
-    from solver import solve
-
     redis_server = shutil.which("redis-server")
     if redis_server is None:
         return [("job queue", "redis-server not installed (apt-get install redis-server)")]
-    rows: list[tuple[str, str]] = []
     with tempfile.TemporaryDirectory(prefix="bandwright-queue-") as tmp:
         root = Path(tmp)
         redis_port = _free_port()
@@ -352,54 +431,19 @@ def _queue_rows(
             BANDWRIGHT_BROKER_URL=f"redis://{LOOPBACK}:{redis_port}/0",
             BANDWRIGHT_WORKER_HEARTBEAT_FILE=str(root / "worker.alive"),
         )
-        processes: list[subprocess.Popen[bytes]] = [redis]
         try:
-            api, base = _start_server(
-                root, {k: v for k, v in env.items() if k.startswith("BANDWRIGHT_")}
-            )
-            processes.append(api)
-            processes.append(_start_worker(env, root / "worker1.log"))
-            with httpx.Client(base_url=base, timeout=600.0) as client:
-                _job_seconds(client, request)  # warm-up: the worker's spectra and catalogue
-                solve(to_problem(PlanRequest.model_validate(request)))
-                job_s, local_s = [], []
-                for _ in range(args.plan_repeats):  # interleaved, one job at a time
-                    job_s.append(_job_seconds(client, request))
-                    started = time.perf_counter()
-                    solve(to_problem(PlanRequest.model_validate(request)))
-                    local_s.append(time.perf_counter() - started)
-                one = _throughput(client, request, args.queue_jobs)
-                processes.append(_start_worker(env, root / "worker2.log"))
-                _job_seconds(client, request)  # warm the second worker too (either may take it)
-                two = _throughput(client, request, args.queue_jobs)
-            written = asyncio.run(
-                _write_load(base, args.load_plans, args.load_jobs, args.concurrency)
-            )
-            for worker in processes[2:]:  # workers stopped: evaluate sees the API alone
-                worker.terminate()
-                worker.wait(timeout=60)
-            plain_env = {k: v for k, v in env.items() if k.startswith("BANDWRIGHT_")}
-            plain_env.pop("BANDWRIGHT_BROKER_URL")
-            plain, plain_base = _start_server(root, plain_env)
-            processes.append(plain)
-            brokered_rates, plain_rates = [], []
-            for _ in range(3):  # alternated, so machine load falls on both alike
-                for rates, url in ((brokered_rates, base), (plain_rates, plain_base)):
-                    run = asyncio.run(_evaluate_load(url, args.requests, args.concurrency))
-                    rates.append(run["per_second"])
+            m = _measure_queue(root, env, request, args)
         finally:
-            for process in reversed(processes):
-                if process.poll() is None:
-                    process.terminate()
-                    try:
-                        process.wait(timeout=30)
-                    except subprocess.TimeoutExpired:
-                        process.kill()
-    load_counts = ", ".join(f"{k}: {v}" for k, v in sorted(written.items()))
-    rows.append(("write load (PostgreSQL)", load_counts))
-    job_median, local_median = statistics.median(job_s), statistics.median(local_s)
+            _stop([redis])
+    job_median, local_median = statistics.median(m["job_s"]), statistics.median(m["local_s"])
     overhead = (job_median - local_median) / local_median
-    rows += [
+    brokered, plain = m["brokered"], m["plain"]
+    one, two = m["one"], m["two"]
+    return [
+        (
+            "write load (PostgreSQL)",
+            ", ".join(f"{k}: {v}" for k, v in sorted(m["written"].items())),
+        ),
         ("demo job via Redis + worker", f"median {job_median:.3f} s of {args.plan_repeats}"),
         ("demo solve in process", f"median {local_median:.3f} s (interleaved)"),
         ("  queue overhead", f"{overhead * PERCENT:+.1f} % of the solve   (target < 5 %)"),
@@ -410,17 +454,15 @@ def _queue_rows(
         ),
         (
             "evaluate, API with broker",
-            f"median {statistics.median(brokered_rates):.0f} req/s of 3 runs "
-            f"({min(brokered_rates):.0f}–{max(brokered_rates):.0f})",
+            f"median {statistics.median(brokered):.0f} req/s of 3 runs "
+            f"({min(brokered):.0f}–{max(brokered):.0f})",
         ),
         (
             "evaluate, same store, no broker",
-            f"median {statistics.median(plain_rates):.0f} req/s "
-            f"({min(plain_rates):.0f}–{max(plain_rates):.0f})  "
-            f"(ratio {statistics.median(brokered_rates) / statistics.median(plain_rates):.2f})",
+            f"median {statistics.median(plain):.0f} req/s ({min(plain):.0f}–{max(plain):.0f})  "
+            f"(ratio {statistics.median(brokered) / statistics.median(plain):.2f})",
         ),
     ]
-    return rows
 
 
 def main() -> int:

@@ -16,8 +16,8 @@ count against the solve rate.
 from __future__ import annotations
 
 import logging
-from collections.abc import AsyncIterator
-from contextlib import asynccontextmanager
+from collections.abc import AsyncIterator, Callable
+from contextlib import AbstractAsyncContextManager, asynccontextmanager
 from importlib.metadata import PackageNotFoundError, version
 
 from fastapi import Depends, FastAPI
@@ -78,6 +78,47 @@ def _job_queue(runtime: Runtime) -> LocalJobQueue | BrokerJobQueue:
     return BrokerJobQueue(runtime, make_sender(settings))
 
 
+def _open_store(settings: Settings) -> tuple[Store, bool]:
+    """The store, and whether it is ready now (if not, jobs wait for ``/readyz`` to pass)."""
+    store = Store(settings.database_url)
+    try:
+        store.ensure_schema()
+    except SchemaNotReadyError as exc:  # replicas never migrate; /readyz reports it
+        logger.error("store not ready at start-up (jobs wait for /readyz to pass): %s", exc)
+        return store, False
+    except StoreUnavailableError as exc:  # /readyz reports it until the store answers
+        logger.error("store not reachable at start-up (jobs wait for /readyz to pass): %s", exc)
+        return store, False
+    return store, True
+
+
+def _lifespan(
+    settings: Settings, metrics: Metrics, pictures: Pictures, solve: SolveFunction | None
+) -> Callable[[FastAPI], AbstractAsyncContextManager[None]]:
+    """Start-up and shutdown: the store, the runtime and its job queue, the picture pool."""
+
+    @asynccontextmanager
+    async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        store, ready = _open_store(settings)
+        solve_fn = _default_solve() if solve is None else solve
+        runtime = Runtime(settings, store, metrics, solve_fn, SolveGate(settings, metrics))
+        queue = _job_queue(runtime)
+        runtime.jobs = queue
+        app.state.runtime = runtime
+        if ready:
+            queue.start()
+        else:
+            runtime.start_when_ready(queue.start)
+        try:
+            yield
+        finally:
+            pictures.close()
+            queue.shutdown()
+            store.close()
+
+    return lifespan
+
+
 def create_app(
     settings: Settings | None = None,
     *,
@@ -100,34 +141,7 @@ def create_app(
     metrics = Metrics()
     pictures = Pictures(settings, metrics, draw_picture if draw is None else draw)
 
-    @asynccontextmanager
-    async def lifespan(app: FastAPI) -> AsyncIterator[None]:
-        store = Store(settings.database_url)
-        reachable = True
-        try:
-            store.ensure_schema()
-        except SchemaNotReadyError as exc:  # replicas never migrate; /readyz reports it
-            logger.error("store not ready at start-up (jobs wait for /readyz to pass): %s", exc)
-            reachable = False
-        except StoreUnavailableError as exc:  # /readyz reports it until the store answers
-            logger.error("store not reachable at start-up (jobs wait for /readyz to pass): %s", exc)
-            reachable = False
-        solve_fn = _default_solve() if solve is None else solve
-        runtime = Runtime(settings, store, metrics, solve_fn, SolveGate(settings, metrics))
-        queue = _job_queue(runtime)
-        runtime.jobs = queue
-        app.state.runtime = runtime
-        if reachable:
-            queue.start()
-        else:
-            runtime.start_when_ready(queue.start)
-        try:
-            yield
-        finally:
-            pictures.close()
-            runtime.jobs.shutdown()
-            store.close()
-
+    lifespan = _lifespan(settings, metrics, pictures, solve)
     app = FastAPI(
         title="bandwright",
         version=_package_version(),
@@ -138,7 +152,6 @@ def create_app(
         docs_url="/docs" if settings.docs else None,
         redoc_url="/redoc" if settings.docs else None,
     )
-    app.dependency_overrides[get_settings] = lambda: settings
     app.state.rate_limits = RateLimits(settings, metrics)
     app.state.pictures = pictures
     install_error_handlers(app)

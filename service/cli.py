@@ -259,8 +259,17 @@ def _client(server: str) -> httpx.Client:
 
 
 def _post_job(client: httpx.Client, payload: dict[str, Any]) -> str:
+    return _post_accepted(client, "/v1/jobs", payload)
+
+
+def _post_batch(client: httpx.Client, payload: dict[str, Any]) -> str:
+    return _post_accepted(client, "/v1/batches", payload)
+
+
+def _post_accepted(client: httpx.Client, path: str, payload: dict[str, Any]) -> str:
+    """POST for a 202, waiting out 503 and 429 answers; the Location of what was accepted."""
     for _ in range(BUSY_RETRIES):
-        response = client.post("/v1/jobs", json=payload)
+        response = client.post(path, json=payload)
         if response.status_code in WAIT_AND_RETRY:
             time.sleep(float(response.headers.get("Retry-After", "1")))
             continue
@@ -376,18 +385,6 @@ def _load_batch(directory: Path) -> list[tuple[Path, PlanRequest]]:
     if issues:
         raise _invalid(issues)
     return loaded
-
-
-def _post_batch(client: httpx.Client, payload: dict[str, Any]) -> str:
-    for _ in range(BUSY_RETRIES):
-        response = client.post("/v1/batches", json=payload)
-        if response.status_code in WAIT_AND_RETRY:
-            time.sleep(float(response.headers.get("Retry-After", "1")))
-            continue
-        if response.status_code != httpx.codes.ACCEPTED:
-            raise _problem_exit(response)
-        return str(response.headers["Location"])
-    raise CliError(ExitCode.FAILED, "the server stayed busy; try again later")
 
 
 def _follow_batch(client: httpx.Client, location: str, total: int) -> dict[str, Any]:

@@ -45,6 +45,22 @@ def small_request(**changes: Any) -> dict[str, Any]:
     return request
 
 
+def crowded_request(name: str, time_limit_s: float) -> dict[str, Any]:
+    """70 demands over-subscribing the small request's 10 MHz block: a solve that takes a
+    couple of seconds (for tests that must catch one mid-solve)."""
+    demands = [
+        {
+            "id": f"d{i}",
+            "min_rate_bps": 0.3e6 + 0.05e6 * (i % 7),
+            "target_rate_bps": 0.8e6 + 0.2e6 * (i % 5),
+            "esn0_db": 9.0 + (i * 7) % 11,
+            "priority": 1 + i % 4,
+        }
+        for i in range(70)
+    ]
+    return small_request(name=name, demands=demands, time_limit_s=time_limit_s)
+
+
 @asynccontextmanager
 async def serving(app: FastAPI) -> AsyncIterator[httpx.AsyncClient]:
     """Run the app's lifespan and yield a client talking to it in-process."""

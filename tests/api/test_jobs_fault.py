@@ -29,7 +29,7 @@ import pytest
 from service.schemas import JobState
 from service.settings import Settings
 from service.store import Store
-from tests.api.api_support import on_postgres, small_request
+from tests.api.api_support import crowded_request, on_postgres, small_request
 
 pytestmark = [
     pytest.mark.slow,
@@ -55,17 +55,7 @@ def _free_port() -> int:
 
 
 def _long_request(n: int) -> dict[str, Any]:
-    demands = [
-        {
-            "id": f"d{i}",
-            "min_rate_bps": 0.3e6 + 0.05e6 * (i % 7),
-            "target_rate_bps": 0.8e6 + 0.2e6 * (i % 5),
-            "esn0_db": 9.0 + (i * 7) % 11,
-            "priority": 1 + i % 4,
-        }
-        for i in range(70)
-    ]
-    return small_request(name=f"fault long {n}", demands=demands, time_limit_s=4.0)
+    return crowded_request(f"fault long {n}", 4.0)
 
 
 @dataclass

@@ -26,7 +26,7 @@ import pytest
 
 from service.settings import Settings
 from service.store import Store
-from tests.api.api_support import on_postgres, small_request
+from tests.api.api_support import crowded_request, on_postgres, small_request
 
 pytestmark = pytest.mark.slow
 
@@ -35,17 +35,7 @@ ABANDONED_LIMIT_S = 60.0
 
 
 def _crowded(time_limit_s: float) -> dict[str, Any]:
-    demands = [
-        {
-            "id": f"d{i}",
-            "min_rate_bps": 0.3e6 + 0.05e6 * (i % 7),
-            "target_rate_bps": 0.8e6 + 0.2e6 * (i % 5),
-            "esn0_db": 9.0 + (i * 7) % 11,
-            "priority": 1 + i % 4,
-        }
-        for i in range(70)
-    ]
-    return small_request(name="crowded", demands=demands, time_limit_s=time_limit_s)
+    return crowded_request("crowded", time_limit_s)
 
 
 class Relay:
