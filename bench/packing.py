@@ -53,6 +53,9 @@ if TYPE_CHECKING:
 
 __all__ = ["WIDTH_PER_DEMAND_HZ", "scenario"]
 
+WARM_S_PER_DEMAND = 0.03
+"""Time limit per demand of the warm-up solve (above the least a request may ask for)."""
+
 
 # ---------------------------------------------------------------- HiGHS peer
 
@@ -357,7 +360,8 @@ def _scenario_row(name: str, seed: int, time_limit_s: float | None) -> dict[str,
     if time_limit_s is not None:
         problem = replace(problem, time_limit_s=time_limit_s)
     need = min_rate_need_hz(problem) / problem.block.usable_width_hz  # also builds the profiles
-    solve(replace(problem, time_limit_s=0.5))  # warm-up: both timed solves see the same caches
+    warm_s = max(0.5, WARM_S_PER_DEMAND * len(problem.demands))
+    solve(replace(problem, time_limit_s=warm_s))  # warm-up: both timed solves see the same caches
     setup = time.perf_counter() - started
     full = _timed_solve(problem)
     early = _timed_solve(problem, stop_at_first=True)

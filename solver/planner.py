@@ -64,7 +64,7 @@ from solver.packing.arrangement import (
     to_carriers,
 )
 from solver.repair import drop_until_passing, dropped_notice
-from solver.squeeze import squeeze
+from solver.squeeze import Rechoice, rechoose, squeeze, undo_rechoices
 from solver.summary import (
     CAUTIONS,
     explain_unserved,
@@ -303,10 +303,12 @@ def _arrange(
     deadline: float,
     *,
     polish: bool = True,
-) -> Arrangement:
+) -> tuple[Arrangement, list[Rechoice]]:
     """The model's choice made pair-exact, with the demands it left out fitted in where room
     allows; or the greedy admission peer when that serves more (admission first, then the
-    priority-weighted throughput)."""
+    priority-weighted throughput).  Polished: gaps squeezed, and carriers held below target
+    by their configuration's link given another where there is room (the changes are
+    returned, to be undone if verification fails)."""
     model = from_model(data, result)
     admit_rest(data, model, _part(deadline, 4))
     check = PairCheck(problem)
@@ -320,9 +322,10 @@ def _arrange(
     )
     chosen = greedy if better else model
     tighten(problem, chosen, check, deadline)
-    if polish:
-        squeeze(problem, chosen, fixed, deadline)
-    return chosen
+    if not polish:
+        return chosen, []
+    squeeze(problem, chosen, fixed, deadline)
+    return chosen, rechoose(problem, data, chosen, deadline)
 
 
 def _part(deadline: float, parts: int) -> float:
@@ -390,12 +393,15 @@ def _solve_and_verify(
         attempt = replace(data, options=options, time_limit_s=max(budget, 0.2), hints=hints)
         result = solve_packing(attempt, progress=progress, cancel=cancel)
         polish = cancel is None or not cancel.is_set()  # a cancelled solve skips the squeeze
-        arranged = _arrange(problem, attempt, result, pinned, deadline, polish=polish)
+        arranged, rechosen = _arrange(problem, attempt, result, pinned, deadline, polish=polish)
         placed = to_carriers(problem, arranged)
         if not placed and previous is not None:
             check, dropped = drop_until_passing(problem, previous[0])
             return check, previous[1], round_no, dropped
         check = verify_plan(problem, [*pinned, *placed])
+        if not check.passed and rechosen:  # the configurations as the model chose them
+            undo_rechoices(rechosen)
+            check = verify_plan(problem, [*pinned, *to_carriers(problem, arranged)])
         if check.passed:
             return check, result, round_no, []
         raised = _raise_floors(check, floors, fixed)

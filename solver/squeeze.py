@@ -10,6 +10,10 @@ that frees, and kept only if verification still passes, and what room is still l
 the carriers below target one at a time (:func:`_fill`).  Each step is checked by
 :func:`~solver.verify.verify_plan` on the whole plan, so it runs only while the request's time
 allows and for plans of at most :data:`SQUEEZE_LIMIT` carriers.
+
+Then, for plans of any size, :func:`rechoose` gives the room a stretch still has to the carriers
+below target, each taking the width or configuration of its demand that carries most there;
+the planner verifies the plan once and undoes every such change if it fails.
 """
 
 from __future__ import annotations
@@ -18,11 +22,12 @@ import time
 from collections.abc import Callable, Sequence
 
 from solver.model import Carrier, Objective, Problem
-from solver.packing.arrangement import REFIT_SHARE_S, Arrangement, to_carriers
-from solver.packing.spacing import Stretch, pair_gap_raw, pair_gap_units, stretch_need
+from solver.packing.arrangement import REFIT_SHARE_S, Arrangement, slot_of, to_carriers
+from solver.packing.items import PackingInput
+from solver.packing.spacing import Slot, Stretch, pair_gap_raw, pair_gap_units, stretch_need
 from solver.verify import verify_plan
 
-__all__ = ["SQUEEZE_LIMIT", "squeeze"]
+__all__ = ["SQUEEZE_LIMIT", "Rechoice", "rechoose", "squeeze", "undo_rechoices"]
 
 SQUEEZE_LIMIT = 40
 """Plans with more carriers than this keep the pair rule's gaps (each step verifies the whole
@@ -161,3 +166,84 @@ def _close(st: Stretch, i: int, passes_now: Callable[[], bool], *, widest: bool)
         else:
             lo = mid + 1
     st.scales[pair] = at(hi)
+
+
+Rechoice = tuple[Stretch, int, Slot, int, dict[tuple[int, int], float]]
+"""What :func:`rechoose` changed at one place: the stretch, the index, the slot and half-width
+it had, and the stretch's pair scales before."""
+
+
+def rechoose(
+    problem: Problem, data: PackingInput, arrangement: Arrangement, deadline: float
+) -> list[Rechoice]:
+    """``max_throughput``: a carrier below its target, in a stretch with room left, takes the
+    width or the configuration of its demand that carries most in the room there is (its own
+    widened, or another where its own link will not let it grow).  Its gaps go back to the
+    full pair rule (the pair's earlier tightening was for the old configuration).  Returns the
+    changes, for :func:`undo_rechoices` when the plan then fails verification."""
+    if problem.objective is not Objective.MAX_THROUGHPUT:
+        return []
+    done: list[Rechoice] = []
+    for st in arrangement.stretches:
+        for i in sorted(range(len(st.slots)), key=lambda i: -st.slots[i].value_per_half):
+            if time.perf_counter() > deadline:
+                return done
+            old, half = st.slots[i], st.halves[i]
+            if _at_target(data, old, half):
+                continue
+            scales = dict(st.scales)
+            st.scales = {pair: v for pair, v in scales.items() if old.owner not in pair}
+            best = _best_fitting(data, st, i)
+            if best is None:
+                st.scales = scales
+                continue
+            done.append((st, i, old, half, scales))
+            st.slots[i], st.halves[i] = best
+    return done
+
+
+def undo_rechoices(done: Sequence[Rechoice]) -> None:
+    """Put back what :func:`rechoose` changed, last change first."""
+    for st, i, old, half, scales in reversed(done):
+        st.slots[i], st.halves[i], st.scales = old, half, scales
+
+
+def _at_target(data: PackingInput, slot: Slot, half: int) -> bool:
+    target = data.options[slot.owner].demand.target_rate_bps
+    return slot.family.at(half).config.throughput_bps >= target * (1 - 1e-9)
+
+
+def _best_fitting(data: PackingInput, st: Stretch, i: int) -> tuple[Slot, int] | None:
+    """Among slot ``i``'s demand's configurations, the one (and half-width) worth most that
+    fits where slot ``i`` is, the others as they are; None if none beats it.  Configurations
+    are tried from the most each could carry down, and no further than the best found."""
+    old, half = st.slots[i], st.halves[i]
+    slots = [slot_of(data, old.owner, k) for k in range(len(data.options[old.owner].candidates))]
+    slots.sort(key=lambda s: -s.value_per_half * s.hi_half)
+    best: tuple[Slot, int] | None = None
+    best_value = old.value_per_half * half
+    for new in slots:
+        if new.value_per_half * new.hi_half <= best_value:
+            break
+        st.slots[i] = new
+        top = _widest_fitting(st, i, new)
+        if top is not None and new.value_per_half * top > best_value:
+            best, best_value = (new, top), new.value_per_half * top
+    st.slots[i], st.halves[i] = old, half
+    return best
+
+
+def _widest_fitting(st: Stretch, i: int, slot: Slot) -> int | None:
+    """The widest half-width of ``slot`` at place ``i`` at which ``st`` fits (None: none)."""
+    st.halves[i] = slot.lo_half
+    if not st.fits(st.halves):
+        return None
+    lo, hi = slot.lo_half, slot.hi_half
+    while lo < hi:
+        mid = (lo + hi + 1) // 2
+        st.halves[i] = mid
+        if st.fits(st.halves):
+            lo = mid
+        else:
+            hi = mid - 1
+    return lo

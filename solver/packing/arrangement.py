@@ -47,6 +47,7 @@ __all__ = [
     "from_model",
     "greedy_stretches",
     "pair_measure",
+    "slot_of",
     "to_carriers",
 ]
 
@@ -91,14 +92,15 @@ def fine_slot(family: Family, demand: Demand, priority: int, owner: int = -1) ->
     return Slot(fam, fam.lo_half, fam.hi_half, priority * per_half, owner)
 
 
-def _slot(data: PackingInput, d: int, k: int) -> Slot:
+def slot_of(data: PackingInput, d: int, k: int) -> Slot:
+    """Demand ``d``'s ``k``-th configuration as a slot on the fine grid (:func:`fine_slot`)."""
     opts = data.options[d]
     return fine_slot(opts.candidates[k], opts.demand, data.priorities[d], d)
 
 
 def _choices(data: PackingInput, d: int) -> list[Slot]:
     """A demand's families as slots, the least spectrum at the narrowest first."""
-    slots = [_slot(data, d, k) for k in range(len(data.options[d].candidates))]
+    slots = [slot_of(data, d, k) for k in range(len(data.options[d].candidates))]
     return sorted(slots, key=lambda s: 2 * s.lo_half + s.family.at(s.lo_half).guard_units)
 
 
@@ -133,7 +135,7 @@ def from_model(data: PackingInput, result: PackingResult) -> Arrangement:
             return data.options[d].candidates[k].at(h, lv).guard_units, data.options[d].demand.id
 
         for d, k, h in sorted(picks, key=order):
-            slot = _slot(data, d, k)
+            slot = slot_of(data, d, k)
             stretches[s].slots.append(slot)
             stretches[s].halves.append(slot.clamp(h * FINE))
     for st in stretches:
