@@ -30,7 +30,7 @@ from service.convert import plan_to_wire, progress_to_wire
 from service.errors import FieldIssue, InvalidInputError, SolverBusyError, problem_document
 from service.runtime import Runtime, new_id, prepare, run_solve
 from service.schemas import JobOut, JobState, PlanRequest
-from service.store import StoreUnavailableError, utc_now
+from service.store import JobCapError, StoreUnavailableError, utc_now
 from solver import ProblemError, ProgressEvent, SolveCancelledError, validate_problem
 
 __all__ = [
@@ -223,6 +223,32 @@ def _admit(runtime: Runtime, owner_key: str | None) -> None:
         raise SolverBusyError(settings.retry_after_s)
 
 
+def _store_job(
+    runtime: Runtime,
+    request: PlanRequest,
+    owner_key: str | None,
+    batch: tuple[str, int] | None,
+    owner: str | None = None,
+) -> JobOut:
+    """Store a new job, its key's cap counted in the same transaction (429 past it)."""
+    from service.ratelimit import job_cap_refusal
+
+    settings = runtime.settings
+    lease_s = None if owner is None else settings.job_lease_s
+    try:
+        return runtime.store.add_job(
+            new_id(),
+            request,
+            owner=owner,
+            lease_s=lease_s,
+            key_id=owner_key,
+            batch=batch,
+            key_cap=settings.max_jobs_per_key,
+        )
+    except JobCapError as exc:
+        raise job_cap_refusal(exc.held, exc.cap, 1, settings.retry_after_s) from exc
+
+
 def _cancel(runtime: Runtime, job_id: str) -> JobOut | None:
     job = runtime.store.cancel_job(job_id)
     if job is not None and job.state is JobState.CANCELLED:
@@ -271,14 +297,7 @@ class LocalJobQueue:
         runtime = self._runtime
         validate_job(runtime, request)
         _admit(runtime, owner_key)
-        job = runtime.store.add_job(
-            new_id(),
-            request,
-            owner=process_owner(),
-            lease_s=runtime.settings.job_lease_s,
-            key_id=owner_key,
-            batch=batch,
-        )
+        job = _store_job(runtime, request, owner_key, batch, owner=process_owner())
         self._keeper.hold(job.id)
         self._pool.submit(self._run, job.id)
         return job
@@ -331,7 +350,7 @@ class BrokerJobQueue:
         runtime = self._runtime
         validate_job(runtime, request)
         _admit(runtime, owner_key)
-        job = runtime.store.add_job(new_id(), request, key_id=owner_key, batch=batch)
+        job = _store_job(runtime, request, owner_key, batch)
         self._send_stored(job.id, request.time_limit_s)
         return job
 

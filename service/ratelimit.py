@@ -52,6 +52,7 @@ __all__ = [
     "RateLimits",
     "check_job_cap",
     "client_identity",
+    "job_cap_refusal",
     "limit_requests",
     "limit_solves",
     "storage_uri",
@@ -172,8 +173,9 @@ def check_job_cap(runtime: Runtime, owner_key: str | None, adding: int = 1) -> N
     """Refuse (429 ``too-many-jobs``) ``adding`` more jobs for ``owner_key`` when its queued
     and running jobs would then exceed ``BANDWRIGHT_MAX_JOBS_PER_KEY``; no cap served open.
 
-    The count and the inserts that follow are not one transaction: submissions racing on one
-    key may pass the cap by the number that race.
+    This refuses early (a whole batch at once); the store counts again as it inserts each
+    job, with the key's row locked (:meth:`service.store.Store.add_job`), so that submissions
+    racing on one key never pass the cap.
     """
     if owner_key is None:
         return
@@ -184,10 +186,15 @@ def check_job_cap(runtime: Runtime, owner_key: str | None, adding: int = 1) -> N
         for state in (JobState.QUEUED, JobState.RUNNING)
     )
     if held + adding > cap:
-        asked = "one more" if adding == 1 else f"{adding} more"
-        detail = (
-            f"this API key holds {held} queued or running jobs and its cap is {cap} "
-            f"(BANDWRIGHT_MAX_JOBS_PER_KEY), so {asked} cannot be queued: wait for some to end, "
-            "or cancel some"
-        )
-        raise TooManyRequestsError("too-many-jobs", detail, settings.retry_after_s)
+        raise job_cap_refusal(held, cap, adding, settings.retry_after_s)
+
+
+def job_cap_refusal(held: int, cap: int, adding: int, retry_after_s: int) -> TooManyRequestsError:
+    """The 429 for a key whose queued and running jobs would pass its cap."""
+    asked = "one more" if adding == 1 else f"{adding} more"
+    detail = (
+        f"this API key holds {held} queued or running jobs and its cap is {cap} "
+        f"(BANDWRIGHT_MAX_JOBS_PER_KEY), so {asked} cannot be queued: wait for some to end, "
+        "or cancel some"
+    )
+    return TooManyRequestsError("too-many-jobs", detail, retry_after_s)

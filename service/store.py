@@ -31,6 +31,7 @@ from service.tables import BatchRow, JobRow, KeyRow, PlanRow, ReplayRow
 __all__ = [
     "BatchEntry",
     "BatchRecord",
+    "JobCapError",
     "JobRecord",
     "KeyRecord",
     "Replay",
@@ -96,6 +97,15 @@ class JobRecord:
 
     job: JobOut
     request: PlanRequest
+
+
+class JobCapError(Exception):
+    """The key already holds ``held`` queued or running jobs, its cap being ``cap``."""
+
+    def __init__(self, held: int, cap: int) -> None:
+        super().__init__(f"{held} queued or running jobs held; the cap is {cap}")
+        self.held = held
+        self.cap = cap
 
 
 @dataclass(frozen=True)
@@ -275,9 +285,13 @@ class Store:
         lease_s: float | None = None,
         key_id: str | None = None,
         batch: tuple[str, int] | None = None,
+        key_cap: int | None = None,
     ) -> JobOut:
         """Store a new queued job, held by ``owner`` for ``lease_s`` (in-process queue) or by
-        nobody (a distributed queue carries it)."""
+        nobody (a distributed queue carries it).  With ``key_cap``, raises
+        :class:`JobCapError` when ``key_id`` already holds that many queued or running jobs:
+        counted and inserted in one transaction with the key's row locked, so submissions
+        racing on one key never pass the cap."""
         now = utc_now()
         row = JobRow(
             id=job_id,
@@ -294,6 +308,19 @@ class Store:
             batch_position=None if batch is None else batch[1],
         )
         with self._session() as session:
+            if key_id is not None and key_cap is not None:
+                # A write to the key's row first: it locks that row on PostgreSQL and takes
+                # SQLite's write lock, so one submission per key counts and inserts at a time.
+                session.execute(
+                    sa.update(KeyRow).where(KeyRow.id == key_id).values(name=KeyRow.name)
+                )
+                held = session.scalar(
+                    sa.select(sa.func.count())
+                    .select_from(JobRow)
+                    .where(JobRow.key_id == key_id, JobRow.state.in_(UNFINISHED))
+                )
+                if (held or 0) >= key_cap:
+                    raise JobCapError(int(held or 0), key_cap)
             session.add(row)
             return _job_out(row)
 

@@ -24,7 +24,7 @@ from service.convert import plan_to_wire, to_problem
 from service.runtime import SolveFunction, new_id
 from service.schemas import JobProgress, JobState, PlanOut, PlanRequest
 from service.settings import Settings
-from service.store import Replay, Store, utc_now
+from service.store import JobCapError, Replay, Store, StoreUnavailableError, utc_now
 
 T = TypeVar("T")
 
@@ -273,3 +273,24 @@ def test_only_the_holder_releases_or_fails_a_job(store: Store, request_: PlanReq
     failed = store.get_job(job_id)
     assert failed is not None and (failed.job.state, failed.job.error) == (JobState.FAILED, error)
     assert not store.fail_job(job_id, "worker-2", error)
+
+
+def test_submissions_racing_on_one_key_never_pass_its_cap(
+    store: Store, request_: PlanRequest
+) -> None:
+    cap, racers = 3, 12
+    store.add_key("k" * 32, "racer", "plan", "hash-of-the-racing-key")
+
+    def submit() -> str:
+        try:
+            store.add_job(new_id(), request_, key_id="k" * 32, key_cap=cap)
+        except JobCapError:
+            return "refused"
+        except StoreUnavailableError:  # SQLite: a writer that lost the lock race
+            return "busy"
+        return "queued"
+
+    outcomes = _at_once(*([submit] * racers))
+    assert outcomes.count("queued") == cap, outcomes
+    assert store.count_jobs(JobState.QUEUED, key_id="k" * 32) == cap
+    store.add_job(new_id(), request_, key_id="another-key", key_cap=cap)  # keys count apart
