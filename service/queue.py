@@ -28,6 +28,7 @@ from typing import Any
 
 from service.convert import plan_to_wire, progress_to_wire
 from service.errors import FieldIssue, InvalidInputError, SolverBusyError, problem_document
+from service.ratelimit import job_cap_refusal
 from service.runtime import Runtime, new_id, prepare, run_solve
 from service.schemas import JobOut, JobState, PlanRequest
 from service.store import JobCapError, StoreUnavailableError, utc_now
@@ -212,12 +213,9 @@ def _job_error(job_id: str, exc: Exception) -> dict[str, Any]:
     return problem_document(500, "internal", detail, instance, ())
 
 
-def _admit(runtime: Runtime, owner_key: str | None) -> None:
-    """Refuse a job past its key's cap of queued plus running jobs (429), then one the queue
-    has no place for (503)."""
-    from service.ratelimit import check_job_cap
-
-    check_job_cap(runtime, owner_key)
+def _admit(runtime: Runtime) -> None:
+    """Refuse a job the queue has no place for (503).  Its key's cap is counted by the store
+    as the job is inserted (:func:`_store_job`)."""
     settings = runtime.settings
     if runtime.store.count_jobs(JobState.QUEUED) >= settings.max_queued_jobs:
         raise SolverBusyError(settings.retry_after_s)
@@ -231,8 +229,6 @@ def _store_job(
     owner: str | None = None,
 ) -> JobOut:
     """Store a new job, its key's cap counted in the same transaction (429 past it)."""
-    from service.ratelimit import job_cap_refusal
-
     settings = runtime.settings
     lease_s = None if owner is None else settings.job_lease_s
     try:
@@ -296,7 +292,7 @@ class LocalJobQueue:
         """Validate, store and queue a job; SolverBusyError when the queue is full."""
         runtime = self._runtime
         validate_job(runtime, request)
-        _admit(runtime, owner_key)
+        _admit(runtime)
         job = _store_job(runtime, request, owner_key, batch, owner=process_owner())
         self._keeper.hold(job.id)
         self._pool.submit(self._run, job.id)
@@ -349,7 +345,7 @@ class BrokerJobQueue:
         and unsent; the sweep sends it once the broker is back."""
         runtime = self._runtime
         validate_job(runtime, request)
-        _admit(runtime, owner_key)
+        _admit(runtime)
         job = _store_job(runtime, request, owner_key, batch)
         self._send_stored(job.id, request.time_limit_s)
         return job

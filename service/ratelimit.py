@@ -14,8 +14,8 @@ through (fail open) and is logged, at most once per :data:`LOG_EVERY_S`: a rate 
 less than the service.
 
 A key may hold at most ``BANDWRIGHT_MAX_JOBS_PER_KEY`` queued or running jobs
-(:func:`check_job_cap`, called when a job or a batch is submitted); past it, 429
-``too-many-jobs``.  Served open (no key) only the queue's own bound applies.
+(counted by the store as each job is inserted, and by :func:`check_job_cap` for a whole
+batch before any of it is queued); past it, 429 ``too-many-jobs``.  Served open (no key) only the queue's own bound applies.
 
 Behind a reverse proxy the client address is the proxy's unless the server is told to trust
 its forwarding headers (``uvicorn --proxy-headers --forwarded-allow-ips``).
@@ -173,9 +173,9 @@ def check_job_cap(runtime: Runtime, owner_key: str | None, adding: int = 1) -> N
     """Refuse (429 ``too-many-jobs``) ``adding`` more jobs for ``owner_key`` when its queued
     and running jobs would then exceed ``BANDWRIGHT_MAX_JOBS_PER_KEY``; no cap served open.
 
-    This refuses early (a whole batch at once); the store counts again as it inserts each
-    job, with the key's row locked (:meth:`service.store.Store.add_job`), so that submissions
-    racing on one key never pass the cap.
+    This refuses a whole batch before any of it is queued; the store counts again as it
+    inserts each job, with the key's row locked (:meth:`service.store.Store.add_job`), so that
+    submissions racing on one key never pass the cap.
     """
     if owner_key is None:
         return

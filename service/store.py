@@ -406,16 +406,20 @@ class Store:
 
     def fail_job(self, job_id: str, owner: str, error: dict[str, Any]) -> bool:
         """Mark the job failed with a problem document, if ``owner`` still runs it."""
-        return self._end_held(job_id, owner, state=JobState.FAILED, error_json=json.dumps(error))
+        failed = JobState.FAILED.value
+        return self._end_held(job_id, owner, state=failed, error_json=json.dumps(error))
 
     def release_job(self, job_id: str, owner: str) -> bool:
         """Give a job ``owner`` holds back to the queue (its process is stopping)."""
-        values = {"state": JobState.QUEUED, "owner": None, "lease_until": None, "sent_at": None}
+        values = {
+            "state": JobState.QUEUED.value,
+            "owner": None,
+            "lease_until": None,
+            "sent_at": None,
+        }
         return self._end_held(job_id, owner, **values)
 
     def _end_held(self, job_id: str, holder: str, **values: Any) -> bool:
-        if isinstance(values.get("state"), JobState):
-            values["state"] = values["state"].value
         held = sa.and_(JobRow.id == job_id, JobRow.owner == holder, JobRow.state.in_(UNFINISHED))
         with self._session() as session:
             changed = session.execute(
