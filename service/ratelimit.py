@@ -15,7 +15,8 @@ less than the service.
 
 A key may hold at most ``BANDWRIGHT_MAX_JOBS_PER_KEY`` queued or running jobs
 (counted by the store as each job is inserted, and by :func:`check_job_cap` for a whole
-batch before any of it is queued); past it, 429 ``too-many-jobs``.  Served open (no key) only the queue's own bound applies.
+batch before any of it is queued); past it, 429 ``too-many-jobs``.  Served open (no key)
+only the queue's own bound applies.
 
 Behind a reverse proxy the client address is the proxy's unless the server is told to trust
 its forwarding headers (``uvicorn --proxy-headers --forwarded-allow-ips``).
