@@ -52,6 +52,7 @@ __all__ = [
     "candidate_for",
     "candidate_sets",
     "emission_key",
+    "every_family",
     "family_for",
     "family_up_to_target",
     "least_width_hz",
@@ -751,6 +752,20 @@ def _bound_families(problem: Problem, demand: Demand, basis: _Basis) -> tuple[Fa
         _family(problem, demand, combos, g, i, int(span.hi_half[i]), int(span.lo_half[i]))
         for i in front
         if placeable[i]
+    )
+
+
+def every_family(problem: Problem, demand: Demand) -> tuple[Family, ...]:
+    """Every combination of modulation, code rate and roll-off that closes the demand's link
+    at its minimum rate and can be placed, none pruned (a configuration that carries less
+    may still pass verification where a better one does not)."""
+    combos, span, g = _basis(problem, demand, problem.block.width_hz, 0.0)
+    if g is None:
+        return ()
+    return tuple(
+        _family(problem, demand, combos, g, i, int(span.hi_half[i]), int(span.lo_half[i]))
+        for i in range(g.combo_index.size)
+        if np.isfinite(g.edge_hz[i])
     )
 
 

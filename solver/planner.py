@@ -8,6 +8,7 @@ again; after :data:`MAX_REPAIR_ROUNDS` the carriers still to blame are left out,
 
 from __future__ import annotations
 
+import functools
 import itertools
 import logging
 import math
@@ -22,6 +23,7 @@ from solver.candidates import (
     Family,
     build_candidates,
     candidate_sets,
+    every_family,
     family_for,
     family_up_to_target,
 )
@@ -72,6 +74,7 @@ from solver.summary import (
     summarise,
     with_guards,
 )
+from solver.upgrade import upgrade
 from solver.validation import validate_problem
 from solver.verify import PairCheck, Verification, verify_plan
 
@@ -524,9 +527,14 @@ def _run(
     peer = greedy_admission(
         problem, pinned, demands, started + GREEDY_SHARE * problem.time_limit_s, cancel
     )
-    packing = replace(problem, time_limit_s=max(0.2, deadline - time.perf_counter()))
+    search_end = deadline - UPGRADE_SHARE * problem.time_limit_s
+    packing = replace(problem, time_limit_s=max(0.2, search_end - time.perf_counter()))
     check, result, rounds, dropped = _solve_and_verify(packing, data, pinned, progress, cancel)
-    check, dropped = _at_least_greedy(problem, data, pinned, peer, check, dropped, deadline, cancel)
+    check, dropped = _at_least_greedy(
+        problem, data, pinned, peer, check, dropped, search_end, cancel
+    )
+    if cancel is None or not cancel.is_set():
+        check = _upgraded(problem, data, pinned, check, deadline)
     served = {c.demand_id for c in check.carriers}
     dropped_ids = {u.demand_id for u in dropped}
     explained = explain_unserved(problem, free, served | dropped_ids, segments)
@@ -540,6 +548,40 @@ def _run(
         tuple(fixed),
         choice,
     )
+
+
+UPGRADE_SHARE = 0.1
+"""Share of a run's time kept, after the search, for giving verified carriers better
+configurations where they stand and the room that frees to their neighbours (:func:`_upgraded`)."""
+
+
+def _upgraded(
+    problem: Problem,
+    data: PackingInput,
+    pinned: Sequence[Carrier],
+    check: Verification,
+    deadline: float,
+) -> Verification:
+    """The verified plan with its free carriers in better configurations where they stand
+    (:func:`~solver.upgrade.upgrade`); where that leaves a carrier narrower (at its target in
+    less width), the room goes to its neighbours (:func:`_widened`) and the widened carriers
+    try again."""
+    families = functools.partial(every_family, problem)
+    keep = {c.demand_id for c in pinned}
+    better = upgrade(problem, check, families, keep, deadline)
+    narrowed = any(
+        b.config.allocated_bandwidth_hz < a.config.allocated_bandwidth_hz * (1 - 1e-9)
+        for a, b in zip(check.carriers, better.carriers, strict=True)
+    )
+    if not narrowed or time.perf_counter() > deadline:
+        return better
+    free = [c for c in better.carriers if c.demand_id not in keep]
+    wider = _widened(problem, data, pinned, free, deadline)
+    if not wider.passed or _secondary(problem, wider.carriers, 0.0) <= _secondary(
+        problem, better.carriers, 0.0
+    ):
+        return better
+    return upgrade(problem, wider, families, keep, deadline)
 
 
 GREEDY_SHARE = 0.2

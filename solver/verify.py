@@ -37,6 +37,7 @@ __all__ = [
     "Verification",
     "Violation",
     "ViolationKind",
+    "verify_change",
     "verify_plan",
 ]
 
@@ -204,25 +205,48 @@ def _leakage(problem: Problem, carriers: list[Carrier]) -> tuple[list[Carrier], 
 
     The ratio filled in on each side is the one towards whatever is nearest there.
     """
-    obstacles = _obstacles(problem)
-    limits = {
-        ViolationKind.LEAKAGE: problem.leakage_limit_db,
-        ViolationKind.EDGE_LEAKAGE: problem.edge_limit_db,
-    }
+    rule = _LeakageRule.of(problem)
     found: list[Violation] = []
     out: list[Carrier] = []
-    for i, c in enumerate(carriers):
+    for i in range(len(carriers)):
+        carrier, violations = rule.check(carriers, i)
+        out.append(carrier)
+        found += violations
+    return out, found
+
+
+@dataclass(frozen=True)
+class _LeakageRule:
+    """The leakage checks of one problem: its obstacles and the limit of each kind of check."""
+
+    problem: Problem
+    obstacles: list[_Obstacle]
+    limits: dict[ViolationKind, float]
+
+    @classmethod
+    def of(cls, problem: Problem) -> _LeakageRule:
+        limits = {
+            ViolationKind.LEAKAGE: problem.leakage_limit_db,
+            ViolationKind.EDGE_LEAKAGE: problem.edge_limit_db,
+        }
+        return cls(problem, _obstacles(problem), limits)
+
+    def check(self, carriers: Sequence[Carrier], i: int) -> tuple[Carrier, list[Violation]]:
+        """Carrier ``i`` of ``carriers`` (sorted by centre) with its leakage ratios filled in,
+        and what it fails."""
+        c = carriers[i]
+        found: list[Violation] = []
         ratios: dict[Side, float] = {"below": math.inf, "above": math.inf}
         sides: tuple[tuple[Side, Carrier | None], ...] = (
             ("below", carriers[i - 1] if i else None),
             ("above", carriers[i + 1] if i + 1 < len(carriers) else None),
         )
         for side, neighbour in sides:
-            for k, check in enumerate(_side_checks(obstacles, c, side, neighbour)):
-                ratio = _side_ratio(problem, c, check.gap_hz, side)
+            for k, check in enumerate(_side_checks(self.obstacles, c, side, neighbour)):
+                ratio = _side_ratio(self.problem, c, check.gap_hz, side)
                 if k == 0:
                     ratios[side] = ratio
-                limit = limits[check.kind]
+                limit = self.limits[check.kind]
                 if ratio < limit - LEAKAGE_TOLERANCE_DB:
                     found.append(
                         Violation(
@@ -234,12 +258,10 @@ def _leakage(problem: Problem, carriers: list[Carrier]) -> tuple[list[Carrier], 
                             needed_db=limit,
                         )
                     )
-        out.append(
-            replace(
-                c, leakage_ratio_below_db=ratios["below"], leakage_ratio_above_db=ratios["above"]
-            )
+        carrier = replace(
+            c, leakage_ratio_below_db=ratios["below"], leakage_ratio_above_db=ratios["above"]
         )
-    return out, found
+        return carrier, found
 
 
 @dataclass(frozen=True)
@@ -367,21 +389,51 @@ def _interference(
     problem: Problem, carriers: list[Carrier]
 ) -> tuple[list[Carrier], list[Violation]]:
     """C/I through each victim's matched filter and the margin that is left."""
-    levels = {d.id: 10.0 ** (d.relative_level_db / 10.0) for d in problem.demands}
-    margins = {d.id: d.margin_db for d in problem.demands}
+    rule = _InterferenceRule.of(problem)
+    emitters = [rule.emitter(c) for c in carriers]
+    by_centre = sorted(emitters, key=lambda e: e.carrier.center_hz)
     found: list[Violation] = []
     out: list[Carrier] = []
-    emitters = [_Emitter.of(problem, c, levels[c.demand_id]) for c in carriers]
-    by_centre = sorted(emitters, key=lambda e: e.carrier.center_hz)
-    for v, emitter in zip(carriers, emitters, strict=True):
-        signal, powers = _received(problem, emitter, by_centre)
+    for emitter in emitters:
+        carrier, violations = rule.check(emitter, by_centre)
+        out.append(carrier)
+        found += violations
+    return out, found
+
+
+@dataclass(frozen=True)
+class _InterferenceRule:
+    """The interference check of one problem: each demand's relative level and the margin
+    interference must leave it."""
+
+    problem: Problem
+    levels: dict[str, float]
+    floors: dict[str, float]
+
+    @classmethod
+    def of(cls, problem: Problem) -> _InterferenceRule:
+        levels = {d.id: 10.0 ** (d.relative_level_db / 10.0) for d in problem.demands}
+        floors = {d.id: d.margin_db - INTERFERENCE_ALLOWANCE_DB for d in problem.demands}
+        return cls(problem, levels, floors)
+
+    def emitter(self, carrier: Carrier) -> _Emitter:
+        return _Emitter.of(self.problem, carrier, self.levels[carrier.demand_id])
+
+    def check(
+        self, victim: _Emitter, by_centre: Sequence[_Emitter]
+    ) -> tuple[Carrier, list[Violation]]:
+        """The victim with its C/I and margin after interference filled in, and what it fails
+        (``by_centre``: every emitter, sorted by centre)."""
+        v = victim.carrier
+        signal, powers = _received(self.problem, victim, by_centre)
         interference = sum(powers.values())
         ci_lin = math.inf if interference <= 0 else signal / interference
         c_over_i = 10.0 * math.log10(ci_lin)
         esn0_lin = 10.0 ** (v.config.esn0_db / 10.0)
         effective_db = 10.0 * math.log10(1.0 / (1.0 / esn0_lin + 1.0 / ci_lin))
         margin_after = effective_db - v.config.required_esn0_db
-        floor = margins[v.demand_id] - INTERFERENCE_ALLOWANCE_DB
+        floor = self.floors[v.demand_id]
+        found: list[Violation] = []
         if margin_after < floor:
             culprit = max(powers, key=lambda d: powers[d])
             needed = _needed_c_over_i_db(v.config.esn0_db, v.config.required_esn0_db, floor)
@@ -395,8 +447,13 @@ def _interference(
                     needed_db=needed,
                 )
             )
-        out.append(replace(v, c_over_i_db=c_over_i, margin_after_interference_db=margin_after))
-    return out, found
+        return replace(v, c_over_i_db=c_over_i, margin_after_interference_db=margin_after), found
+
+    def hears(self, victim: _Emitter, other: _Emitter) -> bool:
+        """Whether ``other``'s emission reaches into ``victim``'s matched filter at all."""
+        grid, _ = _response(victim.linear_key)
+        reach = float(np.max(np.abs(grid), initial=0.0)) * victim.carrier.config.symbol_rate_baud
+        return abs(other.carrier.center_hz - victim.carrier.center_hz) <= reach + other.reach_hz
 
 
 NEIGHBOUR_SHARE_DB = 10.0 * math.log10(2.0)
@@ -413,23 +470,19 @@ class PairCheck:
 
     def __init__(self, problem: Problem) -> None:
         self.problem = problem
-        self.levels = {d.id: 10.0 ** (d.relative_level_db / 10.0) for d in problem.demands}
-        self.floors = {d.id: d.margin_db - INTERFERENCE_ALLOWANCE_DB for d in problem.demands}
-
-    def _emitter(self, carrier: Carrier) -> _Emitter:
-        return _Emitter.of(self.problem, carrier, self.levels[carrier.demand_id])
+        self.rule = _InterferenceRule.of(problem)
 
     def _passes(self, low: Carrier, high: Carrier, gap_hz: float) -> bool:
         centre = low.upper_edge_hz + gap_hz + high.config.allocated_bandwidth_hz / 2
         high = replace(high, center_hz=centre)
-        pair = [self._emitter(low), self._emitter(high)]
+        pair = [self.rule.emitter(low), self.rule.emitter(high)]
         for victim, other in ((pair[0], pair[1]), (pair[1], pair[0])):
             cfg = victim.carrier.config
             signal, powers = _received(self.problem, victim, [victim, other])
             interference = powers.get(other.carrier.demand_id, 0.0)
             if interference <= 0:
                 continue
-            floor = self.floors[victim.carrier.demand_id]
+            floor = self.rule.floors[victim.carrier.demand_id]
             needed = _needed_c_over_i_db(cfg.esn0_db, cfg.required_esn0_db, floor)
             if 10.0 * math.log10(signal / interference) < needed + NEIGHBOUR_SHARE_DB:
                 return False
@@ -478,3 +531,47 @@ def verify_plan(problem: Problem, carriers: Sequence[Carrier]) -> Verification:
     ordered, leak = _leakage(problem, ordered)
     ordered, interf = _interference(problem, ordered)
     return Verification(tuple(ordered), tuple(violations + leak + interf))
+
+
+def verify_change(problem: Problem, before: Verification, index: int, new: Carrier) -> Verification:
+    """:func:`verify_plan` of ``before``'s plan with its carrier ``index`` replaced by ``new``
+    at the same centre, computing only what the change can alter.
+
+    What a carrier's checks read is local: its placement and leakage ratios depend on its
+    neighbours on either side, and its interference on the emitters that reach into its matched
+    filter.  So only the neighbours' placement and leakage, and the victims the old or the new
+    carrier reaches, are checked again; every other carrier keeps its figures and violations.
+    The result equals :func:`verify_plan` on the changed plan (a property test holds it to that).
+    """
+    old = before.carriers[index]
+    if new.center_hz != old.center_hz:
+        raise ValueError("verify_change keeps the carrier's centre; use verify_plan to move it")
+    carriers = list(before.carriers)
+    carriers[index] = new
+    near = range(max(index - 1, 0), min(index + 2, len(carriers)))
+    near_ids = {carriers[j].demand_id for j in near}
+    window = carriers[max(index - 2, 0) : index + 2]
+    placed = [v for v in _placement_violations(problem, window) if v.demand_id in near_ids]
+    leak_rule = _LeakageRule.of(problem)
+    leaks: list[Violation] = []
+    for j in near:
+        carriers[j], found = leak_rule.check(carriers, j)
+        leaks += found
+    rule = _InterferenceRule.of(problem)
+    emitters = [rule.emitter(c) for c in carriers]
+    by_centre = sorted(emitters, key=lambda e: e.carrier.center_hz)
+    changed = (emitters[index], rule.emitter(old))
+    heard: list[Violation] = []
+    victims: set[str] = set()
+    for j, victim in enumerate(emitters):
+        if j == index or any(rule.hears(victim, e) for e in changed):
+            carriers[j], found = rule.check(victim, by_centre)
+            heard += found
+            victims.add(carriers[j].demand_id)
+    kept = [
+        v
+        for v in before.violations
+        if not (v.kind is ViolationKind.INTERFERENCE and v.demand_id in victims)
+        and not (v.kind is not ViolationKind.INTERFERENCE and v.demand_id in near_ids)
+    ]
+    return Verification(tuple(carriers), (*kept, *placed, *leaks, *heard))
