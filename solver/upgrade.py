@@ -1,36 +1,53 @@
-"""Verified carriers given a better configuration where they stand.
+"""Verified carriers given better configurations and widths, one local change at a time.
 
-The packing chooses each carrier's modulation, code rate and roll-off against the pair rule's
-protection (:class:`solver.verify.PairCheck`), which spaces a sensitive carrier as though its
-neighbours shared its allowance evenly.  Verification measures the real aggregate, so a
-carrier often has interference margin to spare once the plan is placed.  Here, for
-``max_throughput``, each carrier below its target tries the configurations of its demand
-that carry more in no more width, at its own centre, best first, and keeps the first the whole
-plan still passes verification with (:func:`~solver.verify.verify_change`: exact, and local).
-Positions never change and no carrier grows, so the plan's geometry, admission and every
-other carrier's configuration stay as they were.
+The packing chooses each carrier's modulation, code rate, roll-off and width against the pair
+rule's protection (:class:`solver.verify.PairCheck`), which spaces a sensitive carrier as
+though its neighbours shared its allowance evenly.  Verification measures the real aggregate,
+so once the plan is placed a carrier often has interference margin to spare.  Here, for
+``max_throughput``, two kinds of change are tried, each kept only if the whole plan still
+passes verification (:func:`~solver.verify.verify_change`: exact, and local):
+
+* **a better configuration where it stands**: a carrier below its target takes the
+  configuration of its demand that carries most in no more width, at its own centre;
+* **width passed to a neighbour**: two neighbours of one stretch move the edge between them
+  (the gap between them moves with it, unchanged), each in the configuration worth most at its
+  new width, when the pair then carries more.
+
+Admission never changes and nothing leaves its stretch.  Passes repeat until no change is
+kept (a change moves its neighbours' interference, so a later pass may find room an earlier
+one did not) or the time is up.
 """
 
 from __future__ import annotations
 
+import itertools
 import time
-from collections.abc import Callable, Collection, Sequence
+from collections.abc import Callable, Collection, Iterable, Iterator, Sequence
+from dataclasses import dataclass
 
 from solver.model import Carrier, CarrierConfig, Demand, Objective, Problem
 from solver.packing.families import Family
-from solver.verify import Verification, verify_change
+from solver.verify import Verification, meets_leakage_limits, verify_change
 
 __all__ = ["upgrade"]
+
+CHOICES_PER_SIDE = 3
+"""Configurations tried per carrier of a pair at its new width, the most valuable first."""
+
+SHARES = (1.0, 0.5, 0.25, 0.125)
+"""Shares of the width a carrier could give up that a pair tries moving, largest first."""
+
+Families = Callable[[Demand], Sequence[Family]]
 
 
 def upgrade(
     problem: Problem,
     verified: Verification,
-    families: Callable[[Demand], Sequence[Family]],
+    families: Families,
     keep: Collection[str],
     deadline: float,
 ) -> Verification:
-    """``verified`` (a passing plan) with carriers below target in better configurations.
+    """``verified`` (a passing plan) with better configurations and widths where they pass.
 
     Parameters
     ----------
@@ -53,77 +70,214 @@ def upgrade(
     """
     if problem.objective is not Objective.MAX_THROUGHPUT or not verified.passed:
         return verified
-    demands = {d.id: d for d in problem.demands}
-    choices: dict[str, Sequence[Family]] = {}
-    current = verified
-    changed = True
-    while changed:  # a change moves its neighbours' interference: pass again until none
+    local = _Local(problem, families, keep, deadline)
+    current, changed = verified, True
+    while changed and not local.late():
         changed = False
-        for i in _order(current.carriers, demands, keep):
-            if time.perf_counter() > deadline:
-                return current
-            demand = demands[current.carriers[i].demand_id]
-            if demand.id not in choices:
-                choices[demand.id] = families(demand)
-            better = _upgraded(problem, current, i, demand, choices[demand.id], deadline)
+        for i in local.below_target(current):
+            better = local.best_in_place(current, i)
+            if better is not None:
+                current, changed = better, True
+        for i in local.pairs(current):
+            better = local.best_transfer(current, i)
             if better is not None:
                 current, changed = better, True
     return current
 
 
-def _value(demand: Demand, config: CarrierConfig) -> float:
-    return demand.priority * min(config.throughput_bps, demand.target_rate_bps)
+@dataclass
+class _Local:
+    """What the local changes read: the request, each demand's configurations (built on first
+    use), the carriers that must stay and the time limit."""
 
+    problem: Problem
+    families: Families
+    keep: Collection[str]
+    deadline: float
 
-def _order(
-    carriers: Sequence[Carrier], demands: dict[str, Demand], keep: Collection[str]
-) -> list[int]:
-    """Indices of the carriers below target that may change, highest priority first, then
-    the most short of target."""
-    below = [
-        i
-        for i, c in enumerate(carriers)
-        if c.demand_id not in keep
-        and c.config.throughput_bps < demands[c.demand_id].target_rate_bps * (1 - 1e-9)
-    ]
-    return sorted(
-        below,
-        key=lambda i: (
-            -demands[carriers[i].demand_id].priority,
-            carriers[i].config.throughput_bps - demands[carriers[i].demand_id].target_rate_bps,
-        ),
-    )
+    def __post_init__(self) -> None:
+        self.demands = {d.id: d for d in self.problem.demands}
+        self.known: dict[str, Sequence[Family]] = {}
 
+    def late(self) -> bool:
+        return time.perf_counter() > self.deadline
 
-def _upgraded(
-    problem: Problem,
-    current: Verification,
-    i: int,
-    demand: Demand,
-    families: Sequence[Family],
-    deadline: float,
-) -> Verification | None:
-    """The plan with carrier ``i`` in the configuration worth most that passes, or None."""
-    carrier = current.carriers[i]
-    worth = _value(demand, carrier.config)
-    trials = []
-    for fam in families:
-        config = _in_width(fam, carrier.config.allocated_bandwidth_hz)
-        if config.throughput_bps < demand.min_rate_bps * (1 - 1e-9):
-            continue
-        value = _value(demand, config)
-        if value > worth * (1 + 1e-6):
-            trials.append((value, config))
-    for _, config in sorted(trials, key=lambda t: -t[0]):
-        if time.perf_counter() > deadline:
-            return None
-        check = verify_change(problem, current, i, Carrier(config, carrier.center_hz, 0.0, 0.0))
-        if check.passed:
-            return check
-    return None
+    def value(self, carrier: Carrier, config: CarrierConfig | None = None) -> float:
+        demand = self.demands[carrier.demand_id]
+        config = carrier.config if config is None else config
+        return demand.priority * min(config.throughput_bps, demand.target_rate_bps)
 
+    def short(self, carrier: Carrier) -> bool:
+        target = self.demands[carrier.demand_id].target_rate_bps
+        return carrier.config.throughput_bps < target * (1 - 1e-9)
 
-def _in_width(fam: Family, width_hz: float) -> CarrierConfig:
-    """``fam``'s configuration filling ``width_hz``, or at its top (its target, or the most
-    its link allows) when that is narrower."""
-    return fam.config_at(min(1.0, width_hz / fam.top.config.allocated_bandwidth_hz))
+    def configs(self, carrier: Carrier, width_hz: float) -> Iterator[CarrierConfig]:
+        """The demand's configurations that carry its minimum rate in ``width_hz`` (each
+        filling it, or at its family's top when that is narrower), most valuable first."""
+        demand = self.demands[carrier.demand_id]
+        if demand.id not in self.known:
+            self.known[demand.id] = self.families(demand)
+        scaled = []
+        for fam in self.known[demand.id]:
+            top = fam.top.config
+            scale = min(1.0, width_hz / top.allocated_bandwidth_hz)
+            rate = top.throughput_bps * scale
+            if rate >= demand.min_rate_bps * (1 - 1e-9):
+                scaled.append((min(rate, demand.target_rate_bps), scale, fam))
+        scaled.sort(key=lambda t: -t[0])
+        return (fam.config_at(scale) for _, scale, fam in scaled)
+
+    def below_target(self, plan: Verification) -> list[int]:
+        """Carriers below target that may change, highest priority first, then the most short
+        of target."""
+        carriers = plan.carriers
+        below = [
+            i for i, c in enumerate(carriers) if c.demand_id not in self.keep and self.short(c)
+        ]
+        return sorted(
+            below,
+            key=lambda i: (
+                -self.demands[carriers[i].demand_id].priority,
+                carriers[i].config.throughput_bps
+                - self.demands[carriers[i].demand_id].target_rate_bps,
+            ),
+        )
+
+    def pairs(self, plan: Verification) -> list[int]:
+        """Each ``i`` whose carriers ``i`` and ``i + 1`` may both change, with one of them below
+        target and no exclusion between them."""
+        out = []
+        for i, (a, b) in enumerate(itertools.pairwise(plan.carriers)):
+            if a.demand_id in self.keep or b.demand_id in self.keep:
+                continue
+            if not (self.short(a) or self.short(b)):
+                continue
+            if any(
+                x.start_hz >= a.upper_edge_hz and x.stop_hz <= b.lower_edge_hz
+                for x in self.problem.block.exclusions
+            ):
+                continue
+            out.append(i)
+        return out
+
+    def best_in_place(self, plan: Verification, i: int) -> Verification | None:
+        """The plan with carrier ``i`` in the configuration worth most, in no more width at
+        its centre, that passes; None if none beats it."""
+        carrier = plan.carriers[i]
+        worth = self.value(carrier)
+        for config in self.configs(carrier, carrier.config.allocated_bandwidth_hz):
+            if self.value(carrier, config) <= worth * (1 + 1e-6) or self.late():
+                return None
+            new = Carrier(config, carrier.center_hz, 0.0, 0.0)
+            if not self.leaks_within(plan.carriers, {i: new}, i):
+                continue
+            check = verify_change(self.problem, plan, {i: new})
+            if check.passed:
+                return check
+        return None
+
+    def leaks_within(
+        self, carriers: Sequence[Carrier], changes: dict[int, Carrier], i: int
+    ) -> bool:
+        """Whether carrier ``i``, with ``changes`` made, meets its leakage limits (the cheap
+        part of verification, checked before the whole)."""
+        trial = [changes.get(j, c) for j, c in enumerate(carriers)]
+        return meets_leakage_limits(self.problem, trial, i)
+
+    def best_transfer(self, plan: Verification, i: int) -> Verification | None:
+        """The plan with the edge between carriers ``i`` and ``i + 1`` moved (either way) where
+        the pair then carries most and passes; None if no move gains."""
+        low, high = plan.carriers[i], plan.carriers[i + 1]
+        worth = self.value(low) + self.value(high)
+        trials = []
+        for shift in self._shifts(low, high):
+            lows, highs = self._pair_choices(plan, i, shift)
+            for a, b in itertools.product(lows, highs):
+                gain = self.value(low, a.config) + self.value(high, b.config) - worth
+                if gain > worth * 1e-6:
+                    trials.append((gain, a, b))
+        for _, a, b in sorted(trials, key=lambda t: -t[0]):
+            if self.late():
+                return None
+            check = verify_change(self.problem, plan, {i: a, i + 1: b})
+            if check.passed:
+                return check
+        return None
+
+    def _pair_choices(
+        self, plan: Verification, i: int, shift: float
+    ) -> tuple[list[Carrier], list[Carrier]]:
+        """Carriers ``i`` and ``i + 1`` with the edge between them moved by ``shift`` (the gap
+        above it kept): for each, the most valuable configurations at its new width that meet
+        their leakage limits there."""
+        low, high = plan.carriers[i], plan.carriers[i + 1]
+        edge = low.upper_edge_hz + shift
+        low_centre = low.lower_edge_hz + (edge - low.lower_edge_hz) / 2
+        start = edge + (high.lower_edge_hz - low.upper_edge_hz)
+        high_centre = start + (high.upper_edge_hz - start) / 2
+        lows = (
+            Carrier(c, low_centre, 0.0, 0.0)
+            for c in self.configs(low, low.config.allocated_bandwidth_hz + shift)
+        )
+        highs = (
+            Carrier(c, high_centre, 0.0, 0.0)
+            for c in self.configs(high, high.config.allocated_bandwidth_hz - shift)
+        )
+        first_high = next(highs, None)
+        if first_high is None:
+            return [], []
+        # each side's leakage is checked beside the other side's most valuable choice
+        picked_lows = self._first_within(
+            plan.carriers, lows, lambda a: {i: a, i + 1: first_high}, i
+        )
+        if not picked_lows:
+            return [], []
+        picked_highs = self._first_within(
+            plan.carriers,
+            itertools.chain([first_high], highs),
+            lambda b: {i: picked_lows[0], i + 1: b},
+            i + 1,
+        )
+        return picked_lows, picked_highs
+
+    def _first_within(
+        self,
+        carriers: Sequence[Carrier],
+        options: Iterable[Carrier],
+        changes: Callable[[Carrier], dict[int, Carrier]],
+        i: int,
+    ) -> list[Carrier]:
+        """The first :data:`CHOICES_PER_SIDE` of ``options`` that meet their leakage limits as
+        carrier ``i`` with ``changes`` made."""
+        out: list[Carrier] = []
+        for option in options:
+            if len(out) == CHOICES_PER_SIDE or self.late():
+                break
+            if self.leaks_within(carriers, changes(option), i):
+                out.append(option)
+        return out
+
+    def _shifts(self, low: Carrier, high: Carrier) -> Iterator[float]:
+        """Moves of the edge between two neighbours (Hz, up is positive): shares of what the
+        giving one could spare, in steps of two raster steps (centres stay on the raster)."""
+        step = 2.0 * self.problem.block.raster_hz
+        for giver, sign in ((high, 1.0), (low, -1.0)):
+            spare = giver.config.allocated_bandwidth_hz - self._narrowest(giver)
+            seen: set[float] = set()
+            for share in SHARES:
+                steps = int(spare * share / step + 1e-9)
+                if steps > 0 and steps not in seen:
+                    seen.add(steps)
+                    yield sign * steps * step
+
+    def _narrowest(self, carrier: Carrier) -> float:
+        """The least width (Hz) in which some configuration carries the demand's minimum
+        rate."""
+        demand = self.demands[carrier.demand_id]
+        if demand.id not in self.known:
+            self.known[demand.id] = self.families(demand)
+        widths = [
+            fam.config_at(fam.lo_half / fam.hi_half).allocated_bandwidth_hz
+            for fam in self.known[demand.id]
+        ]
+        return min(widths, default=carrier.config.allocated_bandwidth_hz)

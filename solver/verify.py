@@ -19,7 +19,7 @@ import bisect
 import functools
 import itertools
 import math
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, replace
 from enum import StrEnum
 from typing import Literal
@@ -37,6 +37,7 @@ __all__ = [
     "Verification",
     "Violation",
     "ViolationKind",
+    "meets_leakage_limits",
     "verify_change",
     "verify_plan",
 ]
@@ -231,9 +232,12 @@ class _LeakageRule:
         }
         return cls(problem, _obstacles(problem), limits)
 
-    def check(self, carriers: Sequence[Carrier], i: int) -> tuple[Carrier, list[Violation]]:
+    def check(
+        self, carriers: Sequence[Carrier], i: int, *, first_only: bool = False
+    ) -> tuple[Carrier, list[Violation]]:
         """Carrier ``i`` of ``carriers`` (sorted by centre) with its leakage ratios filled in,
-        and what it fails."""
+        and what it fails (only the first failure when ``first_only``, the ratios then
+        incomplete)."""
         c = carriers[i]
         found: list[Violation] = []
         ratios: dict[Side, float] = {"below": math.inf, "above": math.inf}
@@ -258,6 +262,8 @@ class _LeakageRule:
                             needed_db=limit,
                         )
                     )
+                    if first_only:
+                        return c, found
         carrier = replace(
             c, leakage_ratio_below_db=ratios["below"], leakage_ratio_above_db=ratios["above"]
         )
@@ -533,25 +539,37 @@ def verify_plan(problem: Problem, carriers: Sequence[Carrier]) -> Verification:
     return Verification(tuple(ordered), tuple(violations + leak + interf))
 
 
-def verify_change(problem: Problem, before: Verification, index: int, new: Carrier) -> Verification:
-    """:func:`verify_plan` of ``before``'s plan with its carrier ``index`` replaced by ``new``
-    at the same centre, computing only what the change can alter.
+def meets_leakage_limits(problem: Problem, carriers: Sequence[Carrier], index: int) -> bool:
+    """Whether carrier ``index`` of ``carriers`` (sorted by centre) passes the leakage checks
+    of :func:`verify_plan`: towards its neighbours and every block edge and exclusion."""
+    return not _LeakageRule.of(problem).check(carriers, index, first_only=True)[1]
+
+
+def verify_change(
+    problem: Problem, before: Verification, changes: Mapping[int, Carrier]
+) -> Verification:
+    """:func:`verify_plan` of ``before``'s plan with the carriers at the indices of ``changes``
+    replaced, computing only what the changes can alter.
 
     What a carrier's checks read is local: its placement and leakage ratios depend on its
     neighbours on either side, and its interference on the emitters that reach into its matched
-    filter.  So only the neighbours' placement and leakage, and the victims the old or the new
-    carrier reaches, are checked again; every other carrier keeps its figures and violations.
-    The result equals :func:`verify_plan` on the changed plan (a property test holds it to that).
+    filter.  So only the changed carriers' neighbours' placement and leakage, and the victims
+    an old or a new changed carrier reaches, are checked again; every other carrier keeps its
+    figures and violations.  A change that reorders the carriers is verified whole.  The
+    result equals :func:`verify_plan` on the changed plan (a property test holds it to that).
     """
-    old = before.carriers[index]
-    if new.center_hz != old.center_hz:
-        raise ValueError("verify_change keeps the carrier's centre; use verify_plan to move it")
     carriers = list(before.carriers)
-    carriers[index] = new
-    near = range(max(index - 1, 0), min(index + 2, len(carriers)))
+    for index, new in changes.items():
+        carriers[index] = new
+    if any(a.center_hz > b.center_hz for a, b in itertools.pairwise(carriers)):
+        return verify_plan(problem, carriers)
+    near = sorted({j for i in changes for j in range(i - 1, i + 2) if 0 <= j < len(carriers)})
     near_ids = {carriers[j].demand_id for j in near}
-    window = carriers[max(index - 2, 0) : index + 2]
-    placed = [v for v in _placement_violations(problem, window) if v.demand_id in near_ids]
+    placed: list[Violation] = []
+    for i in changes:
+        window = carriers[max(i - 2, 0) : i + 2]
+        placed += [v for v in _placement_violations(problem, window) if v.demand_id in near_ids]
+    placed = list(dict.fromkeys(placed))
     leak_rule = _LeakageRule.of(problem)
     leaks: list[Violation] = []
     for j in near:
@@ -560,11 +578,11 @@ def verify_change(problem: Problem, before: Verification, index: int, new: Carri
     rule = _InterferenceRule.of(problem)
     emitters = [rule.emitter(c) for c in carriers]
     by_centre = sorted(emitters, key=lambda e: e.carrier.center_hz)
-    changed = (emitters[index], rule.emitter(old))
+    changed = [emitters[i] for i in changes] + [rule.emitter(before.carriers[i]) for i in changes]
     heard: list[Violation] = []
     victims: set[str] = set()
     for j, victim in enumerate(emitters):
-        if j == index or any(rule.hears(victim, e) for e in changed):
+        if j in changes or any(rule.hears(victim, e) for e in changed):
             carriers[j], found = rule.check(victim, by_centre)
             heard += found
             victims.add(carriers[j].demand_id)
