@@ -41,7 +41,7 @@ from solver.physics import emission
 from solver.summary import with_guards
 from solver.verify import LEAKAGE_TOLERANCE_DB
 
-__all__ = ["BOUND_TOLERANCE", "Judgement", "judge"]
+__all__ = ["BOUND_TOLERANCE", "Judgement", "branches", "judge"]
 
 BOUND_TOLERANCE = 1e-4
 """A plan is optimal when its bound lies within this fraction of it (0.01 %)."""
@@ -88,7 +88,7 @@ def judge(
     items = _items(problem, segments, families)
     lengths = [FINE * s.length for s in segments]
     order = [weights[d.id] for d in problem.demands]
-    branch = integral_s if len(items) <= INTEGRAL_ITEMS else 0.0
+    branch = integral_s if len(items) <= INTEGRAL_ITEMS else 0.0  # see branches()
     proven = throughput_bound(items, lengths, order, admitted + 1, integral_s=branch) == -math.inf
     if problem.objective is Objective.MAX_THROUGHPUT:
         value = _throughput(problem, carriers)
@@ -109,6 +109,12 @@ def judge(
         gap = (bound - value) / max(abs(value), 0.1)
     status = SolveStatus.OPTIMAL if proven and closed else SolveStatus.FEASIBLE
     return Judgement(status, value, bound, gap, proven)
+
+
+def branches(families: Mapping[str, Sequence[Family]], segments: Sequence[Segment]) -> bool:
+    """Whether :func:`judge` may run the bound's mixed-integer version for these families
+    (at most :data:`INTEGRAL_ITEMS` columns, counting each family in every segment)."""
+    return sum(len(f) for f in families.values()) * max(len(segments), 1) <= INTEGRAL_ITEMS
 
 
 def _throughput(problem: Problem, carriers: Sequence[Carrier]) -> float:

@@ -34,7 +34,7 @@ from solver.geometry import (
     raster_units,
 )
 from solver.greedy import greedy_admission
-from solver.judge import INTEGRAL_S, Judgement, judge
+from solver.judge import INTEGRAL_S, Judgement, branches, judge
 from solver.model import (
     Carrier,
     Objective,
@@ -550,7 +550,7 @@ def _run(
     )
 
 
-UPGRADE_SHARE = 0.1
+UPGRADE_SHARE = 0.2
 """Share of a run's time kept, after the search, for giving verified carriers better
 configurations where they stand and the room that frees to their neighbours (:func:`_upgraded`)."""
 
@@ -665,7 +665,8 @@ def _pick_replan(problem: Problem, moved: _Outcome, stayed: _Outcome) -> _Outcom
 CLOSING_S_PER_DEMAND = 0.010
 """Time kept back per demand, from the search, for what follows it: the last verification,
 the bound and the summary (measured on 1,000 narrow carriers in one stretch: verification
-5.6–7.1 ms and the bound 1.3 ms per carrier on two cores, with a little to spare)."""
+5.6–7.1 ms and the bound 1.3 ms per carrier on two cores, with a little to spare).  When the
+bound's mixed-integer version will run, it gets :data:`~solver.judge.INTEGRAL_S` more."""
 
 
 @dataclass(frozen=True)
@@ -679,6 +680,12 @@ class _Clock:
     def start(cls, problem: Problem) -> _Clock:
         closing = min(0.6 * problem.time_limit_s, CLOSING_S_PER_DEMAND * len(problem.demands))
         return cls(time.perf_counter(), problem.time_limit_s - closing)
+
+    def keeping(self, problem: Problem, seconds: float) -> _Clock:
+        """The clock with ``seconds`` more kept back for closing (never more than 60 % of the
+        time limit in all)."""
+        floor = 0.4 * problem.time_limit_s
+        return replace(self, limit_s=max(min(self.limit_s, floor), self.limit_s - seconds))
 
     def elapsed(self) -> float:
         return time.perf_counter() - self.started
@@ -773,6 +780,8 @@ def solve(
         sets[d.id] = candidate_sets(problem, d)
     options = {d: kept for d, (kept, _) in sets.items()}
     tell.families = {d: bounding for d, (_, bounding) in sets.items()}
+    if branches(tell.families, tell.free):
+        clock = tell.clock = clock.keeping(problem, INTEGRAL_S)
     progress = tell.searching
     replanning = problem.retune_penalty > 0 and any(d.current is not None for d in problem.demands)
     stages = 2 if replanning else 1

@@ -9,9 +9,14 @@ passes verification (:func:`~solver.verify.verify_change`: exact, and local):
 
 * **a better configuration where it stands**: a carrier below its target takes the
   configuration of its demand that carries most in no more width, at its own centre;
+* **a gap narrowed**: a carrier below its target grows into the gap on one side of it (to a
+  neighbour, a block edge or an exclusion), in the configuration worth most at its new width;
 * **width passed to a neighbour**: two neighbours of one stretch move the edge between them
   (the gap between them moves with it, unchanged), each in the configuration worth most at its
   new width, when the pair then carries more.
+
+They are tried in that order, the cheaper and (measured on 200 demands) more productive per
+second first, so a short time limit gets the most of them.
 
 Admission never changes and nothing leaves its stretch.  Passes repeat until no change is
 kept (a change moves its neighbours' interference, so a later pass may find room an earlier
@@ -76,6 +81,10 @@ def upgrade(
         changed = False
         for i in local.below_target(current):
             better = local.best_in_place(current, i)
+            if better is not None:
+                current, changed = better, True
+        for i in local.below_target(current):
+            better = local.best_widening(current, i)
             if better is not None:
                 current, changed = better, True
         for i in local.pairs(current):
@@ -171,7 +180,7 @@ class _Local:
             new = Carrier(config, carrier.center_hz, 0.0, 0.0)
             if not self.leaks_within(plan.carriers, {i: new}, i):
                 continue
-            check = verify_change(self.problem, plan, {i: new})
+            check = verify_change(self.problem, plan, {i: new}, first_only=True)
             if check.passed:
                 return check
         return None
@@ -181,8 +190,9 @@ class _Local:
     ) -> bool:
         """Whether carrier ``i``, with ``changes`` made, meets its leakage limits (the cheap
         part of verification, checked before the whole)."""
-        trial = [changes.get(j, c) for j, c in enumerate(carriers)]
-        return meets_leakage_limits(self.problem, trial, i)
+        lo = max(i - 1, 0)  # the checks read only the neighbours (and the edges, exclusions)
+        trial = [changes.get(j, carriers[j]) for j in range(lo, min(i + 2, len(carriers)))]
+        return meets_leakage_limits(self.problem, trial, i - lo)
 
     def best_transfer(self, plan: Verification, i: int) -> Verification | None:
         """The plan with the edge between carriers ``i`` and ``i + 1`` moved (either way) where
@@ -199,7 +209,7 @@ class _Local:
         for _, a, b in sorted(trials, key=lambda t: -t[0]):
             if self.late():
                 return None
-            check = verify_change(self.problem, plan, {i: a, i + 1: b})
+            check = verify_change(self.problem, plan, {i: a, i + 1: b}, first_only=True)
             if check.passed:
                 return check
         return None
@@ -256,6 +266,51 @@ class _Local:
             if self.leaks_within(carriers, changes(option), i):
                 out.append(option)
         return out
+
+    def best_widening(self, plan: Verification, i: int) -> Verification | None:
+        """The plan with carrier ``i`` grown into the gap below or above it (its other edge
+        kept) in the configuration worth most that passes; None if none beats it."""
+        carrier = plan.carriers[i]
+        worth = self.value(carrier)
+        step = 2.0 * self.problem.block.raster_hz
+        trials = []
+        for side, gap in enumerate(self._gaps(plan.carriers, i)):
+            grown: set[int] = set()
+            for share in SHARES:
+                steps = int(gap * share / step + 1e-9)
+                if steps <= 0 or steps in grown:
+                    continue
+                grown.add(steps)
+                shift = steps * step / 2 * (1.0 if side else -1.0)
+                width = carrier.config.allocated_bandwidth_hz + steps * step
+                for config in itertools.islice(self.configs(carrier, width), CHOICES_PER_SIDE):
+                    if self.value(carrier, config) > worth * (1 + 1e-6):
+                        new = Carrier(config, carrier.center_hz + shift, 0.0, 0.0)
+                        trials.append((self.value(carrier, config), new))
+        near = [j for j in (i - 1, i + 1) if 0 <= j < len(plan.carriers)]
+        for _, new in sorted(trials, key=lambda t: -t[0]):
+            if self.late():
+                return None
+            if not all(self.leaks_within(plan.carriers, {i: new}, j) for j in [i, *near]):
+                continue
+            check = verify_change(self.problem, plan, {i: new}, first_only=True)
+            if check.passed:
+                return check
+        return None
+
+    def _gaps(self, carriers: Sequence[Carrier], i: int) -> tuple[float, float]:
+        """The free spectrum (Hz) below and above carrier ``i``, up to its neighbour or the
+        nearest block edge or exclusion."""
+        c, block = carriers[i], self.problem.block
+        below = [block.start_hz, *(x.stop_hz for x in block.exclusions)]
+        above = [block.stop_hz, *(x.start_hz for x in block.exclusions)]
+        if i > 0:
+            below.append(carriers[i - 1].upper_edge_hz)
+        if i + 1 < len(carriers):
+            above.append(carriers[i + 1].lower_edge_hz)
+        low = max((e for e in below if e <= c.lower_edge_hz + 1e-6), default=c.lower_edge_hz)
+        high = min((e for e in above if e >= c.upper_edge_hz - 1e-6), default=c.upper_edge_hz)
+        return max(0.0, c.lower_edge_hz - low), max(0.0, high - c.upper_edge_hz)
 
     def _shifts(self, low: Carrier, high: Carrier) -> Iterator[float]:
         """Moves of the edge between two neighbours (Hz, up is positive): shares of what the

@@ -19,7 +19,7 @@ import bisect
 import functools
 import itertools
 import math
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, replace
 from enum import StrEnum
 from typing import Literal
@@ -457,9 +457,8 @@ class _InterferenceRule:
 
     def hears(self, victim: _Emitter, other: _Emitter) -> bool:
         """Whether ``other``'s emission reaches into ``victim``'s matched filter at all."""
-        grid, _ = _response(victim.linear_key)
-        reach = float(np.max(np.abs(grid), initial=0.0)) * victim.carrier.config.symbol_rate_baud
-        return abs(other.carrier.center_hz - victim.carrier.center_hz) <= reach + other.reach_hz
+        offset = abs(other.carrier.center_hz - victim.carrier.center_hz)
+        return offset <= _hearing_hz(victim) + other.reach_hz
 
 
 NEIGHBOUR_SHARE_DB = 10.0 * math.log10(2.0)
@@ -546,7 +545,11 @@ def meets_leakage_limits(problem: Problem, carriers: Sequence[Carrier], index: i
 
 
 def verify_change(
-    problem: Problem, before: Verification, changes: Mapping[int, Carrier]
+    problem: Problem,
+    before: Verification,
+    changes: Mapping[int, Carrier],
+    *,
+    first_only: bool = False,
 ) -> Verification:
     """:func:`verify_plan` of ``before``'s plan with the carriers at the indices of ``changes``
     replaced, computing only what the changes can alter.
@@ -557,6 +560,10 @@ def verify_change(
     an old or a new changed carrier reaches, are checked again; every other carrier keeps its
     figures and violations.  A change that reorders the carriers is verified whole.  The
     result equals :func:`verify_plan` on the changed plan (a property test holds it to that).
+
+    With ``first_only`` it stops at the first violation (the changed carriers' own checks
+    first, then their victims nearest first): ``passed`` is still exact, but a failing result
+    lists one violation and leaves the figures part-filled.
     """
     carriers = list(before.carriers)
     for index, new in changes.items():
@@ -565,31 +572,100 @@ def verify_change(
         return verify_plan(problem, carriers)
     near = sorted({j for i in changes for j in range(i - 1, i + 2) if 0 <= j < len(carriers)})
     near_ids = {carriers[j].demand_id for j in near}
-    placed: list[Violation] = []
+    found: list[Violation] = []
     for i in changes:
         window = carriers[max(i - 2, 0) : i + 2]
-        placed += [v for v in _placement_violations(problem, window) if v.demand_id in near_ids]
-    placed = list(dict.fromkeys(placed))
+        found += [v for v in _placement_violations(problem, window) if v.demand_id in near_ids]
+    found = list(dict.fromkeys(found))
     leak_rule = _LeakageRule.of(problem)
-    leaks: list[Violation] = []
     for j in near:
-        carriers[j], found = leak_rule.check(carriers, j)
-        leaks += found
-    rule = _InterferenceRule.of(problem)
-    emitters = [rule.emitter(c) for c in carriers]
-    by_centre = sorted(emitters, key=lambda e: e.carrier.center_hz)
-    changed = [emitters[i] for i in changes] + [rule.emitter(before.carriers[i]) for i in changes]
-    heard: list[Violation] = []
+        if first_only and found:
+            return Verification(tuple(carriers), tuple(found[:1]))
+        carriers[j], leaks = leak_rule.check(carriers, j, first_only=first_only)
+        found += leaks
     victims: set[str] = set()
-    for j, victim in enumerate(emitters):
-        if j in changes or any(rule.hears(victim, e) for e in changed):
-            carriers[j], found = rule.check(victim, by_centre)
-            heard += found
-            victims.add(carriers[j].demand_id)
+    for j, heard in _interference_after(problem, before, carriers, changes):
+        carriers[j] = replace(
+            carriers[j],
+            c_over_i_db=heard.carrier.c_over_i_db,
+            margin_after_interference_db=heard.carrier.margin_after_interference_db,
+        )
+        victims.add(carriers[j].demand_id)
+        found += heard.violations
+        if first_only and found:
+            return Verification(tuple(carriers), tuple(found[:1]))
     kept = [
         v
         for v in before.violations
         if not (v.kind is ViolationKind.INTERFERENCE and v.demand_id in victims)
         and not (v.kind is not ViolationKind.INTERFERENCE and v.demand_id in near_ids)
     ]
-    return Verification(tuple(carriers), (*kept, *placed, *leaks, *heard))
+    return Verification(tuple(carriers), (*kept, *found))
+
+
+@dataclass(frozen=True)
+class _Heard:
+    carrier: Carrier
+    violations: list[Violation]
+
+
+def _interference_after(
+    problem: Problem,
+    before: Verification,
+    carriers: Sequence[Carrier],
+    changes: Mapping[int, Carrier],
+) -> Iterator[tuple[int, _Heard]]:
+    """Each victim of the changes (the changed carriers first, then those an old or a new
+    changed carrier reaches, nearest first) with its interference measured anew."""
+    rule = _InterferenceRule.of(problem)
+    base = _emitters_of(problem, before, rule)
+    emitters = list(base.emitters)
+    for i in changes:
+        emitters[i] = rule.emitter(carriers[i])
+    changed = [emitters[i] for i in changes] + [base.emitters[i] for i in changes]
+    reach = base.reach_hz + max(e.reach_hz for e in changed)
+    centres = base.centres
+    lo = bisect.bisect_left(centres, min(e.carrier.center_hz for e in changed) - reach)
+    hi = bisect.bisect_right(centres, max(e.carrier.center_hz for e in changed) + reach)
+    middle = sum(centres[i] for i in changes) / len(changes)
+    others = sorted(
+        (j for j in range(lo, hi) if j not in changes),
+        key=lambda j: abs(centres[j] - middle),
+    )
+    for j in [*changes, *others]:
+        victim = emitters[j]
+        if j in changes or any(rule.hears(victim, e) for e in changed):
+            carrier, violations = rule.check(victim, emitters)
+            yield j, _Heard(carrier, violations)
+
+
+@dataclass(frozen=True)
+class _PlanEmitters:
+    """A verified plan's emitters (in its order, which is by centre), their centres, and the
+    farthest any of them reaches or hears (Hz)."""
+
+    plan: Verification
+    emitters: list[_Emitter]
+    centres: list[float]
+    reach_hz: float
+
+
+_LAST_EMITTERS: list[_PlanEmitters] = []
+"""The emitters of the plan last passed to :func:`verify_change` (a search tries many changes
+against one plan)."""
+
+
+def _emitters_of(problem: Problem, plan: Verification, rule: _InterferenceRule) -> _PlanEmitters:
+    if _LAST_EMITTERS and _LAST_EMITTERS[0].plan is plan and rule.problem is problem:
+        return _LAST_EMITTERS[0]
+    emitters = [rule.emitter(c) for c in plan.carriers]
+    reach = max((e.reach_hz + _hearing_hz(e) for e in emitters), default=0.0)
+    found = _PlanEmitters(plan, emitters, [e.carrier.center_hz for e in emitters], reach)
+    _LAST_EMITTERS[:] = [found]
+    return found
+
+
+def _hearing_hz(victim: _Emitter) -> float:
+    """How far from its centre (Hz) a carrier's matched filter hears."""
+    grid, _ = _response(victim.linear_key)
+    return float(np.max(np.abs(grid), initial=0.0)) * victim.carrier.config.symbol_rate_baud

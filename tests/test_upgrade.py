@@ -175,8 +175,8 @@ def test_the_upgrade_gives_weak_carriers_better_configurations_and_widths() -> N
 def test_a_neighbour_with_width_to_spare_passes_it_to_a_carrier_below_target() -> None:
     # Two carriers side by side, both linear: a low-priority one far wider than its small
     # target needs, and a high-priority one far below its target.  The edge between them
-    # moves up until the wide one holds little more than its target, and the pair carries
-    # more; the gap between them stays as it was.
+    # moves up until the wide one holds little more than its target (and the gap may then
+    # narrow as far as verification allows), and the pair carries more.
     block = Block(start_hz=1.000e9, stop_hz=1.002e9, raster_hz=5e3)
     wide = Demand(id="wide", min_rate_bps=0.4e6, target_rate_bps=0.5e6, priority=1, esn0_db=20)
     keen = Demand(id="keen", min_rate_bps=0.4e6, target_rate_bps=8e6, priority=8, esn0_db=20)
@@ -190,7 +190,6 @@ def test_a_neighbour_with_width_to_spare_passes_it_to_a_carrier_below_target() -
     placed = [carrier(wide, 1.0001e9, 1.2e6), carrier(keen, 1.0014e9, 0.4e6)]
     start = verify_plan(problem, placed)
     assert start.passed
-    gap = placed[1].lower_edge_hz - placed[0].upper_edge_hz
 
     better = upgrade(problem, start, functools.partial(every_family, problem), (), math.inf)
 
@@ -199,7 +198,6 @@ def test_a_neighbour_with_width_to_spare_passes_it_to_a_carrier_below_target() -
     assert low.config.allocated_bandwidth_hz < 1.2e6 * 0.75
     assert low.config.throughput_bps >= wide.min_rate_bps
     assert _value(problem, better.carriers) > _value(problem, start.carriers) * 1.5
-    assert high.lower_edge_hz - low.upper_edge_hz >= gap - 1e-6
     assert verify_plan(problem, better.carriers).passed
 
 
