@@ -19,7 +19,7 @@ import bisect
 import functools
 import itertools
 import math
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, replace
 from enum import StrEnum
 from typing import Literal
@@ -207,10 +207,16 @@ def _leakage(problem: Problem, carriers: list[Carrier]) -> tuple[list[Carrier], 
     The ratio filled in on each side is the one towards whatever is nearest there.
     """
     rule = _LeakageRule.of(problem)
-    found: list[Violation] = []
+    return _collected(rule.check(carriers, i) for i in range(len(carriers)))
+
+
+def _collected(
+    checked: Iterable[tuple[Carrier, list[Violation]]],
+) -> tuple[list[Carrier], list[Violation]]:
+    """Each carrier with its figures filled in, and every violation, from per-carrier checks."""
     out: list[Carrier] = []
-    for i in range(len(carriers)):
-        carrier, violations = rule.check(carriers, i)
+    found: list[Violation] = []
+    for carrier, violations in checked:
         out.append(carrier)
         found += violations
     return out, found
@@ -398,13 +404,7 @@ def _interference(
     rule = _InterferenceRule.of(problem)
     emitters = [rule.emitter(c) for c in carriers]
     by_centre = sorted(emitters, key=lambda e: e.carrier.center_hz)
-    found: list[Violation] = []
-    out: list[Carrier] = []
-    for emitter in emitters:
-        carrier, violations = rule.check(emitter, by_centre)
-        out.append(carrier)
-        found += violations
-    return out, found
+    return _collected(rule.check(emitter, by_centre) for emitter in emitters)
 
 
 @dataclass(frozen=True)
