@@ -37,6 +37,7 @@ from solver.greedy import greedy_admission
 from solver.judge import INTEGRAL_S, Judgement, branches, judge
 from solver.model import (
     Carrier,
+    Demand,
     Objective,
     Plan,
     Problem,
@@ -74,7 +75,7 @@ from solver.summary import (
     summarise,
     with_guards,
 )
-from solver.upgrade import upgrade
+from solver.upgrade import mend, upgrade
 from solver.validation import validate_problem
 from solver.verify import PairCheck, Verification, verify_plan
 
@@ -91,6 +92,9 @@ log = logging.getLogger(__name__)
 
 MAX_LEVELS = 4
 """At most this many protection levels a segment may take."""
+
+MEND_SHARE = 0.3
+"""Share of the time left that mending a plan which failed verification may take."""
 
 MAX_REPAIR_ROUNDS = 6
 """Re-solves allowed after a failed verification before blamed carriers are left out."""
@@ -377,18 +381,26 @@ def _solve_and_verify(
     pinned: Sequence[Carrier],
     progress: Callable[[ProgressEvent], None] | None,
     cancel: threading.Event | None,
+    first_s: float | None = None,
 ) -> tuple[Verification, PackingResult, int, list[Unserved]]:
     """Solve, place, verify; cut and re-solve on failure; never return a failing plan.
 
-    The first solve gets 80 % of the time limit, each repair round half of what is left and
-    the previous round's choice as a hint.  A round that finds nothing in its time falls back
-    to the previous round's plan less the carriers to blame.
+    The first round (solve and placement) ends within ``first_s`` (the whole time limit if
+    None), its solve getting 80 % of that.  A plan that fails is first mended by local changes
+    of configuration and width (:func:`~solver.upgrade.mend`, in :data:`MEND_SHARE` of the
+    time left); failing that, each repair round solves again with stricter emission for the
+    carriers to blame, in half of what is left of the whole limit and with the previous
+    round's choice as a hint.  A round that finds nothing in its time falls back to the
+    previous round's plan less the carriers to blame.
     """
-    deadline = time.perf_counter() + problem.time_limit_s
+    started = time.perf_counter()
+    deadline = started + problem.time_limit_s
+    first_s = problem.time_limit_s if first_s is None else min(first_s, problem.time_limit_s)
     options = list(data.options)
     fixed = {p.demand_id for p in pinned}
+    families = functools.partial(every_family, problem)
     floors: dict[str, float] = {}
-    budget, hints = problem.time_limit_s * 0.8, data.hints
+    budget, hints = first_s * 0.8, data.hints
     previous: tuple[Verification, PackingResult] | None = None
     round_no = 0
     while True:
@@ -396,17 +408,24 @@ def _solve_and_verify(
         attempt = replace(data, options=options, time_limit_s=max(budget, 0.2), hints=hints)
         result = solve_packing(attempt, progress=progress, cancel=cancel)
         polish = cancel is None or not cancel.is_set()  # a cancelled solve skips the squeeze
-        arranged, rechosen = _arrange(problem, attempt, result, pinned, deadline, polish=polish)
+        ends = started + first_s if round_no == 1 else deadline
+        arranged, rechosen = _arrange(problem, attempt, result, pinned, ends, polish=polish)
         placed = to_carriers(problem, arranged)
         if not placed and previous is not None:
             check, dropped = drop_until_passing(problem, previous[0])
             return check, previous[1], round_no, dropped
         check = verify_plan(problem, [*pinned, *placed])
         if not check.passed and rechosen:  # the configurations as the model chose them
+            mended = _mended(problem, check, families, fixed, deadline)
+            if mended is not None:
+                return mended, result, round_no, []
             undo_rechoices(rechosen)
             check = verify_plan(problem, [*pinned, *to_carriers(problem, arranged)])
         if check.passed:
             return check, result, round_no, []
+        mended = _mended(problem, check, families, fixed, deadline)
+        if mended is not None:
+            return mended, result, round_no, []
         raised = _raise_floors(check, floors, fixed)
         log.info("verification round %d failed; stricter emission for %s", round_no, sorted(raised))
         left = deadline - time.perf_counter()
@@ -422,6 +441,22 @@ def _solve_and_verify(
         ]
         previous, hints = (check, result), _solution_hints(attempt, result, options)
         budget = left / 2
+
+
+def _mended(
+    problem: Problem,
+    failed: Verification,
+    families: Callable[[Demand], Sequence[Family]],
+    fixed: set[str],
+    deadline: float,
+) -> Verification | None:
+    """``failed`` mended by local changes (:func:`~solver.upgrade.mend`) in
+    :data:`MEND_SHARE` of the time left before ``deadline``; None if that does not pass."""
+    now = time.perf_counter()
+    mended = mend(problem, failed, families, fixed, now + MEND_SHARE * (deadline - now))
+    if mended is not None:
+        log.info("verification failed for %d carriers; mended", len(failed.violations))
+    return mended
 
 
 # ---------------------------------------------------------------- replans
@@ -528,8 +563,11 @@ def _run(
         problem, pinned, demands, started + GREEDY_SHARE * problem.time_limit_s, cancel
     )
     search_end = deadline - UPGRADE_SHARE * problem.time_limit_s
-    packing = replace(problem, time_limit_s=max(0.2, search_end - time.perf_counter()))
-    check, result, rounds, dropped = _solve_and_verify(packing, data, pinned, progress, cancel)
+    now = time.perf_counter()
+    packing = replace(problem, time_limit_s=max(0.2, deadline - now))
+    check, result, rounds, dropped = _solve_and_verify(
+        packing, data, pinned, progress, cancel, first_s=max(0.2, search_end - now)
+    )
     check, dropped = _at_least_greedy(
         problem, data, pinned, peer, check, dropped, search_end, cancel
     )
@@ -551,8 +589,9 @@ def _run(
 
 
 UPGRADE_SHARE = 0.2
-"""Share of a run's time kept, after the search, for giving verified carriers better
-configurations where they stand and the room that frees to their neighbours (:func:`_upgraded`)."""
+"""Share of a run's time kept, after the first search round, for giving verified carriers
+better configurations and widths (:func:`_upgraded`); repair rounds, when verification fails,
+may use it first."""
 
 
 def _upgraded(

@@ -21,6 +21,12 @@ second first, so a short time limit gets the most of them.
 Admission never changes and nothing leaves its stretch.  Passes repeat until no change is
 kept (a change moves its neighbours' interference, so a later pass may find room an earlier
 one did not) or the time is up.
+
+The same local changes also mend a plan that fails verification (:func:`mend`, any
+objective): for each violation in turn, the carrier to blame or its victim takes another
+configuration in its own width, or a narrower one at its centre, that clears the violation
+and adds none; the most valuable such change is kept.  That is cheaper, and loses less, than
+solving again with stricter emission or leaving carriers out.
 """
 
 from __future__ import annotations
@@ -34,10 +40,14 @@ from solver.model import Carrier, CarrierConfig, Demand, Objective, Problem
 from solver.packing.families import Family
 from solver.verify import Verification, meets_leakage_limits, verify_change
 
-__all__ = ["upgrade"]
+__all__ = ["mend", "upgrade"]
 
 CHOICES_PER_SIDE = 3
 """Configurations tried per carrier of a pair at its new width, the most valuable first."""
+
+SLIDE_LIMIT = 3
+"""Carriers that may slide to bring a gap beyond them to a carrier below target (each slid
+carrier makes the change's verification reach further)."""
 
 SHARES = (1.0, 0.5, 0.25, 0.125)
 """Shares of the width a carrier could give up that a pair tries moving, largest first."""
@@ -91,6 +101,46 @@ def upgrade(
             better = local.best_transfer(current, i)
             if better is not None:
                 current, changed = better, True
+    return current
+
+
+MEND_CHOICES = 6
+"""Configurations tried per carrier and width when mending a violation, most valuable first
+among those that meet their own leakage limits."""
+
+
+def mend(
+    problem: Problem,
+    failed: Verification,
+    families: Families,
+    keep: Collection[str],
+    deadline: float,
+) -> Verification | None:
+    """``failed``'s plan changed, one carrier at a time, until it passes verification; None
+    when some violation has no local change that clears it (or the time is up).
+
+    Parameters
+    ----------
+    problem : Problem
+        The request.
+    failed : Verification
+        A plan's verification (passing plans come back as they are).
+    families : callable
+        A demand's configurations to choose from.
+    keep : collection of str
+        Demands whose carriers must not change.
+    deadline : float
+        ``time.perf_counter()`` value at which to give up.
+    """
+    local = _Local(problem, families, keep, deadline)
+    current = failed
+    while not current.passed:
+        if local.late():
+            return None
+        better = local.best_fix(current)
+        if better is None:
+            return None
+        current = better
     return current
 
 
@@ -268,49 +318,108 @@ class _Local:
         return out
 
     def best_widening(self, plan: Verification, i: int) -> Verification | None:
-        """The plan with carrier ``i`` grown into the gap below or above it (its other edge
-        kept) in the configuration worth most that passes; None if none beats it."""
+        """The plan with carrier ``i`` grown into a gap below or above it (its other edge
+        kept) in the configuration worth most that passes; None if none beats it.  The gap
+        may lie beyond other carriers of its stretch, which then slide towards it by as much."""
         carrier = plan.carriers[i]
         worth = self.value(carrier)
         step = 2.0 * self.problem.block.raster_hz
         trials = []
-        for side, gap in enumerate(self._gaps(plan.carriers, i)):
-            grown: set[int] = set()
-            for share in SHARES:
-                steps = int(gap * share / step + 1e-9)
-                if steps <= 0 or steps in grown:
-                    continue
-                grown.add(steps)
-                shift = steps * step / 2 * (1.0 if side else -1.0)
-                width = carrier.config.allocated_bandwidth_hz + steps * step
-                for config in itertools.islice(self.configs(carrier, width), CHOICES_PER_SIDE):
-                    if self.value(carrier, config) > worth * (1 + 1e-6):
-                        new = Carrier(config, carrier.center_hz + shift, 0.0, 0.0)
-                        trials.append((self.value(carrier, config), new))
-        near = [j for j in (i - 1, i + 1) if 0 <= j < len(plan.carriers)]
-        for _, new in sorted(trials, key=lambda t: -t[0]):
+        for sign in (-1.0, 1.0):
+            for gap, slid in self._room(plan.carriers, i, sign):
+                for steps in _steps(gap, step):
+                    width = carrier.config.allocated_bandwidth_hz + steps * step
+                    moved = {j: _slid(plan.carriers[j], sign * steps * step) for j in slid}
+                    centre = carrier.center_hz + sign * steps * step / 2
+                    for config in itertools.islice(self.configs(carrier, width), CHOICES_PER_SIDE):
+                        value = self.value(carrier, config)
+                        if value > worth * (1 + 1e-6):
+                            new = Carrier(config, centre, 0.0, 0.0)
+                            trials.append((value, -len(slid), {**moved, i: new}))
+        for _, _, changes in sorted(trials, key=lambda t: (-t[0], -t[1])):
             if self.late():
                 return None
-            if not all(self.leaks_within(plan.carriers, {i: new}, j) for j in [i, *near]):
+            if not self.leaks_within(plan.carriers, changes, i):
                 continue
-            check = verify_change(self.problem, plan, {i: new}, first_only=True)
+            check = verify_change(self.problem, plan, changes, first_only=True)
             if check.passed:
                 return check
         return None
 
-    def _gaps(self, carriers: Sequence[Carrier], i: int) -> tuple[float, float]:
-        """The free spectrum (Hz) below and above carrier ``i``, up to its neighbour or the
-        nearest block edge or exclusion."""
-        c, block = carriers[i], self.problem.block
-        below = [block.start_hz, *(x.stop_hz for x in block.exclusions)]
-        above = [block.stop_hz, *(x.start_hz for x in block.exclusions)]
-        if i > 0:
-            below.append(carriers[i - 1].upper_edge_hz)
-        if i + 1 < len(carriers):
-            above.append(carriers[i + 1].lower_edge_hz)
-        low = max((e for e in below if e <= c.lower_edge_hz + 1e-6), default=c.lower_edge_hz)
-        high = min((e for e in above if e >= c.upper_edge_hz - 1e-6), default=c.upper_edge_hz)
-        return max(0.0, c.lower_edge_hz - low), max(0.0, high - c.upper_edge_hz)
+    def _room(
+        self, carriers: Sequence[Carrier], i: int, sign: float
+    ) -> Iterator[tuple[float, list[int]]]:
+        """Gaps (Hz) below (``sign`` -1) or above (+1) carrier ``i`` in its stretch, nearest
+        first, each with the carriers between it and ``i`` (which would slide into it); up to
+        a block edge, an exclusion or a carrier that must stay."""
+        slid: list[int] = []
+        j = i
+        while True:
+            k = j + int(sign)
+            edge = carriers[j].lower_edge_hz if sign < 0 else carriers[j].upper_edge_hz
+            wall = self._wall(edge, sign)
+            inside = 0 <= k < len(carriers) and abs(_facing(carriers[k], sign) - edge) < abs(
+                wall - edge
+            )
+            if not inside:
+                yield abs(wall - edge), list(slid)
+                return
+            yield abs(_facing(carriers[k], sign) - edge), list(slid)
+            if carriers[k].demand_id in self.keep or len(slid) == SLIDE_LIMIT:
+                return
+            slid.append(k)
+            j = k
+
+    def _wall(self, edge_hz: float, sign: float) -> float:
+        """The nearest block edge or exclusion beyond ``edge_hz`` in direction ``sign``."""
+        block = self.problem.block
+        if sign < 0:
+            walls = [block.start_hz, *(x.stop_hz for x in block.exclusions)]
+            return max((w for w in walls if w <= edge_hz + 1e-6), default=block.start_hz)
+        walls = [block.stop_hz, *(x.start_hz for x in block.exclusions)]
+        return min((w for w in walls if w >= edge_hz - 1e-6), default=block.stop_hz)
+
+    def best_fix(self, plan: Verification) -> Verification | None:
+        """The plan with the most valuable single change that clears its first violation
+        and adds none; None if no change does."""
+        violation = plan.violations[0]
+        index = {c.demand_id: i for i, c in enumerate(plan.carriers)}
+        blamed = [violation.demand_id, violation.culprit]
+        trials = []
+        for demand_id in dict.fromkeys(b for b in blamed if b is not None):
+            if demand_id in self.keep or demand_id not in index:
+                continue
+            for new in self._fixes(plan.carriers, index[demand_id]):
+                trials.append((self.value(new), index[demand_id], new))
+        count = len(plan.violations)
+        for _, i, new in sorted(trials, key=lambda t: -t[0]):
+            if self.late():
+                return None
+            check = verify_change(self.problem, plan, {i: new})
+            still = {(v.kind, v.demand_id) for v in check.violations}
+            if len(check.violations) < count and (violation.kind, violation.demand_id) not in still:
+                return check
+        return None
+
+    def _fixes(self, carriers: Sequence[Carrier], i: int) -> Iterator[Carrier]:
+        """Carrier ``i`` in other configurations at its centre: in its own width and in
+        narrower ones (by shares of what it could give up), each meeting its own leakage
+        limits there."""
+        carrier = carriers[i]
+        step = 2.0 * self.problem.block.raster_hz
+        spare = carrier.config.allocated_bandwidth_hz - self._narrowest(carrier)
+        for steps in [0, *_steps(spare, step)]:
+            width = carrier.config.allocated_bandwidth_hz - steps * step
+            found = 0
+            for config in self.configs(carrier, width):
+                if found == MEND_CHOICES or self.late():
+                    break
+                if config == carrier.config:
+                    continue
+                new = Carrier(config, carrier.center_hz, 0.0, 0.0)
+                if self.leaks_within(carriers, {i: new}, i):
+                    found += 1
+                    yield new
 
     def _shifts(self, low: Carrier, high: Carrier) -> Iterator[float]:
         """Moves of the edge between two neighbours (Hz, up is positive): shares of what the
@@ -318,12 +427,8 @@ class _Local:
         step = 2.0 * self.problem.block.raster_hz
         for giver, sign in ((high, 1.0), (low, -1.0)):
             spare = giver.config.allocated_bandwidth_hz - self._narrowest(giver)
-            seen: set[float] = set()
-            for share in SHARES:
-                steps = int(spare * share / step + 1e-9)
-                if steps > 0 and steps not in seen:
-                    seen.add(steps)
-                    yield sign * steps * step
+            for steps in _steps(spare, step):
+                yield sign * steps * step
 
     def _narrowest(self, carrier: Carrier) -> float:
         """The least width (Hz) in which some configuration carries the demand's minimum
@@ -336,3 +441,23 @@ class _Local:
             for fam in self.known[demand.id]
         ]
         return min(widths, default=carrier.config.allocated_bandwidth_hz)
+
+
+def _steps(gap_hz: float, step_hz: float) -> list[int]:
+    """Whole ``step_hz`` steps worth trying in a gap: shares of it, largest first."""
+    out: list[int] = []
+    for share in SHARES:
+        steps = int(gap_hz * share / step_hz + 1e-9)
+        if steps > 0 and steps not in out:
+            out.append(steps)
+    return out
+
+
+def _slid(carrier: Carrier, shift_hz: float) -> Carrier:
+    return Carrier(carrier.config, carrier.center_hz + shift_hz, 0.0, 0.0)
+
+
+def _facing(carrier: Carrier, sign: float) -> float:
+    """The edge of ``carrier`` that faces a carrier on its ``-sign`` side (its upper edge when
+    it lies below, ``sign`` -1)."""
+    return carrier.upper_edge_hz if sign < 0 else carrier.lower_edge_hz

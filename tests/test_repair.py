@@ -117,8 +117,10 @@ def test_after_a_failed_repair_round_the_last_plan_less_the_culprit_is_kept(
     """First round: the highest carrier is pushed against the block edge, where it leaks more
     than the 45 dB edge limit allows (a culprit, so the planner widens its guard and solves
     again).  Second round: the stage finds nothing.  The planner must fall back to the first
-    round's plan less the culprit."""
+    round's plan less the culprit.  Mending by local changes (next test) is switched off, so
+    that the re-solve path runs."""
     calls: list[str] = []
+    monkeypatch.setattr(planner_module, "_mended", lambda *args: None)
 
     def edge_then_nothing(problem: Problem, arrangement: Arrangement) -> tuple[Carrier, ...]:
         carriers = to_carriers(problem, arrangement)
@@ -146,6 +148,49 @@ def test_after_a_failed_repair_round_the_last_plan_less_the_culprit_is_kept(
     assert plan.stats.verification_rounds == 2
     assert any(n.startswith("Verification needed 2 rounds") for n in plan.notices)
     assert _named_as_dropped(plan) == {victim}
+
+
+def _against_the_edge(problem: Problem, arrangement: Arrangement) -> tuple[Carrier, ...]:
+    carriers = to_carriers(problem, arrangement)
+    victim = _highest(carriers)
+    half_width = victim.config.allocated_bandwidth_hz / 2
+    return _moved(carriers, victim, problem.block.stop_hz - half_width)  # gap 0 to the edge
+
+
+def test_a_plan_that_fails_is_mended_in_place_before_any_carrier_is_left_out(
+    monkeypatch: pytest.MonkeyPatch,
+) -> None:
+    """The carrier pushed against the block edge leaks more than the edge limit allows; a
+    narrower carrier at the same centre (or another roll-off) keeps its edge guard, so the
+    plan is mended by that one local change: everyone stays served, in one round, with no
+    notice of anything left out, and the plan passes an independent verification."""
+    pushed = verify_plan(PROBLEM, _against_the_edge(PROBLEM, _placed_once()))
+    assert any(v.kind is ViolationKind.EDGE_LEAKAGE for v in pushed.violations)
+    monkeypatch.setattr(planner_module, "to_carriers", _against_the_edge)
+    _without_greedy_peer(monkeypatch)
+
+    plan = solve(PROBLEM)
+
+    assert verify_plan(PROBLEM, plan.carriers).passed
+    assert {c.demand_id for c in plan.carriers} == {"low", "mid", "top"}
+    assert plan.stats.verification_rounds == 1
+    assert _named_as_dropped(plan) == set()
+    highest = _highest(plan.carriers)
+    assert highest.upper_edge_hz < BLOCK.stop_hz  # it no longer touches the edge
+
+
+def _placed_once() -> Arrangement:
+    """The arrangement the planner places on its first round (captured from a plain solve)."""
+    seen: list[Arrangement] = []
+
+    def capture(problem: Problem, arrangement: Arrangement) -> tuple[Carrier, ...]:
+        seen.append(arrangement)
+        return to_carriers(problem, arrangement)
+
+    with pytest.MonkeyPatch.context() as patch:
+        patch.setattr(planner_module, "to_carriers", capture)
+        solve(PROBLEM)
+    return seen[0]
 
 
 def test_the_hand_method_leaves_out_what_fails_and_says_so() -> None:

@@ -31,7 +31,7 @@ from solver import (
 )
 from solver.candidates import every_family
 from solver.model import Carrier
-from solver.upgrade import upgrade
+from solver.upgrade import mend, upgrade
 from solver.verify import Verification, verify_change
 
 BLOCK = Block(
@@ -234,3 +234,32 @@ def test_after_the_upgrade_no_carrier_could_take_a_better_configuration_where_it
             new = Carrier(config, c.center_hz, 0.0, 0.0)
             trial = [*check.carriers[:i], new, *check.carriers[i + 1 :]]
             assert not verify_plan(problem, trial).passed, (c.demand_id, config)
+
+
+def test_mending_clears_violations_by_local_changes_and_keeps_everyone() -> None:
+    # Each carrier in turn is put in its demand's most valuable configuration in its own
+    # width; where that fails verification, mend must find a plan that passes (whole-plan
+    # verifier) with the same carriers at the same centres.
+    problem, check = _planned()
+    families = functools.partial(every_family, problem)
+    failures = 0
+    for i, c in enumerate(check.carriers):
+        demand = next(d for d in problem.demands if d.id == c.demand_id)
+        width = c.config.allocated_bandwidth_hz
+        best = max(
+            (
+                f.config_at(min(1.0, width / f.top.config.allocated_bandwidth_hz))
+                for f in families(demand)
+            ),
+            key=lambda x: min(x.throughput_bps, demand.target_rate_bps) * 1e3 - x.required_esn0_db,
+        )
+        broken = verify_change(problem, check, {i: Carrier(best, c.center_hz, 0.0, 0.0)})
+        if broken.passed:
+            continue
+        failures += 1
+        mended = mend(problem, broken, families, (), math.inf)
+        assert mended is not None
+        assert verify_plan(problem, mended.carriers).passed
+        assert [m.demand_id for m in mended.carriers] == [b.demand_id for b in broken.carriers]
+        assert [m.center_hz for m in mended.carriers] == [b.center_hz for b in broken.carriers]
+    assert failures > 0, "some most valuable configuration fails here, or the test proves nothing"
