@@ -20,7 +20,7 @@ from __future__ import annotations
 import functools
 import math
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from typing import NamedTuple
 
 import numpy as np
@@ -55,7 +55,6 @@ __all__ = [
     "every_family",
     "family_for",
     "family_up_to_target",
-    "least_symbol_rates",
     "least_width_hz",
     "narrowest_at_min_rate",
 ]
@@ -778,25 +777,6 @@ def least_width_hz(problem: Problem, demand: Demand) -> float:
     closes = rs_min <= _max_symbol_rate_baud(demand, combos.required_esn0_db) * (1 + 1e-12)
     widths = np.where(closes, rs_min * (1 + combos.rolloff), np.inf)
     return float(widths.min(initial=np.inf))
-
-
-def least_symbol_rates(problem: Problem, demand: Demand) -> dict[emission.EmissionKey, float]:
-    """Per spectrum a carrier of ``demand`` may have, the least symbol rate at which one
-    carries the minimum rate with the clear-sky margin verification asks of every carrier
-    (the demand's margin less the interference allowance: its margin after interference can
-    be no more).  A spectrum no configuration reaches that way is left out.
-
-    Dominated catalogue entries are not looked at: an entry that beats one on efficiency and
-    threshold, with the same spectrum, reaches the minimum rate at no higher symbol rate."""
-    combos = _combos(problem.coding, problem.transmitter, tuple(demand.modulations))
-    rs_min = demand.min_rate_bps / combos.net_bits_per_symbol
-    relaxed = replace(demand, margin_db=demand.margin_db - INTERFERENCE_ALLOWANCE_DB)
-    closes = rs_min <= _max_symbol_rate_baud(relaxed, combos.required_esn0_db) * (1 + 1e-9)
-    least: dict[emission.EmissionKey, float] = {}
-    for i in np.flatnonzero(closes):
-        key = combos.keys[int(i)]
-        least[key] = min(least.get(key, math.inf), float(rs_min[i]))
-    return least
 
 
 def best_margin_db(problem: Problem, demand: Demand, max_width_hz: float) -> float:

@@ -6,10 +6,9 @@ other positions), or an "optimal" plan could be beaten.  So it leaves out everyt
 verifier does not demand of *every* plan:
 
 * carriers need no more spacing between them than their own leakage guards (the verifier's
-  interference rule can let two neighbours closer than their spectral masks suggest), or than
-  the interference rule asks of each towards the quietest neighbour any other demand could
-  place beside it (:mod:`solver.quiet`), and each keeps its own guard towards a block edge or
-  an exclusion, which the verifier always checks;
+  interference rule can let two neighbours closer than their spectral masks suggest), and
+  each keeps its own guard towards a block edge or an exclusion, which the verifier always
+  checks;
 * pinned carriers and carriers kept in place by a replan may sit anywhere;
 * every configuration that closes its link counts, pruned only where another carries more
   per unit of width and needs no more towards an edge (:func:`bound_candidates`).
@@ -31,7 +30,7 @@ import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
-from solver.candidates import best_margin_db, least_symbol_rates, least_width_hz
+from solver.candidates import best_margin_db, least_width_hz
 from solver.geometry import free_segments_hz
 from solver.model import Carrier, Demand, Objective, Problem, SolveStatus
 from solver.packing import Segment, admission_weights
@@ -39,8 +38,6 @@ from solver.packing.arrangement import FINE, fine_slot
 from solver.packing.families import Family
 from solver.packing.spacing import BoundItem, Slot, throughput_bound
 from solver.physics import emission
-from solver.physics.emission import Side
-from solver.quiet import QuietEnvelope, envelopes, spacing_per_half
 from solver.summary import with_guards
 from solver.verify import LEAKAGE_TOLERANCE_DB
 
@@ -132,38 +129,34 @@ def _throughput(problem: Problem, carriers: Sequence[Carrier]) -> float:
 def _items(
     problem: Problem, segments: Sequence[Segment], families: Mapping[str, Sequence[Family]]
 ) -> list[BoundItem]:
-    """Relaxation columns: each demand's families in each stretch they fit (remembered for
-    the same problem, stretches and families, which a run judges again and again).
+    """Relaxation columns: each demand's families in each stretch they fit.
 
     Verification holds every carrier's leakage ratio towards its neighbour at the gap between
     them (measured in a band of the carrier's own width, whatever the neighbour), so a gap is
     at least the larger of the two carriers' leakage guards, and so at least their mean ``a``;
     towards a block edge or exclusion each keeps its edge guard ``e``.  Both are taken on the
-    kinder side and at the verifier's tolerance below the limit.  A second row counts each side
-    apart: the gap is also at least what the interference rule asks of each carrier towards
-    the quietest neighbour it can have (:mod:`solver.quiet`).
+    kinder side and at the verifier's tolerance below the limit.
     """
-    if _LAST_ITEMS and _LAST_ITEMS[0][:3] == (id(problem), id(segments), id(families)):
-        return _LAST_ITEMS[0][4]
-    quiet = envelopes(problem, {d.id: least_symbol_rates(problem, d) for d in problem.demands})
     items = []
     for d, demand in enumerate(problem.demands):
         for family in families.get(demand.id, ()):
             slot = _span(fine_slot(family, demand, demand.priority), family, demand)
-            terms = _terms(problem, demand, slot, quiet[demand.id])
+            fam = slot.family
+            per_half = fam.top.config.symbol_rate_baud / fam.hi_half / fam.raster_hz
+            leak = _least_guard_per_baud(fam, problem.leakage_limit_db) * per_half
+            edge = _least_guard_per_baud(fam, problem.edge_limit_db) * per_half
+            leak = 0.0 if math.isinf(leak) else leak  # alone in its reach: no neighbour gap
             for s, seg in enumerate(segments):
                 if 2 * slot.lo_half > FINE * seg.length:
                     continue
-                edged = (seg.left_wall.family, seg.right_wall.family) == (None, None)
-                items.append(terms.item(d, s, slot, edged))
-    _LAST_ITEMS[:] = [
-        (id(problem), id(segments), id(families), (problem, segments, families), items)
-    ]
+                walls = (seg.left_wall.family, seg.right_wall.family)
+                end = edge - leak / 2 if walls == (None, None) else -leak / 2
+                items.append(
+                    BoundItem(
+                        d, s, slot.lo_half, slot.hi_half, slot.value_per_half, 2.0 + leak, end
+                    )
+                )
     return items
-
-
-_LAST_ITEMS: list[tuple[int, int, int, object, list[BoundItem]]] = []
-"""The items last built, with what they were built from (kept alive, so the ids stay theirs)."""
 
 
 @dataclass(frozen=True)
@@ -190,58 +183,14 @@ def _span(slot: Slot, family: Family, demand: Demand) -> _Span:
     return _Span(fam, min(float(slot.lo_half), least), top, slot.value_per_half)
 
 
-@dataclass(frozen=True)
-class _Terms:
-    """One family's spacing per half-width unit on its grid: the smaller leakage guard, the
-    edge guard, and each side's gap (the larger of its leakage guard and interference's)."""
-
-    leak: float
-    edge: float
-    below: float
-    above: float
-
-    def item(self, owner: int, stretch: int, slot: _Span, edged: bool) -> BoundItem:
-        wall = self.edge if edged else 0.0
-        wider = max(self.below, self.above)
-        return BoundItem(
-            owner,
-            stretch,
-            slot.lo_half,
-            slot.hi_half,
-            slot.value_per_half,
-            2.0 + self.leak,
-            wall - self.leak / 2,
-            2.0 + (self.below + self.above) / 2,
-            wall - wider / 2,
-        )
-
-
-def _terms(problem: Problem, demand: Demand, slot: _Span, quiet: QuietEnvelope) -> _Terms:
-    fam = slot.family
-    per_half = fam.top.config.symbol_rate_baud / fam.hi_half / fam.raster_hz
-    at = problem.leakage_limit_db - LEAKAGE_TOLERANCE_DB
-    sides = [_guard_per_baud(fam, at, side) * per_half for side in ("below", "above")]
-    leak = min(sides)
-    leak = 0.0 if math.isinf(leak) else leak  # alone in its reach: no neighbour gap
-    edge = _least_guard_per_baud(fam, problem.edge_limit_db) * per_half
-    level = 10.0 ** (demand.relative_level_db / 10.0)
-    heard = spacing_per_half(fam, demand, quiet, level, slot.hi_half)
-    # a side whose leakage guard no gap meets has no neighbour: interference alone counts
-    below, above = (h if math.isinf(g) else max(g, h) for g, h in zip(sides, heard, strict=True))
-    return _Terms(leak, edge, below, above)
-
-
-def _guard_per_baud(family: Family, at_db: float, side: Side) -> float:
-    if family.key is None:
-        return 0.0
-    return emission.get_profile(family.key).guard_needed(at_db, side)
-
-
 def _least_guard_per_baud(family: Family, limit_db: float) -> float:
     """The smaller of a family's two one-sided guards (symbol-rate units) for ``limit_db``,
     at the verifier's tolerance below it (0 for a family without a spectrum profile)."""
+    if family.key is None:
+        return 0.0
+    profile = emission.get_profile(family.key)
     at = limit_db - LEAKAGE_TOLERANCE_DB
-    return min(_guard_per_baud(family, at, "below"), _guard_per_baud(family, at, "above"))
+    return min(profile.guard_needed(at, "below"), profile.guard_needed(at, "above"))
 
 
 def _served_per_priority(problem: Problem, served: Sequence[str]) -> dict[int, int]:

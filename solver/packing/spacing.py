@@ -582,11 +582,6 @@ class BoundItem:
     its width (2): its leakage guard or its skirt below the least sensitive neighbour's level."""
     end_per_half: float = 0.0
     """Raster units per half-width unit of the guard towards a wall, less half the above."""
-    spaced_per_half: float = 0.0
-    """As ``need_per_half``, with each side's gap counted separately (the larger of its
-    leakage guard and the spacing interference asks of it there); 0 for no such row."""
-    spaced_end_per_half: float = 0.0
-    """As ``end_per_half`` for ``spaced_per_half``: the wall guard less half the larger side."""
 
 
 class _Rows:
@@ -624,32 +619,16 @@ def _bound_rows(
     weighted = [(j, float(weights[it.owner])) for j, it in enumerate(items)]
     rows.add(weighted, float(admitted), math.inf)
     for s, length in enumerate(lengths):
-        mine = [items[j] for j, it in enumerate(items) if it.stretch == s]
-        cols = [n + j for j, it in enumerate(items) if it.stretch == s]
+        mine = [j for j, it in enumerate(items) if it.stretch == s]
         if mine:
-            _capacity_row(
-                rows, cols, [(it.need_per_half, it.end_per_half) for it in mine], mine, length
+            ends = min(
+                items[j].end_per_half
+                * (items[j].lo_half if items[j].end_per_half >= 0 else items[j].hi_half)
+                for j in mine
             )
-        if any(it.spaced_per_half > 0 for it in mine):
-            terms = [(it.spaced_per_half, it.spaced_end_per_half) for it in mine]
-            _capacity_row(rows, cols, terms, mine, length)
+            need = [(n + j, items[j].need_per_half) for j in mine]
+            rows.add(need, -math.inf, length - 2 * ends)
     return rows
-
-
-def _capacity_row(
-    rows: _Rows,
-    cols: Sequence[int],
-    terms: Sequence[tuple[float, float]],
-    items: Sequence[BoundItem],
-    length: int,
-) -> None:
-    """Σ need·h ≤ length − 2·(the least end term over the items, at its least half-width)."""
-    ends = min(
-        end * (it.lo_half if end >= 0 else it.hi_half)
-        for (_, end), it in zip(terms, items, strict=True)
-    )
-    need = [(c, need) for c, (need, _) in zip(cols, terms, strict=True)]
-    rows.add(need, -math.inf, length - 2 * ends)
 
 
 def throughput_bound(
@@ -668,8 +647,6 @@ def throughput_bound(
     ``end_per_half`` (a guard towards an edge less half the spacing already counted).  A
     stretch's ends add at least twice the smallest such term over its items, at the
     half-width that makes it smallest, so a stretch holds Σ need·h ≤ length − 2·min end·h.
-    Items with ``spaced_per_half`` add a second such row per stretch with that need and
-    ``spaced_end_per_half`` (each row holds by itself).
     Returns ``-inf`` when the rows cannot serve ``admitted``.
 
     With ``integral_s`` > 0 each item is taken whole or not at all (every carrier has one
