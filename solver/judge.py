@@ -32,11 +32,11 @@ from dataclasses import dataclass
 
 from solver.candidates import best_margin_db, least_width_hz
 from solver.geometry import free_segments_hz
-from solver.model import Carrier, Objective, Problem, SolveStatus
+from solver.model import Carrier, Demand, Objective, Problem, SolveStatus
 from solver.packing import Segment, admission_weights
 from solver.packing.arrangement import FINE, fine_slot
 from solver.packing.families import Family
-from solver.packing.spacing import BoundItem, throughput_bound
+from solver.packing.spacing import BoundItem, Slot, throughput_bound
 from solver.physics import emission
 from solver.summary import with_guards
 from solver.verify import LEAKAGE_TOLERANCE_DB
@@ -140,7 +140,7 @@ def _items(
     items = []
     for d, demand in enumerate(problem.demands):
         for family in families.get(demand.id, ()):
-            slot = fine_slot(family, demand, demand.priority)
+            slot = _span(fine_slot(family, demand, demand.priority), family, demand)
             fam = slot.family
             per_half = fam.top.config.symbol_rate_baud / fam.hi_half / fam.raster_hz
             leak = _least_guard_per_baud(fam, problem.leakage_limit_db) * per_half
@@ -157,6 +157,30 @@ def _items(
                     )
                 )
     return items
+
+
+@dataclass(frozen=True)
+class _Span:
+    """A family on the fine grid with the half-widths a carrier of it can really take: from the
+    one that carries the demand's minimum rate exactly to the one that carries the family's
+    top exactly (the link's limit or the target), neither rounded to the grid; and its value
+    per half-width unit."""
+
+    family: Family
+    lo_half: float
+    hi_half: float
+    value_per_half: float
+
+
+def _span(slot: Slot, family: Family, demand: Demand) -> _Span:
+    """``slot`` (``family`` on the fine grid) widened to every half-width a carrier of the
+    family can take: the fine grid rounds the least width up, and a power-limited family's
+    widest down to the last grid step that keeps the margin, while a carrier's symbol rate
+    need not fill a grid step."""
+    fam = slot.family
+    top = max(float(slot.hi_half), family.top.config.allocated_bandwidth_hz / 2 / fam.raster_hz)
+    least = demand.min_rate_bps / fam.throughput_per_half_bps
+    return _Span(fam, min(float(slot.lo_half), least), top, slot.value_per_half)
 
 
 def _least_guard_per_baud(family: Family, limit_db: float) -> float:

@@ -574,8 +574,8 @@ class BoundItem:
 
     owner: int
     stretch: int
-    lo_half: int
-    hi_half: int
+    lo_half: float
+    hi_half: float
     value_per_half: float
     need_per_half: float
     """Raster units per half-width unit that no gap next to this carrier can fall below, plus
