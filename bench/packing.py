@@ -227,9 +227,11 @@ def _row(
     loss_db: float,
     target_factor: tuple[float, float],
     with_highs: bool,
+    seed: int = 7,
 ) -> dict[str, object]:
     problem = scenario(
         count,
+        seed=seed,
         width_per_demand_hz=width_per_demand_hz,
         implementation_loss_db=loss_db,
         target_factor=target_factor,
@@ -491,7 +493,9 @@ def _parser() -> argparse.ArgumentParser:
         metavar="NAME",
         help="named scenarios: " + ", ".join([*SCENARIOS, "amplifier", "all"]),
     )
-    parser.add_argument("--seed", type=int, help="override every named scenario's own seed")
+    parser.add_argument(
+        "--seed", type=int, help="override every named scenario's own seed (size rows: 7)"
+    )
     parser.add_argument("--time-limit-s", type=float, help="override the scenarios' time limit")
     parser.add_argument(
         "--repeats", type=int, default=1, help="rows per named scenario (each a fresh run)"
@@ -538,7 +542,8 @@ def main() -> int:
         factor = (args.target_factor[0], args.target_factor[1])
         loss = args.implementation_loss_db
         width = args.width_per_demand_hz
-        _table([_row(n, width, loss, factor, not args.no_highs) for n in sizes])
+        seed = 7 if args.seed is None else args.seed
+        _table([_row(n, width, loss, factor, not args.no_highs, seed) for n in sizes])
     if names:
         rows = []
         for name in names:
