@@ -39,7 +39,7 @@ from solver.model import (
 )
 from solver.packing.families import Candidate, DemandOptions, Family, mask_guard_per_baud
 from solver.physics import emission, link, modcod
-from solver.verify import INTERFERENCE_ALLOWANCE_DB
+from solver.verify import INTERFERENCE_ALLOWANCE_DB, LEAKAGE_TOLERANCE_DB
 
 __all__ = [
     "WIDTH_STEP",
@@ -55,6 +55,7 @@ __all__ = [
     "every_family",
     "family_for",
     "family_up_to_target",
+    "least_guard_per_baud",
     "least_width_hz",
     "narrowest_at_min_rate",
 ]
@@ -732,27 +733,66 @@ def family_up_to_target(problem: Problem, demand: Demand, config: CarrierConfig)
 def bound_candidates(problem: Problem, demand: Demand) -> tuple[Family, ...]:
     """Families for a bound that holds for every plan the verifier passes: every combination
     that closes the link and meets the minimum rate, kept unless another carries more per
-    unit of width over its whole range and needs no more per bit carried, either towards a
-    block edge or as its own leakage guard (the only spacing such a bound counts)."""
+    hertz of allocated width (exactly, not per raster-rounded slot), reaches at least its top
+    rate and needs no more per bit carried, either towards a block edge or as its own leakage
+    guard (the only spacing such a bound counts, measured as the bound measures it)."""
     return _bound_families(problem, demand, _basis(problem, demand, problem.block.width_hz, 0.0))
 
 
 def _bound_families(problem: Problem, demand: Demand, basis: _Basis) -> tuple[Family, ...]:
+    """The families :func:`bound_candidates` keeps, compared on the exact quantities the bound
+    counts (:func:`solver.judge._items`): throughput per hertz of allocated width, the top
+    throughput, and the edge and leakage guards per bit at the verifier's tolerance below each
+    limit on the kinder side (an unreachable leakage guard counts as none, as the bound does).
+    A family's range in throughput always starts at the demand's minimum rate."""
     combos, span, g = basis
     if g is None:
         return ()
     placeable = np.isfinite(g.edge_hz)
-    ratio = g.throughput_bps / span.hi_half / 2.0
-    low = g.throughput_bps * span.lo_half / span.hi_half
-    edge_per_bit = np.where(placeable, g.edge_hz, np.inf) / g.throughput_bps
-    leak = g.leakage_guard_per_baud * g.symbol_rate_baud
-    leak_per_bit = np.where(np.isfinite(leak), leak, np.inf) / g.throughput_bps
-    front = _family_front(ratio, low, g.throughput_bps, edge_per_bit, leak_per_bit)
+    idx = g.combo_index
+    per_hz = combos.net_bits_per_symbol[idx] / (1.0 + combos.rolloff[idx])
+    low = np.full(idx.size, demand.min_rate_bps)
+    edge = _least_per_baud(combos, idx, problem.edge_limit_db)
+    leak = _least_per_baud(combos, idx, problem.leakage_limit_db)
+    leak = np.where(np.isfinite(leak), leak, 0.0)
+    net = combos.net_bits_per_symbol[idx]
+    edge_per_bit = np.where(placeable, edge, np.inf) / net
+    front = _family_front(per_hz, low, g.throughput_bps, edge_per_bit, leak / net)
     return tuple(
         _family(problem, demand, combos, g, i, int(span.hi_half[i]), int(span.lo_half[i]))
         for i in front
         if placeable[i]
     )
+
+
+def least_guard_per_baud(key: emission.EmissionKey, limit_db: float) -> float:
+    """The smaller of a spectrum's two one-sided guards (symbol-rate units) for ``limit_db``,
+    at the verifier's tolerance below it: the least spacing any verified carrier keeps.
+
+    Parameters
+    ----------
+    key : emission.EmissionKey
+        The carrier's spectrum profile.
+    limit_db : float
+        Leakage-ratio limit (dB, positive).
+
+    Returns
+    -------
+    float
+        Guard in units of the symbol rate (``math.inf`` when never met).
+    """
+    profile = emission.get_profile(key)
+    at = limit_db - LEAKAGE_TOLERANCE_DB
+    return min(profile.guard_needed(at, "below"), profile.guard_needed(at, "above"))
+
+
+def _least_per_baud(
+    combos: _Combos, idx: NDArray[np.int64], limit_db: float
+) -> NDArray[np.float64]:
+    """:func:`least_guard_per_baud` of each combo in ``idx``, once per distinct combo."""
+    unique, inverse = np.unique(idx, return_inverse=True)
+    values = np.array([least_guard_per_baud(combos.keys[c], limit_db) for c in unique.tolist()])
+    return np.asarray(values[inverse.reshape(-1)], dtype=np.float64)
 
 
 def every_family(problem: Problem, demand: Demand) -> tuple[Family, ...]:

@@ -11,7 +11,9 @@ verifier does not demand of *every* plan:
   checks;
 * pinned carriers and carriers kept in place by a replan may sit anywhere;
 * every configuration that closes its link counts, pruned only where another carries more
-  per unit of width and needs no more towards an edge (:func:`bound_candidates`).
+  per hertz, reaches as high and needs no more guard per bit towards an edge or a neighbour
+  (:func:`bound_candidates`); each counts every width from its exact minimum-rate width to
+  its exact top, valued at exactly what it carries.
 
 Admission comes first: a plan is *proven* to serve the most it can when the relaxation cannot
 serve more (admission weight one higher is infeasible).  Then, by objective:
@@ -30,16 +32,14 @@ import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
-from solver.candidates import best_margin_db, least_width_hz
+from solver.candidates import best_margin_db, least_guard_per_baud, least_width_hz
 from solver.geometry import free_segments_hz
 from solver.model import Carrier, Demand, Objective, Problem, SolveStatus
 from solver.packing import Segment, admission_weights
 from solver.packing.arrangement import FINE, fine_slot
 from solver.packing.families import Family
 from solver.packing.spacing import BoundItem, Slot, throughput_bound
-from solver.physics import emission
 from solver.summary import with_guards
-from solver.verify import LEAKAGE_TOLERANCE_DB
 
 __all__ = ["BOUND_TOLERANCE", "Judgement", "branches", "judge"]
 
@@ -142,7 +142,8 @@ def _items(
         for family in families.get(demand.id, ()):
             slot = _span(fine_slot(family, demand, demand.priority), family, demand)
             fam = slot.family
-            per_half = fam.top.config.symbol_rate_baud / fam.hi_half / fam.raster_hz
+            top = family.top.config  # guards in grid units per half-width unit, exactly
+            per_half = 2.0 * top.symbol_rate_baud / top.allocated_bandwidth_hz
             leak = _least_guard_per_baud(fam, problem.leakage_limit_db) * per_half
             edge = _least_guard_per_baud(fam, problem.edge_limit_db) * per_half
             leak = 0.0 if math.isinf(leak) else leak  # alone in its reach: no neighbour gap
@@ -164,7 +165,7 @@ class _Span:
     """A family on the fine grid with the half-widths a carrier of it can really take: from the
     one that carries the demand's minimum rate exactly to the one that carries the family's
     top exactly (the link's limit or the target), neither rounded to the grid; and its value
-    per half-width unit."""
+    per half-width unit, the exact throughput a half-width unit carries."""
 
     family: Family
     lo_half: float
@@ -174,23 +175,21 @@ class _Span:
 
 def _span(slot: Slot, family: Family, demand: Demand) -> _Span:
     """``slot`` (``family`` on the fine grid) widened to every half-width a carrier of the
-    family can take: the fine grid rounds the least width up, and a power-limited family's
-    widest down to the last grid step that keeps the margin, while a carrier's symbol rate
-    need not fill a grid step."""
-    fam = slot.family
-    top = max(float(slot.hi_half), family.top.config.allocated_bandwidth_hz / 2 / fam.raster_hz)
-    least = demand.min_rate_bps / fam.throughput_per_half_bps
-    return _Span(fam, min(float(slot.lo_half), least), top, slot.value_per_half)
+    family can take, each valued at exactly what it carries: the fine grid rounds the least
+    width up, a power-limited family's widest down to the last grid step that keeps the
+    margin, and caps the value per unit at the target over the rounded-up top, which would
+    count a carrier narrower than a grid step as carrying less than it does."""
+    fam, top = slot.family, family.top.config
+    per_half = top.throughput_bps * 2.0 * fam.raster_hz / top.allocated_bandwidth_hz
+    widest = min(top.throughput_bps, demand.target_rate_bps) / per_half
+    least = demand.min_rate_bps / per_half
+    return _Span(fam, least, max(widest, least), demand.priority * per_half)
 
 
 def _least_guard_per_baud(family: Family, limit_db: float) -> float:
     """The smaller of a family's two one-sided guards (symbol-rate units) for ``limit_db``,
     at the verifier's tolerance below it (0 for a family without a spectrum profile)."""
-    if family.key is None:
-        return 0.0
-    profile = emission.get_profile(family.key)
-    at = limit_db - LEAKAGE_TOLERANCE_DB
-    return min(profile.guard_needed(at, "below"), profile.guard_needed(at, "above"))
+    return 0.0 if family.key is None else least_guard_per_baud(family.key, limit_db)
 
 
 def _served_per_priority(problem: Problem, served: Sequence[str]) -> dict[int, int]:
