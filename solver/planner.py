@@ -37,7 +37,6 @@ from solver.greedy import greedy_admission
 from solver.judge import INTEGRAL_S, Judgement, branches, judge
 from solver.model import (
     Carrier,
-    Demand,
     Objective,
     Plan,
     Problem,
@@ -398,7 +397,6 @@ def _solve_and_verify(
     first_s = problem.time_limit_s if first_s is None else min(first_s, problem.time_limit_s)
     options = list(data.options)
     fixed = {p.demand_id for p in pinned}
-    families = functools.partial(every_family, problem)
     floors: dict[str, float] = {}
     budget, hints = first_s * 0.8, data.hints
     previous: tuple[Verification, PackingResult] | None = None
@@ -414,18 +412,9 @@ def _solve_and_verify(
         if not placed and previous is not None:
             check, dropped = drop_until_passing(problem, previous[0])
             return check, previous[1], round_no, dropped
-        check = verify_plan(problem, [*pinned, *placed])
-        if not check.passed and rechosen:  # the configurations as the model chose them
-            mended = _mended(problem, check, families, fixed, deadline)
-            if mended is not None:
-                return mended, result, round_no, []
-            undo_rechoices(rechosen)
-            check = verify_plan(problem, [*pinned, *to_carriers(problem, arranged)])
+        check = _verified(problem, pinned, placed, arranged, rechosen, deadline)
         if check.passed:
             return check, result, round_no, []
-        mended = _mended(problem, check, families, fixed, deadline)
-        if mended is not None:
-            return mended, result, round_no, []
         raised = _raise_floors(check, floors, fixed)
         log.info("verification round %d failed; stricter emission for %s", round_no, sorted(raised))
         left = deadline - time.perf_counter()
@@ -443,16 +432,41 @@ def _solve_and_verify(
         budget = left / 2
 
 
-def _mended(
+def _verified(
     problem: Problem,
-    failed: Verification,
-    families: Callable[[Demand], Sequence[Family]],
-    fixed: set[str],
+    pinned: Sequence[Carrier],
+    placed: Sequence[Carrier],
+    arranged: Arrangement,
+    rechosen: list[Rechoice],
     deadline: float,
+) -> Verification:
+    """The placed plan verified; if it fails, mended by local changes
+    (:func:`~solver.upgrade.mend`), else with the re-choices undone (the configurations as
+    the model chose them) and mended again.  A failing verification is returned only when
+    neither passes."""
+    fixed = {p.demand_id for p in pinned}
+    check = verify_plan(problem, [*pinned, *placed])
+    if check.passed:
+        return check
+    mended = _mended(problem, check, fixed, deadline)
+    if mended is not None:
+        return mended
+    if rechosen:
+        undo_rechoices(rechosen)
+        check = verify_plan(problem, [*pinned, *to_carriers(problem, arranged)])
+        if check.passed:
+            return check
+        mended = _mended(problem, check, fixed, deadline)
+    return check if mended is None else mended
+
+
+def _mended(
+    problem: Problem, failed: Verification, fixed: set[str], deadline: float
 ) -> Verification | None:
     """``failed`` mended by local changes (:func:`~solver.upgrade.mend`) in
     :data:`MEND_SHARE` of the time left before ``deadline``; None if that does not pass."""
     now = time.perf_counter()
+    families = functools.partial(every_family, problem)
     mended = mend(problem, failed, families, fixed, now + MEND_SHARE * (deadline - now))
     if mended is not None:
         log.info("verification failed for %d carriers; mended", len(failed.violations))

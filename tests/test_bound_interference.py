@@ -9,13 +9,11 @@ admission is never below the referee's value.
 
 from __future__ import annotations
 
-import functools
-from dataclasses import dataclass
-
 import pytest
 from hypothesis import HealthCheck, example, given, seed, settings
 from hypothesis import strategies as st
-from referee import Refereed, admission_key, admission_value, referee
+from referee import admission_key, admission_value
+from refereed import outcome
 
 from solver import (
     Amplifier,
@@ -24,10 +22,8 @@ from solver import (
     Demand,
     Modulation,
     Objective,
-    Plan,
     Problem,
     Transmitter,
-    solve,
 )
 from solver.candidates import bound_candidates
 from solver.geometry import free_segments
@@ -122,17 +118,6 @@ the family was counted only up to 1.176 Mb/s while it had pruned the families th
 target; the bound now counts each family up to the rate it really reaches."""
 
 
-@dataclass(frozen=True)
-class _Outcome:
-    plan: Plan
-    found: Refereed
-
-
-@functools.lru_cache(maxsize=32)
-def _outcome(problem: Problem) -> _Outcome:
-    return _Outcome(solve(problem), referee(problem))
-
-
 def _slack(problem: Problem) -> float:
     """0.1 % of Σ priority × target, as property 2 of test_referee.py allows (the planner's
     own rounding of throughput per half-width step stays well below it)."""
@@ -153,7 +138,7 @@ RUNS = settings(
 @example(problem=ROUNDED_TOP)
 def test_the_stated_bound_holds_for_the_referees_best(problem: Problem) -> None:
     """Property 5 on amplifier- and interference-limited instances."""
-    out = _outcome(problem)
+    out = outcome(problem)
     served = [c.demand_id for c in out.plan.carriers]
     if not served or admission_key(problem, served) != out.found.best.admission:
         return
@@ -169,7 +154,7 @@ def test_the_stated_bound_holds_for_the_referees_best(problem: Problem) -> None:
 def test_the_relaxation_holds_at_the_referees_admission(problem: Problem) -> None:
     """The relaxation, asked to serve at least the referee's admission weight, is never below
     the value of the referee's best plan (whatever the planner found)."""
-    found = _outcome(problem).found
+    found = outcome(problem).found
     families = {d.id: bound_candidates(problem, d) for d in problem.demands}
     segments = free_segments(problem, [])
     items = _items(problem, segments, families)

@@ -12,22 +12,20 @@ Properties (hypothesis; each with an explicit example from a known bug):
 5. the bound a plan states is never below the referee's best plan of the same admission.
 
 The five properties draw the same instances (one shared seed, see :data:`SHARED_SEED`) and share
-one planner run and one referee run per instance (:func:`_outcome`), which keeps the module
+one planner run and one referee run per instance (:func:`refereed.outcome`), which keeps the module
 within its time budget on two cores.  Plain unit tests of the referee itself come first.
 """
 
 from __future__ import annotations
 
-import functools
 import math
-from dataclasses import dataclass, replace
+from dataclasses import replace
 from fractions import Fraction
 
 import pytest
 from hypothesis import HealthCheck, example, given, seed, settings
 from hypothesis import strategies as st
 from referee import (
-    Refereed,
     admission_key,
     admission_value,
     configurations,
@@ -37,6 +35,7 @@ from referee import (
     served_value,
     used_bandwidth_hz,
 )
+from refereed import outcome
 
 from solver import (
     Amplifier,
@@ -52,7 +51,6 @@ from solver import (
     SolveStatus,
     Transmitter,
     UnservedReason,
-    solve,
     verify_plan,
 )
 from solver.packing import admission_weights
@@ -317,17 +315,6 @@ def instances(draw: st.DrawFn) -> Problem:
 # ---------------------------------------------------------------- one run each, shared
 
 
-@dataclass(frozen=True)
-class _Outcome:
-    plan: Plan
-    found: Refereed
-
-
-@functools.lru_cache(maxsize=64)
-def _outcome(problem: Problem) -> _Outcome:
-    return _Outcome(solve(problem), referee(problem))
-
-
 def _planner_value(problem: Problem, plan: Plan) -> float:
     """The plan's objective value in the referee's units (margins re-measured by verify)."""
     carriers = verify_plan(problem, plan.carriers).carriers
@@ -360,7 +347,8 @@ def _tolerance(problem: Problem, plan: Plan) -> float:
 
 SHARED_SEED = 20_240_611
 """One seed for the four properties: they draw the same instances, so each instance is solved
-and refereed once (``_outcome``); ``seed`` also makes the runs reproducible, as derandomize does."""
+and refereed once (``refereed.outcome``); ``seed`` also makes the runs reproducible, as
+derandomize does."""
 
 RUNS = settings(
     max_examples=30,
@@ -379,7 +367,7 @@ RUNS = settings(
 @example(problem=BUG_THREE)
 def test_planner_admits_at_least_what_the_referee_admits(problem: Problem) -> None:
     """Property 1: priority order first, then the priority-weighted served value."""
-    out = _outcome(problem)
+    out = outcome(problem)
     served = [c.demand_id for c in out.plan.carriers]
     found = out.found
     mine = admission_key(problem, served)
@@ -398,7 +386,7 @@ def test_planner_admits_at_least_what_the_referee_admits(problem: Problem) -> No
 @example(problem=replace(BUG_ONE, objective=Objective.MIN_BANDWIDTH))
 def test_optimal_plans_are_within_their_gap_of_the_referee(problem: Problem) -> None:
     """Property 2: an 'optimal' plan is not beaten by the referee's (coarser) best."""
-    out = _outcome(problem)
+    out = outcome(problem)
     plan, found = out.plan, out.found
     if plan.stats.status is not SolveStatus.OPTIMAL:
         return
@@ -429,7 +417,7 @@ def test_optimal_plans_are_within_their_gap_of_the_referee(problem: Problem) -> 
 def test_planner_serves_what_the_referee_serves_alone(problem: Problem) -> None:
     """Property 3: a demand the referee serves alone is served, or gives way to a demand of at
     least its priority; and no plan is 'infeasible' while the referee serves anything."""
-    out = _outcome(problem)
+    out = outcome(problem)
     plan, found = out.plan, out.found
     if found.alone:
         assert plan.status is not SolveStatus.INFEASIBLE, (
@@ -453,7 +441,7 @@ def test_planner_serves_what_the_referee_serves_alone(problem: Problem) -> None:
 @example(problem=replace(BUG_THREE, objective=Objective.MAX_MARGIN))
 def test_every_plan_passes_verification(problem: Problem) -> None:
     """Property 4."""
-    out = _outcome(problem)
+    out = outcome(problem)
     check = verify_plan(problem, out.plan.carriers)
     assert check.passed, [v.detail for v in check.violations]
 
@@ -465,7 +453,7 @@ def test_every_plan_passes_verification(problem: Problem) -> None:
 def test_the_stated_bound_holds_for_the_referees_best(problem: Problem) -> None:
     """Property 5: the bound a plan states is never below the referee's best plan of the same
     admission (so its gap, optimal or not, is honest)."""
-    out = _outcome(problem)
+    out = outcome(problem)
     plan, found = out.plan, out.found
     served = [c.demand_id for c in plan.carriers]
     if not served or admission_key(problem, served) != found.best.admission:
