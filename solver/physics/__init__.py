@@ -18,6 +18,8 @@ constellations
     Unit-energy constellations and their uncoded error rates.
 modcod
     Constellation-constrained capacity, coded thresholds, the MODCOD catalogue.
+modcodsets
+    Named MODCOD sets from open standards (DVB-S2, DVB-S2X, 3GPP NR MCS tables).
 link
     Es/N0 from C/N0, margins, throughput.
 bounds
