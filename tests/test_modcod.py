@@ -81,6 +81,55 @@ def test_apsk_ring_ratios() -> None:
     assert radii32[1:] / radii32[0] == pytest.approx([2.84, 5.27], abs=1e-8)
 
 
+def test_ring_ratios_set_the_apsk_radii() -> None:
+    # DVB-S2 16APSK 2/3: γ = 3.15; 32APSK 9/10: γ1 = 2.53, γ2 = 4.30 (EN 302 307-1 §5.4.3/5.4.4,
+    # from memory).  Same rings and phases as the default, unit energy.
+    radii16 = np.unique(np.round(np.abs(constellation("16APSK", (3.15,)).points), 9))
+    radii32 = np.unique(np.round(np.abs(constellation("32APSK", [2.53, 4.30]).points), 9))
+    assert radii16[1] / radii16[0] == pytest.approx(3.15, abs=1e-8)
+    assert radii32[1:] / radii32[0] == pytest.approx([2.53, 4.30], abs=1e-8)
+    for c in (constellation("16APSK", (3.15,)), constellation("32APSK", (2.53, 4.30))):
+        assert np.mean(np.abs(c.points) ** 2) == pytest.approx(1.0, abs=1e-12)
+        assert np.angle(c.points) == pytest.approx(np.angle(constellation(c.modulation).points))
+
+
+def test_default_ring_ratios_are_the_default_constellation() -> None:
+    # Given explicitly, the default geometry's ratios share its cache entry (and its tables).
+    assert constellation("16APSK", (2.85,)) is constellation("16APSK")
+    assert constellation("32APSK", (2.84, 5.27)) is constellation("32APSK")
+    assert constellation("16APSK").ring_ratios == ()
+
+
+@pytest.mark.parametrize(
+    ("modulation", "ring_ratios"),
+    [
+        ("QPSK", (2.0,)),
+        ("16APSK", (2.7, 4.0)),
+        ("32APSK", (3.0,)),
+        ("16APSK", (0.9,)),
+        ("32APSK", (4.0, 3.0)),
+        ("16APSK", (math.nan,)),
+    ],
+)
+def test_unfit_ring_ratios_are_refused(modulation: str, ring_ratios: tuple[float, ...]) -> None:
+    with pytest.raises(ValueError, match="ring_ratios"):
+        constellation(modulation, ring_ratios)
+
+
+def test_ring_ratio_changes_the_threshold_a_little() -> None:
+    # DVB-S2 16APSK 2/3 uses γ = 3.15 instead of the default 2.85 (EN 302 307-1 §5.4.3, from
+    # memory).  Moving the outer ring changes the capacity at a given Es/N0 only slightly near
+    # the threshold, so the ideal threshold moves, but by well under a few tenths of a dB
+    # (measured: −0.007 dB).
+    ideal = Coding(block_length_bits=64_800, target_block_error_rate=1e-7, implementation_loss_db=0)
+    rate = Fraction(2, 3)
+    default = required_esn0_db("16APSK", rate, ideal)
+    own = required_esn0_db("16APSK", rate, ideal, ring_ratios=(3.15,))
+    assert own != default
+    assert abs(own - default) < 0.3
+    assert float(cm_capacity("16APSK", 8.0, (3.15,))) != float(cm_capacity("16APSK", 8.0))
+
+
 def test_unknown_modulation_is_refused() -> None:
     with pytest.raises(ValueError, match="modulation"):
         constellation("3PSK")

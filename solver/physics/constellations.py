@@ -16,16 +16,20 @@ Geometry and labelling, per modulation:
 * 16APSK (4+12) and 32APSK (4+12+16): concentric rings with the ring ratios that DVB-S2
   specifies for code rate 3/4 (ETSI EN 302 307-1, §5.4.3 and §5.4.4: γ = R2/R1 = 2.85 for
   16APSK; γ1 = R2/R1 = 2.84 and γ2 = R3/R1 = 5.27 for 32APSK; values from memory).  Inner ring
-  phases π/4 + kπ/2, middle ring π/12 + kπ/6, outer 32APSK ring kπ/8 (from memory).  One
-  fixed geometry per modulation is used for every code rate.  The labels are our own
-  documented quasi-Gray labelling, *not* DVB-S2's bit mapping: see :func:`_apsk16_labels`.
+  phases π/4 + kπ/2, middle ring π/12 + kπ/6, outer 32APSK ring kπ/8 (from memory).  That
+  geometry is the default for every code rate; ``constellation(modulation, ring_ratios)``
+  builds the same rings and phases with other ratios (DVB-S2 gives one set per code rate,
+  see :mod:`solver.physics.modcodsets`).  The labels are our own documented quasi-Gray
+  labelling, *not* DVB-S2's bit mapping: see :func:`_apsk16_labels`.
 """
 
 from __future__ import annotations
 
 import math
+from collections.abc import Iterable
 from dataclasses import dataclass
 from functools import cache
+from itertools import pairwise
 
 import numpy as np
 import numpy.typing as npt
@@ -80,6 +84,9 @@ class Constellation:
         log2 M.
     dimensions : int
         Real dimensions used: 1 for BPSK and M-PAM, 2 otherwise.
+    ring_ratios : tuple of float
+        APSK ring radii over the inner radius when they differ from the default geometry
+        (:data:`APSK16_RING_RATIO`, :data:`APSK32_RING_RATIOS`); ``()`` for the default.
     """
 
     modulation: Modulation
@@ -87,6 +94,7 @@ class Constellation:
     labels: IntArray
     bits_per_symbol: int
     dimensions: int
+    ring_ratios: tuple[float, ...] = ()
 
     @property
     def order(self) -> int:
@@ -174,19 +182,20 @@ def _apsk16_labels() -> IntArray:
     return np.concatenate([outer, inner])
 
 
-def _apsk16() -> tuple[ComplexArray, IntArray]:
-    outer = _ring(12, APSK16_RING_RATIO, math.pi / 12)
+def _apsk16(ring_ratios: tuple[float, ...]) -> tuple[ComplexArray, IntArray]:
+    (ratio,) = ring_ratios or (APSK16_RING_RATIO,)
+    outer = _ring(12, ratio, math.pi / 12)
     inner = _ring(_QUADRANTS, 1.0, math.pi / 4)
     return np.concatenate([outer, inner]), _apsk16_labels()
 
 
-def _apsk32() -> tuple[ComplexArray, IntArray]:
+def _apsk32(ring_ratios: tuple[float, ...]) -> tuple[ComplexArray, IntArray]:
     """32APSK: outer ring Gray labelled by angle with high bit 0; inner 16 as 16APSK, high bit 1.
 
     Neighbours within the outer ring and within the 4+12 core differ in one bit; pairs across
     the middle and outer rings are not controlled (a quasi-Gray labelling).
     """
-    middle_ratio, outer_ratio = APSK32_RING_RATIOS
+    middle_ratio, outer_ratio = ring_ratios or APSK32_RING_RATIOS
     outer = _ring(16, outer_ratio, 0.0)
     core = np.concatenate([_ring(12, middle_ratio, math.pi / 12), _ring(4, 1.0, math.pi / 4)])
     labels = np.concatenate([gray_code(np.arange(16)), (1 << 4) | _apsk16_labels()])
@@ -202,8 +211,11 @@ _BUILDERS = {
     Modulation.QAM256: lambda: _square_qam(256),
     Modulation.PAM4: lambda: _pam(4),
     Modulation.PAM8: lambda: _pam(8),
-    Modulation.APSK16: _apsk16,
-    Modulation.APSK32: _apsk32,
+}
+_APSK_BUILDERS = {Modulation.APSK16: _apsk16, Modulation.APSK32: _apsk32}
+_DEFAULT_RING_RATIOS = {
+    Modulation.APSK16: (APSK16_RING_RATIO,),
+    Modulation.APSK32: APSK32_RING_RATIOS,
 }
 
 _ONE_DIMENSIONAL = frozenset({Modulation.BPSK, Modulation.PAM4, Modulation.PAM8})
@@ -213,24 +225,43 @@ _APSK = frozenset({Modulation.APSK16, Modulation.APSK32})
 _QUAD_OPTIONS = {"epsabs": 0.0, "epsrel": 1e-11, "limit": 200}
 
 
-@cache
-def constellation(modulation: Modulation | str) -> Constellation:
+def _checked_ring_ratios(modulation: Modulation, ring_ratios: Iterable[float]) -> tuple[float, ...]:
+    """Ring ratios as a tuple of floats, ``()`` when they equal the default geometry."""
+    ratios = tuple(float(value) for value in ring_ratios)
+    default = _DEFAULT_RING_RATIOS.get(modulation)
+    if not ratios or ratios == default:
+        return ()
+    if default is None:
+        raise ValueError(f"{ring_ratios=} given for {modulation}, which has no rings")
+    if len(ratios) != len(default):
+        raise ValueError(f"{ring_ratios=} must hold {len(default)} value(s) for {modulation}")
+    radii = (1.0, *ratios)
+    if not all(math.isfinite(r) for r in ratios) or any(a >= b for a, b in pairwise(radii)):
+        raise ValueError(f"{ring_ratios=} must be finite and increase from above 1")
+    return ratios
+
+
+def constellation(modulation: Modulation | str, ring_ratios: Iterable[float] = ()) -> Constellation:
     """The constellation of a catalogue modulation, unit mean energy, Gray/quasi-Gray labelled.
 
     Parameters
     ----------
     modulation : Modulation or str
         A catalogue modulation, e.g. ``Modulation.QAM16`` or ``"16QAM"``.
+    ring_ratios : iterable of float, optional
+        APSK only: ring radii over the inner radius, (γ,) for 16APSK or (γ1, γ2) for 32APSK
+        (dimensionless, 1 < γ1 < γ2).  Empty (the default), or equal to the default geometry's
+        ratios, gives the default geometry.
 
     Returns
     -------
     Constellation
-        Cached and read-only: the arrays must not be modified.
+        Cached per (modulation, ring ratios) and read-only: the arrays must not be modified.
 
     Raises
     ------
     ValueError
-        If ``modulation`` is not in the catalogue.
+        If ``modulation`` is not in the catalogue, or ``ring_ratios`` do not fit it.
 
     References
     ----------
@@ -244,12 +275,23 @@ def constellation(modulation: Modulation | str) -> Constellation:
     (4, 2, 1.0)
     >>> round(constellation(Modulation.QAM16).papr_db, 3)
     2.553
+    >>> radii = np.abs(constellation("16APSK", (3.15,)).points)
+    >>> round(float(radii.max() / radii.min()), 12)  # DVB-S2 16APSK 2/3 (§5.4.3, from memory)
+    3.15
     """
     try:
         mod = Modulation(modulation)
     except ValueError as exc:
         raise ValueError(f"{modulation=} is not a catalogue modulation") from exc
-    raw_points, labels = _BUILDERS[mod]()
+    return _constellation(mod, _checked_ring_ratios(mod, ring_ratios))
+
+
+@cache
+def _constellation(mod: Modulation, ring_ratios: tuple[float, ...]) -> Constellation:
+    if mod in _APSK_BUILDERS:
+        raw_points, labels = _APSK_BUILDERS[mod](ring_ratios)
+    else:
+        raw_points, labels = _BUILDERS[mod]()
     points = _unit_energy(np.asarray(raw_points, dtype=np.complex128))
     labels = np.asarray(labels, dtype=np.int64)
     points.setflags(write=False)
@@ -260,6 +302,7 @@ def constellation(modulation: Modulation | str) -> Constellation:
         labels=labels,
         bits_per_symbol=int(points.size).bit_length() - 1,
         dimensions=1 if mod in _ONE_DIMENSIONAL else 2,
+        ring_ratios=ring_ratios,
     )
 
 
@@ -421,9 +464,8 @@ def _psk_error_rates(modulation: Modulation, esn0: FloatArray) -> tuple[FloatArr
     return ser.reshape(esn0.shape), ber.reshape(esn0.shape)
 
 
-def _union_bound(modulation: Modulation, esn0: FloatArray) -> tuple[FloatArray, FloatArray]:
+def _union_bound(points: Constellation, esn0: FloatArray) -> tuple[FloatArray, FloatArray]:
     """Pairwise union bound on SER and BER (Proakis & Salehi §4.2), capped at 1 and ½."""
-    points = constellation(modulation)
     distance = np.abs(points.points[:, None] - points.points[None, :])
     hamming = np.vectorize(lambda v: int(v).bit_count())(
         points.labels[:, None] ^ points.labels[None, :]
@@ -435,8 +477,11 @@ def _union_bound(modulation: Modulation, esn0: FloatArray) -> tuple[FloatArray, 
     return np.minimum(ser, 1.0), np.minimum(ber, 0.5)
 
 
-def _error_rates(modulation: Modulation, esn0_db: ArrayLike) -> tuple[FloatArray, FloatArray]:
-    mod = constellation(modulation).modulation
+def _error_rates(
+    modulation: Modulation, esn0_db: ArrayLike, ring_ratios: Iterable[float] = ()
+) -> tuple[FloatArray, FloatArray]:
+    points = constellation(modulation, ring_ratios)
+    mod = points.modulation
     esn0 = db_to_linear(check_finite("esn0_db", esn0_db))
     if mod == Modulation.BPSK:
         rate = _q(np.sqrt(2.0 * esn0))
@@ -449,11 +494,13 @@ def _error_rates(modulation: Modulation, esn0_db: ArrayLike) -> tuple[FloatArray
         order = constellation(mod).order
         return _pam_symbol_error_rate(order, esn0), _axis_bit_error_rate(mod, esn0)
     if mod in _APSK:
-        return _union_bound(mod, esn0)
+        return _union_bound(points, esn0)
     return _psk_error_rates(mod, esn0)
 
 
-def symbol_error_rate(modulation: Modulation | str, esn0_db: ArrayLike) -> FloatArray:
+def symbol_error_rate(
+    modulation: Modulation | str, esn0_db: ArrayLike, ring_ratios: Iterable[float] = ()
+) -> FloatArray:
     """Uncoded symbol error rate over AWGN with coherent maximum-likelihood detection.
 
     Parameters
@@ -462,6 +509,8 @@ def symbol_error_rate(modulation: Modulation | str, esn0_db: ArrayLike) -> Float
         Catalogue modulation.
     esn0_db : array_like
         Es/N0 in dB (finite).
+    ring_ratios : iterable of float, optional
+        APSK ring ratios, as for :func:`constellation` (default geometry when empty).
 
     Returns
     -------
@@ -486,10 +535,12 @@ def symbol_error_rate(modulation: Modulation | str, esn0_db: ArrayLike) -> Float
     >>> f"{float(symbol_error_rate('QPSK', 10.0)):.4e}"  # check-values §1c: 1.5648e-3
     '1.5648e-03'
     """
-    return _error_rates(Modulation(modulation), esn0_db)[0]
+    return _error_rates(Modulation(modulation), esn0_db, ring_ratios)[0]
 
 
-def bit_error_rate(modulation: Modulation | str, esn0_db: ArrayLike) -> FloatArray:
+def bit_error_rate(
+    modulation: Modulation | str, esn0_db: ArrayLike, ring_ratios: Iterable[float] = ()
+) -> FloatArray:
     """Uncoded bit error rate over AWGN with the constellation's (Gray) labelling.
 
     Parameters
@@ -498,6 +549,8 @@ def bit_error_rate(modulation: Modulation | str, esn0_db: ArrayLike) -> FloatArr
         Catalogue modulation.
     esn0_db : array_like
         Es/N0 in dB (finite).
+    ring_ratios : iterable of float, optional
+        APSK ring ratios, as for :func:`constellation` (default geometry when empty).
 
     Returns
     -------
@@ -524,4 +577,4 @@ def bit_error_rate(modulation: Modulation | str, esn0_db: ArrayLike) -> FloatArr
     >>> f"{float(bit_error_rate('BPSK', 10.0)):.4e}"  # Roddy 4th ed. p. 305: 3.9e-6
     '3.8721e-06'
     """
-    return _error_rates(Modulation(modulation), esn0_db)[1]
+    return _error_rates(Modulation(modulation), esn0_db, ring_ratios)[1]

@@ -152,7 +152,9 @@ def _rotation_order(points: npt.NDArray[np.complex128]) -> int:
 
 
 @cache
-def _orbit_representatives(modulation: Modulation) -> tuple[npt.NDArray[np.complex128], FloatArray]:
+def _orbit_representatives(
+    modulation: Modulation, ring_ratios: tuple[float, ...] = ()
+) -> tuple[npt.NDArray[np.complex128], FloatArray]:
     """One point per symmetry orbit of a 2-D constellation, weighted by orbit size.
 
     The mean of any rotation- and reflection-invariant quantity over the M points equals the
@@ -160,7 +162,7 @@ def _orbit_representatives(modulation: Modulation) -> tuple[npt.NDArray[np.compl
     fundamental sector is 0 ≤ angle ≤ π/s; points on a mirror line (angle 0 or π/s) have
     half the orbit of the others.  Without mirror symmetry the sector is [0, 2π/s).
     """
-    points = constellation(modulation).points
+    points = constellation(modulation, ring_ratios).points
     order = _rotation_order(points)
     angle = np.mod(np.angle(points) + _ANGLE_TOL, 2.0 * math.pi) - _ANGLE_TOL
     if not _on_point_set(points.conj(), points):
@@ -187,7 +189,9 @@ def _capacity_moments(
     return np.array([mean, float(np.sum(weight * (density - mean) ** 2))])
 
 
-def _moments_direct(modulation: Modulation, esn0_db: float) -> FloatArray:
+def _moments_direct(
+    modulation: Modulation, esn0_db: float, ring_ratios: tuple[float, ...] = ()
+) -> FloatArray:
     """(C, V) of a modulation at one Es/N0; square QAM as two √M-PAM axes at half energy."""
     esn0 = 10.0 ** (esn0_db / 10.0)
     if modulation in SQUARE_QAM:
@@ -195,36 +199,43 @@ def _moments_direct(modulation: Modulation, esn0_db: float) -> FloatArray:
         axis = levels.astype(np.complex128) * math.sqrt(2.0)
         uniform = np.full(axis.size, 1.0 / axis.size)
         return 2.0 * _capacity_moments(axis, uniform, axis, esn0 / 2.0, 1)
-    points = constellation(modulation)
+    points = constellation(modulation, ring_ratios)
     if points.dimensions == 1:
         line = points.points.real.astype(np.complex128)
         uniform = np.full(line.size, 1.0 / line.size)
         return _capacity_moments(line, uniform, line, esn0, 1)
-    sent, weight = _orbit_representatives(points.modulation)
+    sent, weight = _orbit_representatives(points.modulation, points.ring_ratios)
     return _capacity_moments(sent, weight, points.points, esn0, 2)
 
 
 @cache
-def _capacity_table(modulation: Modulation) -> tuple[CubicSpline, CubicSpline]:
-    moments = np.array([_moments_direct(modulation, float(x)) for x in GRID_ESN0_DB])
-    logger.debug("tabulated capacity of %s on %d points", modulation, GRID_ESN0_DB.size)
+def _capacity_table(
+    modulation: Modulation, ring_ratios: tuple[float, ...] = ()
+) -> tuple[CubicSpline, CubicSpline]:
+    moments = np.array([_moments_direct(modulation, float(x), ring_ratios) for x in GRID_ESN0_DB])
+    logger.debug("tabulated capacity of %s %s on %d points", modulation, ring_ratios, len(moments))
     return CubicSpline(GRID_ESN0_DB, moments[:, 0]), CubicSpline(GRID_ESN0_DB, moments[:, 1])
 
 
-def _tabulated(modulation: Modulation | str, esn0_db: ArrayLike, column: int) -> FloatArray:
-    mod = constellation(modulation).modulation
+def _tabulated(
+    modulation: Modulation | str, esn0_db: ArrayLike, column: int, ring_ratios: Iterable[float]
+) -> FloatArray:
+    points = constellation(modulation, ring_ratios)
+    mod, ratios = points.modulation, points.ring_ratios
     values = check_finite("esn0_db", esn0_db)
     flat = values.ravel()
-    spline = _capacity_table(mod)[column]
+    spline = _capacity_table(mod, ratios)[column]
     inside = (flat >= GRID_ESN0_DB[0]) & (flat <= GRID_ESN0_DB[-1])
     result = np.where(inside, spline(np.clip(flat, GRID_ESN0_DB[0], GRID_ESN0_DB[-1])), 0.0)
     for index in np.flatnonzero(~inside):
-        result[index] = _moments_direct(mod, float(flat[index]))[column]
-    upper = math.log2(constellation(mod).order) if column == 0 else math.inf
+        result[index] = _moments_direct(mod, float(flat[index]), ratios)[column]
+    upper = math.log2(points.order) if column == 0 else math.inf
     return np.asarray(np.clip(result, 0.0, upper).reshape(values.shape))
 
 
-def cm_capacity(modulation: Modulation | str, esn0_db: ArrayLike) -> FloatArray:
+def cm_capacity(
+    modulation: Modulation | str, esn0_db: ArrayLike, ring_ratios: Iterable[float] = ()
+) -> FloatArray:
     """Constellation-constrained (coded-modulation) capacity I(X;Y), uniform inputs, AWGN.
 
     Parameters
@@ -233,6 +244,9 @@ def cm_capacity(modulation: Modulation | str, esn0_db: ArrayLike) -> FloatArray:
         Catalogue modulation.
     esn0_db : array_like
         Es/N0 in dB (finite).
+    ring_ratios : iterable of float, optional
+        APSK ring ratios (dimensionless), as for :func:`constellation`; empty for the default
+        geometry.  Each new geometry is tabulated once (cached).
 
     Returns
     -------
@@ -258,15 +272,18 @@ def cm_capacity(modulation: Modulation | str, esn0_db: ArrayLike) -> FloatArray:
     >>> round(float(cm_capacity("QPSK", 5.0)), 3)  # check-values §2: 1.7184
     1.718
     """
-    return _tabulated(modulation, esn0_db, 0)
+    return _tabulated(modulation, esn0_db, 0, ring_ratios)
 
 
-def cm_dispersion(modulation: Modulation | str, esn0_db: ArrayLike) -> FloatArray:
+def cm_dispersion(
+    modulation: Modulation | str, esn0_db: ArrayLike, ring_ratios: Iterable[float] = ()
+) -> FloatArray:
     """Channel dispersion of the constellation-constrained channel, V = Var[i(X;Y)] (bits²).
 
     The variance of the information density i(x; y) = log2(p(y|x)/p(y)) under uniform inputs
     and AWGN, per symbol; computed in the same quadrature pass as :func:`cm_capacity` and
-    tabulated the same way.  It vanishes at high Es/N0, where i(X;Y) → log2 M.
+    tabulated the same way (per modulation and ``ring_ratios``, which have the same meaning
+    as there).  It vanishes at high Es/N0, where i(X;Y) → log2 M.
 
     References
     ----------
@@ -279,7 +296,7 @@ def cm_dispersion(modulation: Modulation | str, esn0_db: ArrayLike) -> FloatArra
     >>> round(float(cm_dispersion("16QAM", 40.0)), 6)
     0.0
     """
-    return _tabulated(modulation, esn0_db, 1)
+    return _tabulated(modulation, esn0_db, 1, ring_ratios)
 
 
 def _bicm_terms(
@@ -454,18 +471,24 @@ def _validate_code_rate(code_rate: CodeRate) -> None:
         raise ValueError(f"{code_rate=} must be None (uncoded) or a Fraction in (0, 1)")
 
 
-def _moments_at(modulation: Modulation, esn0_db: float) -> tuple[float, float]:
+def _moments_at(
+    modulation: Modulation, esn0_db: float, ring_ratios: tuple[float, ...]
+) -> tuple[float, float]:
     if GRID_ESN0_DB[0] <= esn0_db <= GRID_ESN0_DB[-1]:
-        capacity_spline, dispersion_spline = _capacity_table(modulation)
+        capacity_spline, dispersion_spline = _capacity_table(modulation, ring_ratios)
         capacity = min(float(capacity_spline(esn0_db)), math.log2(constellation(modulation).order))
         return max(capacity, 0.0), max(float(dispersion_spline(esn0_db)), 0.0)
-    capacity, dispersion = _moments_direct(modulation, esn0_db)
+    capacity, dispersion = _moments_direct(modulation, esn0_db, ring_ratios)
     return float(capacity), float(dispersion)
 
 
 @cache
 def _coded_threshold_db(
-    modulation: Modulation, code_rate: Fraction, block_length_bits: int, block_error_rate: float
+    modulation: Modulation,
+    code_rate: Fraction,
+    block_length_bits: int,
+    block_error_rate: float,
+    ring_ratios: tuple[float, ...] = (),
 ) -> float:
     """Ideal Es/N0 (dB) where the normal approximation first carries n·R bits."""
     bits = constellation(modulation).bits_per_symbol
@@ -473,7 +496,7 @@ def _coded_threshold_db(
     payload_bits = uses * bits * float(code_rate)
 
     def excess(esn0_db: float) -> float:
-        capacity, dispersion = _moments_at(modulation, esn0_db)
+        capacity, dispersion = _moments_at(modulation, esn0_db, ring_ratios)
         achievable = normal_approximation_bits(uses, capacity, dispersion, block_error_rate)
         return achievable - payload_bits
 
@@ -492,12 +515,14 @@ def _coded_threshold_db(
 
 
 @cache
-def _uncoded_threshold_db(modulation: Modulation, target_bit_error_rate: float) -> float:
+def _uncoded_threshold_db(
+    modulation: Modulation, target_bit_error_rate: float, ring_ratios: tuple[float, ...] = ()
+) -> float:
     """Es/N0 (dB) where the uncoded bit error rate falls to the target."""
     target_log = math.log(target_bit_error_rate)
 
     def excess(esn0_db: float) -> float:
-        rate = float(bit_error_rate(modulation, esn0_db))
+        rate = float(bit_error_rate(modulation, esn0_db, ring_ratios))
         return math.log(max(rate, _BER_FLOOR)) - target_log
 
     low, high = UNCODED_SEARCH_DB
@@ -509,7 +534,10 @@ def _uncoded_threshold_db(modulation: Modulation, target_bit_error_rate: float) 
 
 
 def required_esn0_db(
-    modulation: Modulation | str, code_rate: CodeRate, coding: Coding | None = None
+    modulation: Modulation | str,
+    code_rate: CodeRate,
+    coding: Coding | None = None,
+    ring_ratios: Iterable[float] = (),
 ) -> float:
     """Es/N0 (dB) a MODCOD needs on an AWGN channel, implementation loss included.
 
@@ -522,6 +550,10 @@ def required_esn0_db(
     coding : Coding, optional
         Block length n (bits), target block error rate ε, target bit error rate (uncoded),
         implementation loss (dB).  Defaults to ``Coding()``.
+    ring_ratios : iterable of float, optional
+        APSK only: ring radii over the inner radius, (γ,) for 16APSK or (γ1, γ2) for 32APSK,
+        e.g. a DVB-S2 code rate's own ratios (:mod:`solver.physics.modcodsets`); empty for the
+        default geometry of :func:`constellation`.
 
     Returns
     -------
@@ -547,18 +579,20 @@ def required_esn0_db(
     >>> round(required_esn0_db("BPSK", None, ideal), 2)  # Eb/N0 = Es/N0 = 9.59 dB at 1e-5
     9.59
     """
-    mod = constellation(modulation).modulation
+    points = constellation(modulation, ring_ratios)
+    mod, ratios = points.modulation, points.ring_ratios
     settings = Coding() if coding is None else coding
     _validate_coding(settings)
     _validate_code_rate(code_rate)
     if code_rate is None:
-        ideal = _uncoded_threshold_db(mod, float(settings.target_bit_error_rate))
+        ideal = _uncoded_threshold_db(mod, float(settings.target_bit_error_rate), ratios)
     else:
         ideal = _coded_threshold_db(
             mod,
             code_rate,
             settings.block_length_bits,
             float(settings.target_block_error_rate),
+            ratios,
         )
     return ideal + settings.implementation_loss_db
 
