@@ -10,6 +10,8 @@ pulses
     Raised-cosine family: truncated root-raised-cosine taps, windows, ideal spectra.
 amplifier
     Memoryless amplifier characteristics (Rapp, Saleh) and the drive for an output back-off.
+distortion
+    In-band distortion as an error-vector floor (Bussgang), and Es/N0 with that floor.
 emission
     Normalised spectrum profiles, occupied bandwidth, leakage ratio, guard lookup; cached.
 profilecache
