@@ -410,6 +410,53 @@ def _scenario_row(name: str, seed: int, time_limit_s: float | None) -> dict[str,
     }
 
 
+def _backoff_row(seed: int, time_limit_s: float | None) -> dict[str, object]:
+    """The back-off scenario at ``seed``: each carrier choosing its back-off from
+    :data:`BACKOFFS_DB`, against every single back-off applied to all carriers, same demands,
+    same block, same run."""
+    from scenarios import BACKOFFS_DB, backoff_scenario, with_backoffs
+
+    choice = backoff_scenario(seed)
+    if time_limit_s is not None:
+        choice = replace(choice, time_limit_s=time_limit_s)
+    runs = {"choice": choice} | {f"{b:g}dB": with_backoffs(choice, (b,)) for b in BACKOFFS_DB}
+    row: dict[str, object] = {"seed": seed, "block_MHz": choice.block.width_hz / 1e6}
+    for problem in runs.values():  # warm every spectrum first: the timed runs are alike
+        solve(replace(problem, time_limit_s=max(0.5, WARM_S_PER_DEMAND * len(problem.demands))))
+    results = {}
+    for name, problem in runs.items():
+        started = time.perf_counter()
+        plan = solve(problem)
+        wall = time.perf_counter() - started
+        served = served_weight(problem, (c.demand_id for c in plan.carriers))
+        results[name] = (plan.summary.total_throughput_bps, served, wall)
+        row[f"{name}_Mbps"] = plan.summary.total_throughput_bps / 1e6
+        row[f"{name}_weight"] = served / 1e6
+    single = [k for k in results if k != "choice"]
+    best = max(single, key=lambda k: (results[k][1], results[k][0]))
+    row["best_single"] = best
+    row["choice_vs_best"] = results["choice"][0] / max(results[best][0], 1.0)
+    row["choice_s"] = results["choice"][2]
+    row["best_single_s"] = results[best][2]
+    counts: dict[str, int] = {}
+    plan = solve(choice)
+    for c in plan.carriers:
+        key = f"{c.config.output_backoff_db:g}"
+        counts[key] = counts.get(key, 0) + 1
+    row["backoffs_used"] = " ".join(f"{k}:{v}" for k, v in sorted(counts.items()))
+    return row
+
+
+BACKOFF_LEGEND = """\
+choice: every carrier picks its output back-off from {2, 4, 6, 8} dB (Rapp p = 2, in-band
+  distortion counted as EVM, links stated at 6 dB); N dB: every carrier at N dB, the same
+  demands and block.  _Mbps: plan throughput; _weight: served priority x minimum rate (Mb/s).
+best_single: the single back-off serving the most weight (then throughput); choice_vs_best:
+  throughput ratio.  choice_s / best_single_s: wall time of the two solves (time limit each).
+backoffs_used: carriers per back-off in a further solve of the choice problem.
+"""
+
+
 SCENARIO_LEGEND = """\
 problem: first 8 hex digits of the SHA-1 of the problem's repr (same digest, same problem).
 need_x: minimum-rate need / usable width (narrowest footprint = allocated width + guard, summed,
@@ -502,6 +549,13 @@ def _parser() -> argparse.ArgumentParser:
     )
     parser.add_argument("--no-highs", action="store_true", help="skip the HiGHS columns")
     parser.add_argument(
+        "--backoff-seeds",
+        type=int,
+        nargs="+",
+        default=[],
+        help="back-off table: per-carrier choice of {2, 4, 6, 8} dB against each single back-off",
+    )
+    parser.add_argument(
         "--before", metavar="PATH", help="run against the solver of another checkout"
     )
     parser.add_argument(
@@ -536,7 +590,7 @@ def main() -> int:
         names = expand(args.scenario) if args.scenario else []
     except ValueError as exc:
         parser.error(str(exc))
-    sizes = args.sizes if args.sizes or names else [12, 50, 200]
+    sizes = args.sizes if args.sizes or names or args.backoff_seeds else [12, 50, 200]
     print(f"<!-- {_solver_origin()}; load average {os.getloadavg()[0]:.2f} at start -->")
     if sizes:
         factor = (args.target_factor[0], args.target_factor[1])
@@ -544,6 +598,10 @@ def main() -> int:
         width = args.width_per_demand_hz
         seed = 7 if args.seed is None else args.seed
         _table([_row(n, width, loss, factor, not args.no_highs, seed) for n in sizes])
+    if args.backoff_seeds:
+        _table([_backoff_row(seed, args.time_limit_s) for seed in args.backoff_seeds])
+        print()
+        print(BACKOFF_LEGEND)
     if names:
         rows = []
         for name in names:

@@ -57,6 +57,11 @@ from solver import (
     Transmitter,
 )
 
+try:
+    from solver import EquipmentProfile
+except ImportError:  # a checkout from before equipment profiles (bench/packing.py --before)
+    EquipmentProfile = None  # type: ignore[assignment,misc]
+
 # The footprint pass uses the candidates' own configuration check and the MODCOD catalogue,
 # nothing of the packing model (the same two names the hand method uses).
 from solver.candidates import Candidate, candidate_for
@@ -298,6 +303,8 @@ def _registry() -> dict[str, Scenario]:
         ),
         recipe("fragmented", 14, FRAGMENTED),
     ]
+    if EquipmentProfile is not None:
+        out.append(Scenario("amplifier-choice", 15, backoff_scenario))
     return {s.name: s for s in out}
 
 
@@ -319,3 +326,36 @@ def expand(names: list[str]) -> list[str]:
             if n not in out:
                 out.append(n)
     return out
+
+
+# ---------------------------------------------------------------- back-off as a decision
+
+BACKOFFS_DB = (2.0, 4.0, 6.0, 8.0)
+"""The output back-offs each carrier of the back-off scenario chooses from (dB)."""
+
+REFERENCE_BACKOFF_DB = 6.0
+"""The back-off at which the back-off scenario's demands state their C/N0 or Es/N0."""
+
+
+def with_backoffs(problem: Problem, backoffs_db: tuple[float, ...]) -> Problem:
+    """``problem`` with every demand on one amplifier profile (Rapp p = 2, its in-band
+    distortion counted) that may run at each of ``backoffs_db``; links stated at
+    :data:`REFERENCE_BACKOFF_DB`."""
+    profile = EquipmentProfile(
+        "shared-pa",
+        rolloffs=ROLLOFFS,
+        filter_span_symbols=12,
+        amplifier=_rapp(REFERENCE_BACKOFF_DB),
+        output_backoffs_db=backoffs_db,
+        reference_backoff_db=REFERENCE_BACKOFF_DB,
+        implementation_loss_db=problem.coding.implementation_loss_db,
+    )
+    demands = tuple(replace(d, profile=profile.name) for d in problem.demands)
+    return replace(problem, demands=demands, profiles=(profile,))
+
+
+def backoff_scenario(seed: int) -> Problem:
+    """Twelve demands (the amplifier recipe) whose carriers each pick a back-off from
+    :data:`BACKOFFS_DB`; the block is sized on a linear transmitter, as for ``amplifier-*``."""
+    base = generated("amplifier-choice", seed, replace(AMPLIFIER, amplifier=_rapp(6.0)))
+    return with_backoffs(base, BACKOFFS_DB)

@@ -176,17 +176,18 @@ def summary_table(plan: PlanOut) -> str:
     width = max([len("demand"), *(len(c.demand_id) for c in plan.carriers)]) + 2
     head = (
         f"{'demand':<{width}}{'centre MHz':>14}{'Rs Mbaud':>10}{'α':>6}  {'MODCOD':<16}"
-        f"{'Mbit/s':>9}{'margin dB':>10}{'guard kHz':>16}"
+        f"{'Mbit/s':>9}{'margin dB':>10}{'guard kHz':>16}{'OBO dB':>8}{'EVM %':>7}"
     )
     lines = [f"plan {plan.id or '(not stored)'}  {plan.name!r}  status {plan.status.value}", head]
     lines.append("-" * len(head))
     for c in sorted(plan.carriers, key=lambda c: c.center_hz):
         modcod = f"{c.modulation.value} {c.code_rate}"
         guards = f"{c.guard_below_hz / KHZ:.1f}/{c.guard_above_hz / KHZ:.1f}"
+        backoff = "—" if c.output_backoff_db is None else f"{c.output_backoff_db:.1f}"
         lines.append(
             f"{c.demand_id:<{width}}{c.center_hz / MHZ:>14.4f}{c.symbol_rate_baud / MHZ:>10.4f}"
             f"{c.rolloff:>6.2f}  {modcod:<16}{c.throughput_bps / MHZ:>9.3f}{c.margin_db:>10.2f}"
-            f"{guards:>16}"
+            f"{guards:>16}{backoff:>8}{c.evm_pct:>7.2f}"
         )
     lines.extend(f"unserved {u.demand_id}: {u.reason.value} ({u.detail})" for u in plan.unserved)
     s = plan.summary

@@ -18,6 +18,7 @@ from service.schemas import (
     CarrierOut,
     CodingIn,
     DemandIn,
+    EquipmentProfileIn,
     JobProgress,
     LeakageOut,
     PlanOut,
@@ -34,7 +35,9 @@ from solver import (
     Coding,
     CurrentSetting,
     Demand,
+    EquipmentProfile,
     Exclusion,
+    ModcodRow,
     Modulation,
     Plan,
     PlanSummary,
@@ -92,6 +95,10 @@ def carrier_to_wire(carrier: Carrier) -> CarrierOut:
         esn0_db=cfg.esn0_db,
         required_esn0_db=cfg.required_esn0_db,
         margin_db=cfg.margin_db,
+        profile=cfg.profile,
+        output_backoff_db=cfg.output_backoff_db,
+        evm_pct=cfg.evm_pct,
+        thermal_esn0_db=cfg.thermal_esn0_db,
         margin_after_interference_db=finite_or_none(carrier.margin_after_interference_db),
         leakage_ratio_db=LeakageOut(
             below=finite_or_none(carrier.leakage_ratio_below_db),
@@ -118,6 +125,10 @@ def carrier_from_wire(c: CarrierOut) -> Carrier:
         throughput_bps=c.throughput_bps,
         esn0_db=c.esn0_db,
         required_esn0_db=c.required_esn0_db,
+        profile=c.profile,
+        output_backoff_db=c.output_backoff_db,
+        evm_pct=c.evm_pct,
+        thermal_esn0_db=c.thermal_esn0_db,
     )
     nan = math.nan
     after = c.margin_after_interference_db
@@ -234,6 +245,7 @@ def setting_from_wire(setting: WireSetting) -> CurrentSetting:
         rolloff=setting.rolloff,
         modulation=setting.modulation,
         code_rate=parse_code_rate(setting.code_rate),
+        output_backoff_db=getattr(setting, "output_backoff_db", None),
     )
 
 
@@ -251,6 +263,7 @@ def _demand(d: DemandIn, previous: dict[str, CarrierOut]) -> Demand:
         relative_level_db=d.relative_level_db,
         pinned_center_hz=d.pinned_center_hz,
         current=None if wire is None else setting_from_wire(wire),
+        profile=d.profile,
     )
 
 
@@ -311,6 +324,39 @@ def to_problem(
         time_limit_s=request.time_limit_s,
         num_workers=num_workers,
         seed=request.seed,
+        profiles=tuple(profile_from_wire(p) for p in request.profiles),
+    )
+
+
+def profile_from_wire(p: EquipmentProfileIn) -> EquipmentProfile:
+    """Convert one equipment profile."""
+    rows = tuple(
+        ModcodRow(
+            modulation=r.modulation,
+            code_rate=parse_code_rate(r.code_rate),
+            required_esn0_db=r.required_esn0_db,
+            spectral_efficiency=r.spectral_efficiency,
+            label=r.label,
+        )
+        for r in p.modcods
+    )
+    return EquipmentProfile(
+        name=p.name,
+        modcod_set=p.modcod_set,
+        modcods=rows,
+        symbol_rate_min_baud=p.symbol_rate_min_baud,
+        symbol_rate_max_baud=p.symbol_rate_max_baud,
+        symbol_rate_step_baud=p.symbol_rate_step_baud,
+        tx_evm_pct=p.tx_evm_pct,
+        rx_evm_pct=p.rx_evm_pct,
+        implementation_loss_db=p.implementation_loss_db,
+        rolloffs=tuple(p.rolloffs),
+        filter_span_symbols=p.filter_span_symbols,
+        window=p.window,
+        amplifier=amplifier_from_wire(p.amplifier),
+        output_backoffs_db=tuple(p.output_backoffs_db),
+        reference_backoff_db=p.reference_backoff_db,
+        amplifier_distortion=p.amplifier_distortion,
     )
 
 

@@ -40,9 +40,9 @@ from matplotlib.ticker import ScalarFormatter
 from solver import (
     CAUTIONS,
     Carrier,
-    EmissionKey,
     Plan,
     Problem,
+    carrier_emission_key,
     format_code_rate,
     get_profile,
 )
@@ -124,10 +124,7 @@ class _Label:
 
 def emission_profile_source(carrier: Carrier, problem: Problem) -> DensityFn:
     """Normalised PSD of ``carrier`` from the solver's cached emission profiles."""
-    cfg = carrier.config
-    return get_profile(
-        EmissionKey.for_carrier(problem.transmitter, cfg.modulation, cfg.rolloff)
-    ).psd_at
+    return get_profile(carrier_emission_key(problem, carrier.config)).psd_at
 
 
 def carrier_psd_db(

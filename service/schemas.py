@@ -12,7 +12,7 @@ from __future__ import annotations
 import itertools
 from datetime import datetime
 from enum import StrEnum
-from typing import Annotated, Any
+from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationInfo, field_validator
 
@@ -32,12 +32,14 @@ MAX_DEMANDS = 2000
 MAX_EXCLUSIONS = 200
 MAX_BATCH_ITEMS = 500
 MAX_ROLLOFFS = 16
+MAX_PROFILES = 32
+MAX_MODCOD_ROWS = 256
 MAX_GAPS = 64
 MAX_TIME_LIMIT_S = 300.0
 MAX_FREQUENCY_HZ = 1e12
 MAX_SYMBOL_RATE_BAUD = 1e10
 MAX_RATE_BPS = 1e12
-CODE_RATE_PATTERN = r"^(uncoded|[1-9][0-9]?/[1-9][0-9]?)$"
+CODE_RATE_PATTERN = r"^(uncoded|[1-9][0-9]{0,3}/[1-9][0-9]{0,3})$"
 DEMAND_ID_PATTERN = r"^[A-Za-z0-9_.:-]{1,64}$"
 PRINTABLE_PATTERN = r"^[^\x00-\x1f\x7f]*$"
 """Free text without control characters (a NUL cannot be stored in PostgreSQL text)."""
@@ -79,6 +81,9 @@ def _exactly_one_link(value: float | None, info: ValidationInfo) -> float | None
         raise ValueError("give exactly one of cn0_dbhz (power-limited link) or esn0_db")
     return value
 
+
+ModcodSetName = Literal["standard", "dvb-s2", "dvb-s2x", "nr-64qam", "nr-256qam", "full"]
+"""The named MODCOD sets (:data:`solver.MODCOD_SET_NAMES`; a test keeps the two equal)."""
 
 CodeRateText = Annotated[
     str,
@@ -162,6 +167,78 @@ class TransmitterIn(WireModel):
     amplifier: AmplifierIn | None = Field(None, description="amplifier model, or null for linear")
 
 
+class ModcodRowIn(WireModel):
+    """One entry of an equipment's own MODCOD table."""
+
+    modulation: Modulation
+    code_rate: CodeRateText
+    required_esn0_db: float | None = Field(
+        None,
+        ge=-20,
+        le=60,
+        description="the data sheet's threshold (dB Es/N0 at its stated block error rate), used "
+        "exactly; null: computed from the request's coding",
+    )
+    spectral_efficiency: float | None = Field(
+        None,
+        gt=0,
+        le=20,
+        description="information bits per symbol after framing; null: log2 M·r·(1 − framing)",
+    )
+    label: str = Field("", max_length=40, pattern=PRINTABLE_PATTERN, description="its own name")
+
+    _rate = field_validator("code_rate")(_check_code_rate)
+
+
+class EquipmentProfileIn(WireModel):
+    """What one kind of radio can be set to; demands name it in ``profile``."""
+
+    name: str = Field(pattern=DEMAND_ID_PATTERN, description="how demands refer to it")
+    modcod_set: ModcodSetName = Field(
+        "standard", description="named MODCOD set, used when `modcods` is empty"
+    )
+    modcods: list[ModcodRowIn] = Field(
+        default_factory=list, max_length=MAX_MODCOD_ROWS, description="the equipment's own table"
+    )
+    symbol_rate_min_baud: float = Field(0.0, ge=0, le=MAX_SYMBOL_RATE_BAUD, description="(baud)")
+    symbol_rate_max_baud: float = Field(
+        MAX_SYMBOL_RATE_BAUD, gt=0, le=MAX_SYMBOL_RATE_BAUD, description="(baud)"
+    )
+    symbol_rate_step_baud: float = Field(
+        0.0, ge=0, le=1e9, description="symbol rates are multiples of it (baud); 0: any rate"
+    )
+    tx_evm_pct: float = Field(0.0, ge=0, lt=100, description="transmitter EVM floor (% rms)")
+    rx_evm_pct: float = Field(0.0, ge=0, lt=100, description="receiver EVM floor (% rms)")
+    implementation_loss_db: float = Field(
+        1.0, ge=0, le=20, description="added to every computed threshold (dB)"
+    )
+    rolloffs: list[Annotated[float, Field(gt=0, le=1)]] = Field(
+        default_factory=lambda: [0.05, 0.10, 0.15, 0.20, 0.25, 0.35],
+        min_length=1,
+        max_length=MAX_ROLLOFFS,
+        description="roll-off factors the equipment supports",
+    )
+    filter_span_symbols: int = Field(12, ge=2, le=256, description="filter span (symbols)")
+    window: Window = Field(Window.NONE, description="window applied to the truncated filter")
+    amplifier: AmplifierIn | None = Field(None, description="amplifier model, or null for linear")
+    output_backoffs_db: list[Annotated[float, Field(gt=0, le=30)]] = Field(
+        default_factory=list,
+        max_length=MAX_ROLLOFFS,
+        description="output back-offs the optimiser may choose per carrier (dB); empty: the "
+        "amplifier's own",
+    )
+    reference_backoff_db: float | None = Field(
+        None,
+        gt=0,
+        le=30,
+        description="back-off at which demands state C/N0, Es/N0 and level (dB); null: the "
+        "amplifier's",
+    )
+    amplifier_distortion: bool = Field(
+        True, description="count the amplifier's in-band distortion in the EVM floor"
+    )
+
+
 class CodingIn(WireModel):
     """Forward-error-correction assumptions for the coded thresholds."""
 
@@ -188,6 +265,9 @@ class CurrentSettingIn(WireModel):
     rolloff: float = Field(gt=0, le=1, description="roll-off factor")
     modulation: Modulation
     code_rate: CodeRateText
+    output_backoff_db: float | None = Field(
+        None, gt=0, le=30, description="amplifier back-off it runs at (dB); null: the reference"
+    )
 
     _rate = field_validator("code_rate")(_check_code_rate)
 
@@ -214,6 +294,9 @@ class DemandIn(WireModel):
         None, ge=0, le=MAX_FREQUENCY_HZ, description="fixed centre frequency (Hz)"
     )
     current: CurrentSettingIn | None = Field(None, description="today's setting, for a replan")
+    profile: str = Field(
+        "", max_length=64, description="equipment profile's name; empty: the transmitter's"
+    )
 
     @field_validator("target_rate_bps")
     @classmethod
@@ -251,6 +334,9 @@ class PlanRequest(WireModel):
     )
     transmitter: TransmitterIn = Field(default_factory=TransmitterIn)
     coding: CodingIn = Field(default_factory=CodingIn)
+    profiles: list[EquipmentProfileIn] = Field(
+        default_factory=list, max_length=MAX_PROFILES, description="equipment profiles"
+    )
     demands: list[DemandIn] = Field(min_length=1, max_length=MAX_DEMANDS)
     objective: Objective = Field(Objective.MAX_THROUGHPUT, description="what to optimise")
     retune_penalty: float = Field(
@@ -267,11 +353,26 @@ class PlanRequest(WireModel):
     def consistency_issues(self) -> list[FieldIssue]:
         """Checks across list entries, each naming its exact field path."""
         issues = _exclusion_issues(self.block)
+        names: set[str] = set()
+        for k, profile in enumerate(self.profiles):
+            if profile.name in names:
+                issues.append(
+                    FieldIssue(f"profiles[{k}].name", f"duplicate profile {profile.name!r}")
+                )
+            names.add(profile.name)
         seen: set[str] = set()
         for k, demand in enumerate(self.demands):
             if demand.id in seen:
                 issues.append(FieldIssue(f"demands[{k}].id", f"duplicate demand id {demand.id!r}"))
             seen.add(demand.id)
+            if demand.profile and demand.profile not in names:
+                known = ", ".join(sorted(names)) or "none"
+                issues.append(
+                    FieldIssue(
+                        f"demands[{k}].profile",
+                        f"{demand.profile!r} is not one of the request's profiles ({known})",
+                    )
+                )
             pinned = demand.pinned_center_hz
             if pinned is not None and not self.block.start_hz < pinned < self.block.stop_hz:
                 issues.append(
@@ -348,9 +449,19 @@ class CarrierOut(BaseModel):
     guard_needed_hz: float = Field(description="guard this carrier needs towards carriers (Hz)")
     edge_guard_needed_hz: float = Field(description="guard it needs towards edges (Hz)")
     throughput_bps: float
-    esn0_db: float
+    esn0_db: float = Field(description="effective Es/N0: thermal noise and EVM floor (dB)")
     required_esn0_db: float
     margin_db: float = Field(description="Es/N0 − required Es/N0 (dB)")
+    profile: str = Field("", description="equipment profile; empty: the transmitter's")
+    output_backoff_db: float | None = Field(
+        None, description="amplifier back-off it runs at (dB); null: linear"
+    )
+    evm_pct: float = Field(
+        0.0, description="EVM floor (% rms): transmitter, amplifier distortion, receiver"
+    )
+    thermal_esn0_db: float | None = Field(
+        None, description="Es/N0 from thermal noise alone (dB); `esn0_db` adds the EVM floor"
+    )
     margin_after_interference_db: float | None = Field(description="null: not computed")
     leakage_ratio_db: LeakageOut
     c_over_i_db: float | None = Field(description="carrier to interference (dB); null: none")

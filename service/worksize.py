@@ -18,7 +18,7 @@ candidates alone would hold gigabytes.
 from __future__ import annotations
 
 from service.errors import FieldIssue, InvalidInputError
-from solver import ConfigurationBound, Modulation, Objective, Problem, configuration_bound
+from solver import ConfigurationBound, Objective, Problem, configuration_bound
 
 __all__ = ["check_work_size", "work_size"]
 
@@ -37,8 +37,7 @@ def check_work_size(problem: Problem, limit: int) -> None:
     if total <= limit:
         return
     k = max(range(len(bounds)), key=lambda i: bounds[i].total)
-    largest, demand = bounds[k], problem.demands[k]
-    allowed = "all" if not demand.modulations else str(largest.modulations)
+    largest = bounds[k]
     issues = [
         FieldIssue(
             "demands",
@@ -51,8 +50,9 @@ def check_work_size(problem: Problem, limit: int) -> None:
         ),
         FieldIssue(
             f"demands[{k}].modulations",
-            f"{allowed} of {len(Modulation)} modulations, each with {largest.code_rates} "
-            f"code rates: demands[{k}] alone weighs up to {largest.total:,} configurations",
+            f"{largest.modulations} modulations of its MODCOD table, up to "
+            f"{largest.code_rates} code rates each, {largest.backoffs} back-off(s): "
+            f"demands[{k}] alone weighs up to {largest.total:,} configurations",
         ),
     ]
     if problem.objective is Objective.MAX_MARGIN:

@@ -5,6 +5,7 @@ imports only these.  The physics floor (spectra, amplifiers, MODCODs, link budge
 :mod:`solver.physics` and depends on nothing in the solver but :mod:`solver.model`.
 """
 
+from solver.equipment import DEFAULT_SET, carrier_emission_key
 from solver.evaluate import CarrierEvaluation, LeakageAtGap, evaluate_carrier
 from solver.model import (
     Amplifier,
@@ -15,7 +16,9 @@ from solver.model import (
     Coding,
     CurrentSetting,
     Demand,
+    EquipmentProfile,
     Exclusion,
+    ModcodRow,
     Modulation,
     Objective,
     Plan,
@@ -35,6 +38,7 @@ from solver.model import (
 )
 from solver.physics.emission import EmissionKey, SpectrumProfile, get_profile
 from solver.physics.modcod import ModcodEntry, catalogue
+from solver.physics.modcodsets import MODCOD_SET_NAMES
 from solver.planner import solve
 from solver.rules import rule_of_thumb_plan
 from solver.summary import CAUTIONS, SettingChange, setting_change
@@ -44,6 +48,8 @@ from solver.worksize import ConfigurationBound, configuration_bound
 
 __all__ = [
     "CAUTIONS",
+    "DEFAULT_SET",
+    "MODCOD_SET_NAMES",
     "Amplifier",
     "AmplifierModel",
     "Block",
@@ -55,9 +61,11 @@ __all__ = [
     "CurrentSetting",
     "Demand",
     "EmissionKey",
+    "EquipmentProfile",
     "Exclusion",
     "LeakageAtGap",
     "ModcodEntry",
+    "ModcodRow",
     "Modulation",
     "Objective",
     "Plan",
@@ -76,6 +84,7 @@ __all__ = [
     "Verification",
     "Violation",
     "Window",
+    "carrier_emission_key",
     "catalogue",
     "configuration_bound",
     "evaluate_carrier",

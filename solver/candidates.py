@@ -20,25 +20,26 @@ from __future__ import annotations
 import functools
 import math
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import NamedTuple
 
 import numpy as np
 from numpy.typing import NDArray
 
+from solver import equipment
 from solver.model import (
     CarrierConfig,
     CodeRate,
     Coding,
     Demand,
+    EquipmentProfile,
     Modulation,
     Objective,
     Problem,
-    Transmitter,
     format_code_rate,
 )
 from solver.packing.families import Candidate, DemandOptions, Family, mask_guard_per_baud
-from solver.physics import emission, link, modcod
+from solver.physics import distortion, emission, link, modcod
 from solver.verify import INTERFERENCE_ALLOWANCE_DB, LEAKAGE_TOLERANCE_DB
 
 __all__ = [
@@ -51,7 +52,6 @@ __all__ = [
     "build_candidates",
     "candidate_for",
     "candidate_sets",
-    "emission_key",
     "every_family",
     "family_for",
     "family_up_to_target",
@@ -69,7 +69,7 @@ DEFAULT_MAX_PER_DEMAND = 40
 
 @dataclass(frozen=True)
 class _Combos:
-    """Every (catalogue entry, roll-off) pair allowed for a demand, as parallel arrays."""
+    """Every (MODCOD, roll-off, back-off) triple a demand's profile allows, as parallel arrays."""
 
     modulation: tuple[Modulation, ...]
     code_rate: tuple[CodeRate, ...]
@@ -79,6 +79,11 @@ class _Combos:
     rolloff: NDArray[np.float64]
     occupied_per_baud: NDArray[np.float64]
     keys: tuple[emission.EmissionKey, ...]
+    backoff_db: tuple[float | None, ...]
+    esn0_offset_db: NDArray[np.float64]
+    """Es/N0 and level change against the reference back-off (dB)."""
+    evm_pct: NDArray[np.float64]
+    profile: EquipmentProfile
     memo: dict[tuple[str, int, int], float] = field(default_factory=dict, compare=False, repr=False)
     """Guards already looked up, by (rule, combo, level in half dB)."""
 
@@ -87,61 +92,72 @@ class _Combos:
         return len(self.modulation)
 
 
-def emission_key(problem: Problem, modulation: Modulation, rolloff: float) -> emission.EmissionKey:
-    """The spectrum-profile key of a carrier of this problem."""
-    return emission.EmissionKey.for_carrier(problem.transmitter, modulation, rolloff)
-
-
 def _undominated(
-    entries: Sequence[modcod.ModcodEntry], across_modulations: bool
-) -> list[modcod.ModcodEntry]:
+    entries: Sequence[equipment.TableEntry], across_modulations: bool
+) -> list[equipment.TableEntry]:
     """Entries no other entry beats on both efficiency and required Es/N0.
 
     Through an amplifier the spectrum depends on the modulation, so entries only compete with
     entries of the same modulation; with a linear transmitter every entry competes.
     """
-    finite = [e for e in entries if math.isfinite(e.required_esn0_db)]
     kept = []
-    for e in finite:
+    for e in entries:
         beaten = any(
             (across_modulations or o.modulation == e.modulation)
-            and o.spectral_efficiency_bps_per_hz >= e.spectral_efficiency_bps_per_hz
+            and o.net_bits_per_symbol >= e.net_bits_per_symbol
             and o.required_esn0_db <= e.required_esn0_db
             and (
-                o.spectral_efficiency_bps_per_hz > e.spectral_efficiency_bps_per_hz
+                o.net_bits_per_symbol > e.net_bits_per_symbol
                 or o.required_esn0_db < e.required_esn0_db
             )
-            for o in finite
+            for o in entries
         )
         if not beaten:
             kept.append(e)
     return kept
 
 
+def _demand_combos(problem: Problem, demand: Demand) -> _Combos:
+    """The combos of ``demand``'s profile and allowed modulations."""
+    profile = equipment.profile_for(problem, demand)
+    return _combos(problem.coding, profile, tuple(demand.modulations))
+
+
 @functools.lru_cache(maxsize=256)
-def _combos(coding: Coding, tx: Transmitter, modulations: tuple[Modulation, ...]) -> _Combos:
-    """Catalogue × roll-offs, computed once per (coding, transmitter, allowed modulations)."""
-    rows = []
-    entries = _undominated(modcod.catalogue(coding, modulations or None), tx.amplifier is None)
-    emission.warm_profiles(
-        emission.EmissionKey.for_carrier(tx, e.modulation, r) for e in entries for r in tx.rolloffs
+def _combos(
+    coding: Coding, profile: EquipmentProfile, modulations: tuple[Modulation, ...]
+) -> _Combos:
+    """Table × roll-offs × back-offs, computed once per (coding, profile, modulations)."""
+    entries = _undominated(
+        equipment.modcod_table(profile, coding, modulations), profile.amplifier is None
     )
-    for entry in entries:
-        rate = 1.0 if entry.code_rate is None else float(entry.code_rate)
-        net = entry.bits_per_symbol * rate * (1.0 - coding.framing_overhead)
-        for rolloff in tx.rolloffs:
-            key = emission.EmissionKey.for_carrier(tx, entry.modulation, rolloff)
-            occupied = emission.get_profile(key).occupied_bandwidth()
-            rows.append((entry, net, rolloff, key, occupied))
+    rows = []
+    for option in equipment.backoff_options(profile):
+        tx = equipment.transmitter_at(profile, option.output_backoff_db)
+        keys = {
+            (e.modulation, r): emission.EmissionKey.for_carrier(tx, e.modulation, r)
+            for e in entries
+            for r in profile.rolloffs
+        }
+        emission.warm_profiles(keys.values())
+        for entry in entries:
+            for rolloff in profile.rolloffs:
+                key = keys[entry.modulation, rolloff]
+                occupied = emission.get_profile(key).occupied_bandwidth()
+                rows.append((entry, rolloff, key, occupied, option))
     return _Combos(
         modulation=tuple(r[0].modulation for r in rows),
         code_rate=tuple(r[0].code_rate for r in rows),
         bits_per_symbol=np.array([r[0].bits_per_symbol for r in rows], dtype=np.int64),
-        net_bits_per_symbol=np.array([r[1] for r in rows]),
+        net_bits_per_symbol=np.array([r[0].net_bits_per_symbol for r in rows]),
         required_esn0_db=np.array([r[0].required_esn0_db for r in rows]),
-        rolloff=np.array([r[2] for r in rows]),
-        occupied_per_baud=np.array([r[4] for r in rows]),
-        keys=tuple(r[3] for r in rows),
+        rolloff=np.array([r[1] for r in rows]),
+        occupied_per_baud=np.array([r[3] for r in rows]),
+        keys=tuple(r[2] for r in rows),
+        backoff_db=tuple(r[4].output_backoff_db for r in rows),
+        esn0_offset_db=np.array([r[4].esn0_offset_db for r in rows]),
+        evm_pct=np.array([r[4].evm_pct for r in rows]),
+        profile=profile,
     )
 
 
@@ -189,21 +205,51 @@ def _profile(combos: _Combos, index: int) -> emission.SpectrumProfile:
     return emission.get_profile(combos.keys[index])
 
 
-def _max_symbol_rate_baud(
-    demand: Demand, required_esn0_db: NDArray[np.float64]
+_THERMAL_NEEDED = np.vectorize(distortion.thermal_esn0_needed_db, otypes=[float])
+
+
+def _link_limit_baud(demand: Demand, combos: _Combos) -> NDArray[np.float64]:
+    """Largest symbol rate at which each combo still closes the link with the demand's margin:
+    its effective Es/N0 (thermal and error-vector floor, :func:`_esn0_db`) at least the
+    threshold plus the margin, and inside the profile's symbol-rate range."""
+    needed = combos.required_esn0_db + demand.margin_db
+    thermal_needed = np.asarray(_THERMAL_NEEDED(needed, combos.evm_pct), dtype=np.float64)
+    top = combos.profile.symbol_rate_max_baud
+    if demand.cn0_dbhz is not None:
+        over = demand.cn0_dbhz + combos.esn0_offset_db - thermal_needed
+        return np.minimum(np.asarray(10.0 ** (over / 10.0)), top)
+    esn0 = demand.esn0_db if demand.esn0_db is not None else -math.inf
+    closes = esn0 + combos.esn0_offset_db >= thermal_needed - 1e-9
+    return np.where(closes, top, 0.0)
+
+
+def _rate_range(demand: Demand, combos: _Combos) -> tuple[NDArray[np.float64], ...]:
+    """Per combo: the least symbol rate on the profile's grid that carries the minimum rate,
+    and the highest on the grid up to the target's and the link's limit."""
+    net, profile = combos.net_bits_per_symbol, combos.profile
+    step = profile.symbol_rate_step_baud
+    low = np.maximum(demand.min_rate_bps / net, profile.symbol_rate_min_baud)
+    high = np.minimum(demand.target_rate_bps / net, _link_limit_baud(demand, combos))
+    return equipment.grid_ceil(low, step), np.maximum(equipment.grid_floor(high, step), 0.0)
+
+
+def _thermal_db(
+    demand: Demand, combos: _Combos, idx: NDArray[np.int64], rate_baud: NDArray[np.float64]
 ) -> NDArray[np.float64]:
-    """Largest symbol rate at which each combo still closes the link with the demand's margin."""
+    """Es/N0 (dB) from thermal noise of combos ``idx`` at ``rate_baud``."""
+    offset = combos.esn0_offset_db[idx]
     if demand.cn0_dbhz is not None:
-        return np.asarray(10.0 ** ((demand.cn0_dbhz - required_esn0_db - demand.margin_db) / 10.0))
+        return np.asarray(demand.cn0_dbhz + offset - 10.0 * np.log10(rate_baud))
     esn0 = demand.esn0_db if demand.esn0_db is not None else -math.inf
-    return np.where(esn0 - required_esn0_db >= demand.margin_db, np.inf, 0.0)
+    return np.asarray(np.full_like(rate_baud, esn0) + offset)
 
 
-def _esn0_db(demand: Demand, symbol_rate_baud: NDArray[np.float64]) -> NDArray[np.float64]:
-    if demand.cn0_dbhz is not None:
-        return np.asarray(demand.cn0_dbhz - 10.0 * np.log10(symbol_rate_baud))
-    esn0 = demand.esn0_db if demand.esn0_db is not None else -math.inf
-    return np.full_like(symbol_rate_baud, esn0)
+def _esn0_db(
+    demand: Demand, combos: _Combos, idx: NDArray[np.int64], rate_baud: NDArray[np.float64]
+) -> NDArray[np.float64]:
+    """Effective Es/N0 (dB) of combos ``idx`` at ``rate_baud``: thermal and error floor."""
+    thermal = _thermal_db(demand, combos, idx, rate_baud)
+    return np.asarray(distortion.effective_esn0_db(thermal, combos.evm_pct[idx]))
 
 
 def _even_units(width_hz: NDArray[np.float64], raster_hz: float) -> NDArray[np.int64]:
@@ -219,10 +265,9 @@ class _Grid(NamedTuple):
 
 def _width_grid(combos: _Combos, demand: Demand, raster_hz: float, max_width_hz: float) -> _Grid:
     """All (combo, width) pairs between the minimum rate and min(target, link limit)."""
-    net, alpha = combos.net_bits_per_symbol, combos.rolloff
-    rs_link = _max_symbol_rate_baud(demand, combos.required_esn0_db)
-    rs_min = demand.min_rate_bps / net
-    rs_hi = np.minimum(demand.target_rate_bps / net, rs_link)
+    step = combos.profile.symbol_rate_step_baud
+    alpha = combos.rolloff
+    rs_min, rs_hi = _rate_range(demand, combos)
     ok = (rs_hi >= rs_min * (1 - 1e-12)) & (rs_min * (1 + alpha) <= max_width_hz)
     idx = np.flatnonzero(ok)
     if idx.size == 0:
@@ -238,7 +283,7 @@ def _width_grid(combos: _Combos, demand: Demand, raster_hz: float, max_width_hz:
     keep = np.unique(combo_index * (int(width_units.max()) + 1) + width_units, return_index=True)[1]
     combo_index, width_units = combo_index[keep], width_units[keep]
     fill_rate = width_units * raster_hz / (1 + alpha[combo_index])
-    rs = np.minimum(fill_rate, rs_hi[combo_index])
+    rs = equipment.grid_floor(np.minimum(fill_rate, rs_hi[combo_index]), step)
     return _Grid(combo_index, width_units, np.maximum(rs, rs_min[combo_index]))
 
 
@@ -266,7 +311,7 @@ def _immunity_limit_db(
     esn0_db: NDArray[np.float64],
     margin_db: NDArray[np.float64],
     demand: Demand,
-    weakest_gap_db: float,
+    weakest_gap_db: float | NDArray[np.float64],
 ) -> NDArray[np.float64]:
     """Leakage ratio the neighbours must keep so interference costs at most the allowance.
 
@@ -315,7 +360,7 @@ def _discrete_candidates(
         Candidates sorted by increasing throughput; empty with a reason when none closes.
     """
     raster = problem.block.raster_hz
-    combos = _combos(problem.coding, problem.transmitter, tuple(demand.modulations))
+    combos = _demand_combos(problem, demand)
     widest = problem.block.width_hz if max_width_hz is None else max_width_hz
     grid = _width_grid(combos, demand, raster, widest)
     if grid.width_units.size == 0:
@@ -389,7 +434,7 @@ class _Basis(NamedTuple):
 
 
 def _basis(problem: Problem, demand: Demand, widest_hz: float, min_limit_db: float) -> _Basis:
-    combos = _combos(problem.coding, problem.transmitter, tuple(demand.modulations))
+    combos = _demand_combos(problem, demand)
     span = _family_span(combos, demand, problem.block.raster_hz, widest_hz)
     if span.combo_index.size == 0:
         return _Basis(combos, span, None)
@@ -431,6 +476,7 @@ class _Guards(NamedTuple):
     symbol_rate_baud: NDArray[np.float64]
     throughput_bps: NDArray[np.float64]
     esn0_db: NDArray[np.float64]
+    thermal_db: NDArray[np.float64]
     margin_db: NDArray[np.float64]
     sensitivity_db: NDArray[np.float64]
     leakage_guard_per_baud: NDArray[np.float64]
@@ -448,9 +494,10 @@ def _guards(
     min_limit_db: float,
 ) -> _Guards:
     """Es/N0, margin, sensitivity and guards (leakage limit or own mask, whichever is wider)."""
-    esn0 = _esn0_db(demand, rs)
+    thermal = _thermal_db(demand, combos, idx, rs)
+    esn0 = np.asarray(distortion.effective_esn0_db(thermal, combos.evm_pct[idx]))
     margin = esn0 - combos.required_esn0_db[idx]
-    weakest = _weakest_gap_db(problem, demand)
+    weakest = _weakest_gap_db(problem, demand) - combos.esn0_offset_db[idx]
     floor = max(problem.leakage_limit_db, min_limit_db)
     sensitivity = _immunity_limit_db(esn0, margin, demand, weakest)
     leak_per_baud = _guard_per_baud(combos, idx, np.full(idx.size, floor))
@@ -459,7 +506,7 @@ def _guards(
     usable = np.isfinite(guard) & np.isfinite(edge)
     throughput = rs * combos.net_bits_per_symbol[idx]
     return _Guards(
-        idx, rs, throughput, esn0, margin, sensitivity, leak_per_baud, guard, edge, usable
+        idx, rs, throughput, esn0, thermal, margin, sensitivity, leak_per_baud, guard, edge, usable
     )
 
 
@@ -490,6 +537,10 @@ def _family(
         throughput_bps=float(g.throughput_bps[i]),
         esn0_db=float(g.esn0_db[i]),
         required_esn0_db=float(combos.required_esn0_db[c]),
+        profile=combos.profile.name,
+        output_backoff_db=combos.backoff_db[c],
+        evm_pct=float(combos.evm_pct[c]),
+        thermal_esn0_db=float(g.thermal_db[i]),
     )
     top = Candidate.on_raster(config, 2 * hi_half, raster)
     return Family(
@@ -501,6 +552,7 @@ def _family(
         sensitivity_db=float(g.sensitivity_db[i]),
         leakage_guard_per_baud=float(g.leakage_guard_per_baud[i]),
         key=combos.keys[c],
+        symbol_rate_step_baud=combos.profile.symbol_rate_step_baud,
     )
 
 
@@ -518,12 +570,11 @@ def _family_span(combos: _Combos, demand: Demand, raster_hz: float, max_width_hz
     every family can reach its target); the symbol rate then scales with the half-width, so
     a carrier fills its slot but for less than one even raster step.
     """
-    net, alpha = combos.net_bits_per_symbol, combos.rolloff
-    rs_min = demand.min_rate_bps / net
-    rs_hi = np.minimum(  # never wider than the block: a family of astronomical width has none
-        np.minimum(demand.target_rate_bps / net, max_width_hz / (1 + alpha)),
-        _max_symbol_rate_baud(demand, combos.required_esn0_db),
-    )
+    alpha = combos.rolloff
+    rs_min, rs_hi = _rate_range(demand, combos)
+    # never wider than the block: a family of astronomical width has none
+    widest = equipment.grid_floor(max_width_hz / (1 + alpha), combos.profile.symbol_rate_step_baud)
+    rs_hi = np.minimum(rs_hi, widest)
     step = 2.0 * raster_hz / (1 + alpha)  # symbol rate that fills one half-width unit
     ok = (rs_hi >= rs_min * (1 - 1e-12)) & (rs_min * (1 + alpha) <= max_width_hz)
     hi = np.ceil(np.where(ok, rs_hi, 1.0) / step - 1e-9).astype(np.int64)
@@ -616,13 +667,16 @@ def candidate_for(
     code_rate: CodeRate,
     rolloff: float,
     symbol_rate_baud: float,
+    *,
+    output_backoff_db: float | None = None,
 ) -> Candidate | None:
     """The candidate for one exact configuration, or None when it no longer serves the demand.
 
     Used for replans: a carrier may stay as it is only if its link still closes with the
     demand's margin and it still carries the minimum rate.
     """
-    fam = family_for(problem, demand, modulation, code_rate, rolloff, symbol_rate_baud)
+    settings = (modulation, code_rate, rolloff, symbol_rate_baud)
+    fam = family_for(problem, demand, *settings, output_backoff_db=output_backoff_db)
     return None if fam is None else fam.top
 
 
@@ -634,31 +688,42 @@ def family_for(
     rolloff: float,
     symbol_rate_baud: float,
     strongest_level_db: float | None = None,
+    *,
+    output_backoff_db: float | None = None,
 ) -> Family | None:
     """:func:`candidate_for` as a single-width :class:`Family` that knows its spectrum, its
     sensitivity and its leakage guard (so its neighbours can be spaced from the pair).
 
-    ``strongest_level_db`` is the highest ``relative_level_db`` among the problem's demands
-    (found here when not given; callers with many carriers pass it once)."""
-    entry = modcod.required_esn0_db(modulation, code_rate, problem.coding)
+    ``strongest_level_db`` is the highest level among the problem's carriers
+    (:func:`solver.equipment.strongest_level_db`, found here when not given; callers with many
+    carriers pass it once); ``output_backoff_db`` the amplifier's (None: the profile's
+    reference).  A MODCOD outside the profile's table takes the physics core's threshold (a
+    replan's carrier runs it today)."""
+    profile = equipment.profile_for(problem, demand)
+    entry = _threshold_db(problem, profile, modulation, code_rate)
+    option = equipment.backoff_option(profile, output_backoff_db)
     if not math.isfinite(entry):
         return None
-    bits = modcod.constellation(modulation).bits_per_symbol
-    throughput = link.throughput_bps(
-        symbol_rate_baud, bits, code_rate, problem.coding.framing_overhead
-    )
-    esn0 = float(_esn0_db(demand, np.array([symbol_rate_baud]))[0])
+    net = _net_bits(problem, profile, modulation, code_rate)
+    throughput = symbol_rate_baud * net
+    thermal = (
+        demand.cn0_dbhz - 10.0 * math.log10(symbol_rate_baud)
+        if demand.cn0_dbhz is not None
+        else (demand.esn0_db if demand.esn0_db is not None else -math.inf)
+    ) + option.esn0_offset_db
+    esn0 = float(distortion.effective_esn0_db(thermal, option.evm_pct))
     if throughput < demand.min_rate_bps * (1 - 1e-9) or esn0 - entry < demand.margin_db:
         return None
-    key = emission_key(problem, modulation, rolloff)
-    profile = emission.get_profile(key)
-    weakest = _weakest_gap_db(problem, demand, strongest_level_db)
+    tx = equipment.transmitter_at(profile, option.output_backoff_db)
+    key = emission.EmissionKey.for_carrier(tx, modulation, rolloff)
+    spectrum = emission.get_profile(key)
+    weakest = _weakest_gap_db(problem, demand, strongest_level_db) - option.esn0_offset_db
     immunity = float(
         _immunity_limit_db(np.array([esn0]), np.array([esn0 - entry]), demand, weakest)[0]
     )
-    leak_per_baud = profile.guard_needed(problem.leakage_limit_db)
+    leak_per_baud = spectrum.guard_needed(problem.leakage_limit_db)
     guard = max(leak_per_baud, mask_guard_per_baud(key, immunity)) * symbol_rate_baud
-    edge = profile.guard_needed(problem.edge_limit_db) * symbol_rate_baud
+    edge = spectrum.guard_needed(problem.edge_limit_db) * symbol_rate_baud
     if not (math.isfinite(guard) and math.isfinite(edge)):
         return None
     config = CarrierConfig(
@@ -667,26 +732,57 @@ def family_for(
         code_rate=code_rate,
         rolloff=rolloff,
         symbol_rate_baud=symbol_rate_baud,
-        bits_per_symbol=bits,
+        bits_per_symbol=modcod.constellation(modulation).bits_per_symbol,
         allocated_bandwidth_hz=symbol_rate_baud * (1 + rolloff),
-        occupied_bandwidth_hz=symbol_rate_baud * profile.occupied_bandwidth(),
+        occupied_bandwidth_hz=symbol_rate_baud * spectrum.occupied_bandwidth(),
         guard_hz=guard,
         edge_guard_hz=edge,
         throughput_bps=throughput,
         esn0_db=esn0,
         required_esn0_db=entry,
+        profile=profile.name,
+        output_backoff_db=option.output_backoff_db,
+        evm_pct=option.evm_pct,
+        thermal_esn0_db=thermal,
     )
     return _single_family(problem, demand, config, key, immunity, leak_per_baud)
+
+
+def _table_entry(
+    problem: Problem, profile: EquipmentProfile, modulation: Modulation, code_rate: CodeRate
+) -> equipment.TableEntry | None:
+    table = equipment.modcod_table(profile, problem.coding)
+    return next((e for e in table if e.modulation == modulation and e.code_rate == code_rate), None)
+
+
+def _threshold_db(
+    problem: Problem, profile: EquipmentProfile, modulation: Modulation, code_rate: CodeRate
+) -> float:
+    """The profile table's threshold of a MODCOD, else the physics core's."""
+    entry = _table_entry(problem, profile, modulation, code_rate)
+    if entry is not None:
+        return entry.required_esn0_db
+    coding = replace(problem.coding, implementation_loss_db=profile.implementation_loss_db)
+    return modcod.required_esn0_db(modulation, code_rate, coding)
+
+
+def _net_bits(
+    problem: Problem, profile: EquipmentProfile, modulation: Modulation, code_rate: CodeRate
+) -> float:
+    """Information bits per symbol of a MODCOD: the table's, else after the request's framing."""
+    entry = _table_entry(problem, profile, modulation, code_rate)
+    if entry is not None:
+        return entry.net_bits_per_symbol
+    bits = modcod.constellation(modulation).bits_per_symbol
+    return link.throughput_bps(1.0, bits, code_rate, problem.coding.framing_overhead)
 
 
 def _weakest_gap_db(
     problem: Problem, demand: Demand, strongest_level_db: float | None = None
 ) -> float:
-    """How far (dB) ``demand`` sits below the strongest demand's relative level."""
+    """How far (dB) ``demand``, at its reference back-off, sits below the strongest carrier."""
     strongest = (
-        max(d.relative_level_db for d in problem.demands)
-        if strongest_level_db is None
-        else strongest_level_db
+        equipment.strongest_level_db(problem) if strongest_level_db is None else strongest_level_db
     )
     return strongest - demand.relative_level_db
 
@@ -712,6 +808,7 @@ def _single_family(
         sensitivity_db=sensitivity_db,
         leakage_guard_per_baud=leakage_guard_per_baud,
         key=key,
+        symbol_rate_step_baud=equipment.profile_for(problem, demand).symbol_rate_step_baud,
     )
 
 
@@ -719,11 +816,24 @@ def family_up_to_target(problem: Problem, demand: Demand, config: CarrierConfig)
     """``config``'s settings as a family from its own symbol rate up to the one that carries
     the demand's target, or the link's limit if lower (None when the link does not close)."""
     net = config.throughput_bps / config.symbol_rate_baud
-    limit = float(_max_symbol_rate_baud(demand, np.array([config.required_esn0_db]))[0])
-    top = max(min(demand.target_rate_bps / net, limit), config.symbol_rate_baud)
+    profile = equipment.profile_for(problem, demand)
+    needed = config.required_esn0_db + demand.margin_db
+    thermal_needed = float(distortion.thermal_esn0_needed_db(needed, config.evm_pct))
+    thermal = config.esn0_db if config.thermal_esn0_db is None else config.thermal_esn0_db
+    limit = (
+        config.symbol_rate_baud * 10.0 ** ((thermal - thermal_needed) / 10.0)
+        if demand.cn0_dbhz is not None
+        else math.inf
+    )
+    wanted = min(demand.target_rate_bps / net, limit, profile.symbol_rate_max_baud)
+    top = max(
+        float(equipment.grid_floor(np.array([wanted]), profile.symbol_rate_step_baud)[0]),
+        config.symbol_rate_baud,
+    )
     settings = (config.modulation, config.code_rate, config.rolloff)
-    return family_for(problem, demand, *settings, top) or family_for(
-        problem, demand, *settings, config.symbol_rate_baud
+    backoff = config.output_backoff_db
+    return family_for(problem, demand, *settings, top, output_backoff_db=backoff) or family_for(
+        problem, demand, *settings, config.symbol_rate_baud, output_backoff_db=backoff
     )
 
 
@@ -812,9 +922,9 @@ def every_family(problem: Problem, demand: Demand) -> tuple[Family, ...]:
 def least_width_hz(problem: Problem, demand: Demand) -> float:
     """The narrowest allocation any configuration needs for the minimum rate with the link
     closed (Hz; inf when none closes)."""
-    combos = _combos(problem.coding, problem.transmitter, tuple(demand.modulations))
-    rs_min = demand.min_rate_bps / combos.net_bits_per_symbol
-    closes = rs_min <= _max_symbol_rate_baud(demand, combos.required_esn0_db) * (1 + 1e-12)
+    combos = _demand_combos(problem, demand)
+    rs_min, _ = _rate_range(demand, combos)
+    closes = rs_min <= _link_limit_baud(demand, combos) * (1 + 1e-12)
     widths = np.where(closes, rs_min * (1 + combos.rolloff), np.inf)
     return float(widths.min(initial=np.inf))
 
@@ -822,9 +932,10 @@ def least_width_hz(problem: Problem, demand: Demand) -> float:
 def best_margin_db(problem: Problem, demand: Demand, max_width_hz: float) -> float:
     """The most link margin beyond the demand's own any configuration can have at the
     minimum rate within ``max_width_hz``, before interference (dB; -inf when none closes)."""
-    combos = _combos(problem.coding, problem.transmitter, tuple(demand.modulations))
-    rs_min = demand.min_rate_bps / combos.net_bits_per_symbol
-    margin = _esn0_db(demand, rs_min) - combos.required_esn0_db - demand.margin_db
+    combos = _demand_combos(problem, demand)
+    rs_min, _ = _rate_range(demand, combos)
+    every = np.arange(combos.size)
+    margin = _esn0_db(demand, combos, every, rs_min) - combos.required_esn0_db - demand.margin_db
     fits = (rs_min * (1 + combos.rolloff) <= max_width_hz) & (margin >= -1e-9)
     return float(np.where(fits, margin, -np.inf).max(initial=-np.inf))
 
@@ -838,11 +949,11 @@ def narrowest_at_min_rate(problem: Problem, demand: Demand, count: int) -> list[
     demand's margin) that carry the minimum rate in the least spectrum, allocated width plus
     guard, narrowest first: every combination is sized at once, and only the shortlist is
     made into candidates (:func:`candidate_for`, as a replan checks one)."""
-    combos = _combos(problem.coding, problem.transmitter, tuple(demand.modulations))
+    combos = _demand_combos(problem, demand)
     if combos.size == 0:
         return []
-    rate = np.maximum(demand.min_rate_bps / combos.net_bits_per_symbol, LEAST_SYMBOL_RATE_BAUD)
-    closes = rate <= _max_symbol_rate_baud(demand, combos.required_esn0_db) * (1 + 1e-12)
+    rate = np.maximum(_rate_range(demand, combos)[0], LEAST_SYMBOL_RATE_BAUD)
+    closes = rate <= _link_limit_baud(demand, combos) * (1 + 1e-12)
     idx = np.flatnonzero(closes)
     if idx.size == 0:
         return []
@@ -860,6 +971,7 @@ def narrowest_at_min_rate(problem: Problem, demand: Demand, count: int) -> list[
                 combos.code_rate[i],
                 float(combos.rolloff[i]),
                 float(rate[i]),
+                output_backoff_db=combos.backoff_db[i],
             )
         )
         is not None

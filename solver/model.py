@@ -22,7 +22,9 @@ __all__ = [
     "Coding",
     "CurrentSetting",
     "Demand",
+    "EquipmentProfile",
     "Exclusion",
+    "ModcodRow",
     "Modulation",
     "Objective",
     "Plan",
@@ -172,6 +174,76 @@ class Transmitter:
 
 
 @dataclass(frozen=True)
+class ModcodRow:
+    """One entry of an equipment's own MODCOD table.
+
+    ``required_esn0_db`` is the threshold from the modem's data sheet (dB Es/N0 at the block
+    error rate the sheet states), used exactly; ``None`` lets the physics core compute it from
+    the request's coding assumptions.  ``spectral_efficiency`` is the information bits per
+    symbol after the equipment's own framing; ``None`` means log2 M · r · (1 − framing overhead).
+    """
+
+    modulation: Modulation
+    code_rate: CodeRate
+    required_esn0_db: float | None = None
+    spectral_efficiency: float | None = None
+    label: str = ""
+    ring_ratios: tuple[float, ...] = ()
+    """APSK ring-radius ratios for this code rate (empty: the catalogue's geometry)."""
+
+
+@dataclass(frozen=True)
+class EquipmentProfile:
+    """What one kind of radio can be set to.
+
+    Attributes
+    ----------
+    name : str
+        How demands refer to it (``Demand.profile``).
+    modcod_set : str
+        A named MODCOD set (:data:`solver.physics.modcodsets.MODCOD_SET_NAMES`), used when
+        ``modcods`` is empty.
+    modcods : tuple of ModcodRow
+        The equipment's own table; replaces the named set when given.
+    symbol_rate_min_baud, symbol_rate_max_baud, symbol_rate_step_baud : float
+        The symbol rates the equipment offers: multiples of the step (0: any rate) inside the
+        range.
+    tx_evm_pct, rx_evm_pct : float
+        Error-vector floors (% rms) of the transmitter (before its amplifier) and the receiver.
+    implementation_loss_db : float
+        Added to every threshold the physics core computes for this equipment.
+    rolloffs, filter_span_symbols, window, amplifier
+        As in :class:`Transmitter`.
+    output_backoffs_db : tuple of float
+        Amplifier output back-offs the optimiser may choose from, per carrier (empty: the
+        amplifier's own ``output_backoff_db`` only).
+    reference_backoff_db : float or None
+        The back-off at which demands state their C/N0 or Es/N0 and their relative level
+        (``None``: the amplifier's ``output_backoff_db``).
+    amplifier_distortion : bool
+        Whether the amplifier's in-band distortion joins the error-vector floor (a request that
+        names no profile keeps the link model it had before profiles: no).
+    """
+
+    name: str
+    modcod_set: str = "standard"
+    modcods: tuple[ModcodRow, ...] = ()
+    symbol_rate_min_baud: float = 0.0
+    symbol_rate_max_baud: float = math.inf
+    symbol_rate_step_baud: float = 0.0
+    tx_evm_pct: float = 0.0
+    rx_evm_pct: float = 0.0
+    implementation_loss_db: float = 1.0
+    rolloffs: tuple[float, ...] = (0.05, 0.10, 0.15, 0.20, 0.25, 0.35)
+    filter_span_symbols: int = 12
+    window: Window = Window.NONE
+    amplifier: Amplifier | None = None
+    output_backoffs_db: tuple[float, ...] = ()
+    reference_backoff_db: float | None = None
+    amplifier_distortion: bool = True
+
+
+@dataclass(frozen=True)
 class Coding:
     """Forward-error-correction assumptions used for the coded thresholds.
 
@@ -231,6 +303,8 @@ class CurrentSetting:
     rolloff: float
     modulation: Modulation
     code_rate: CodeRate
+    output_backoff_db: float | None = None
+    """The amplifier back-off it runs at (None: the profile's reference back-off)."""
 
 
 @dataclass(frozen=True)
@@ -254,6 +328,8 @@ class Demand:
     relative_level_db: float = 0.0
     pinned_center_hz: float | None = None
     current: CurrentSetting | None = None
+    profile: str = ""
+    """The equipment profile's name (empty: the request's transmitter and coding)."""
 
 
 @dataclass(frozen=True)
@@ -275,6 +351,7 @@ class Problem:
     time_limit_s: float = 10.0
     num_workers: int = 2
     seed: int = 1
+    profiles: tuple[EquipmentProfile, ...] = ()
 
     @property
     def edge_limit_db(self) -> float:
@@ -298,7 +375,15 @@ class CarrierConfig:
     edge_guard_hz: float
     throughput_bps: float
     esn0_db: float
+    """Effective Es/N0 (dB): thermal noise and the error-vector floor together."""
     required_esn0_db: float
+    profile: str = ""
+    output_backoff_db: float | None = None
+    """The amplifier back-off it runs at (None: linear transmitter)."""
+    evm_pct: float = 0.0
+    """Error-vector floor (% rms): transmitter, amplifier distortion and receiver together."""
+    thermal_esn0_db: float | None = None
+    """Es/N0 (dB) from thermal noise alone (None: equal to ``esn0_db``, no error floor)."""
 
     @property
     def margin_db(self) -> float:

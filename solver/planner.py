@@ -17,6 +17,7 @@ import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 
+from solver import equipment
 from solver.candidates import (
     Candidate,
     DemandOptions,
@@ -485,7 +486,7 @@ def _staying(
     ones, they pass verification together (an unchanged request keeps its plan); otherwise
     highest priority first, each while it keeps the guard rule beside those kept."""
     current: list[FixedCarrier] = []
-    strongest = max(d.relative_level_db for d in problem.demands)
+    strongest = equipment.strongest_level_db(problem)
     for demand in sorted(problem.demands, key=lambda d: (-d.priority, d.id)):
         cur = demand.current
         if cur is None or demand.pinned_center_hz is not None:
@@ -498,6 +499,7 @@ def _staying(
             cur.rolloff,
             cur.symbol_rate_baud,
             strongest,
+            output_backoff_db=cur.output_backoff_db,
         )
         if fam is not None:
             current.append(

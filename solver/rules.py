@@ -19,6 +19,9 @@ from __future__ import annotations
 import math
 import time
 
+import numpy as np
+
+from solver import equipment
 from solver.candidates import candidate_for
 from solver.model import (
     Carrier,
@@ -31,7 +34,6 @@ from solver.model import (
     Unserved,
     UnservedReason,
 )
-from solver.physics import modcod
 from solver.repair import drop_until_passing, dropped_notice
 from solver.summary import CAUTIONS, summarise, with_guards
 from solver.validation import validate_problem
@@ -48,17 +50,18 @@ HAND_GUARD_FRACTION = 0.10
 
 def _hand_config(problem: Problem, demand: Demand) -> CarrierConfig | None:
     """Highest-efficiency entry that closes at the target rate, else the most throughput."""
-    overhead = problem.coding.framing_overhead
     best: tuple[float, CarrierConfig] | None = None
-    entries = modcod.catalogue(problem.coding, demand.modulations or None)
-    for entry in sorted(entries, key=lambda e: -e.spectral_efficiency_bps_per_hz):
-        if not math.isfinite(entry.required_esn0_db):
-            continue
-        net = entry.spectral_efficiency_bps_per_hz * (1 - overhead)
-        rs = demand.target_rate_bps / net
+    profile = equipment.profile_for(problem, demand)
+    entries = equipment.modcod_table(profile, problem.coding, tuple(demand.modulations))
+    step = profile.symbol_rate_step_baud
+    for entry in sorted(entries, key=lambda e: -e.net_bits_per_symbol):
+        rs = min(demand.target_rate_bps / entry.net_bits_per_symbol, profile.symbol_rate_max_baud)
         if demand.cn0_dbhz is not None:
             closing = 10 ** ((demand.cn0_dbhz - entry.required_esn0_db - demand.margin_db) / 10)
             rs = min(rs, closing)
+        rs = float(equipment.grid_floor(np.array([rs]), step)[0])
+        if rs <= 0:
+            continue
         cand = candidate_for(problem, demand, entry.modulation, entry.code_rate, HAND_ROLLOFF, rs)
         if cand is None:
             continue

@@ -7,6 +7,7 @@ import math
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
 
+from solver import equipment
 from solver.candidates import DemandOptions, family_for
 from solver.geometry import free_segments_hz
 from solver.model import (
@@ -133,7 +134,7 @@ def with_guards(problem: Problem, carriers: Sequence[Carrier]) -> list[Carrier]:
     every plan, whichever stage of the planner chose it.
     """
     demands = {d.id: d for d in problem.demands}
-    strongest = max((d.relative_level_db for d in problem.demands), default=0.0)
+    strongest = equipment.strongest_level_db(problem)
     settled = (_settled(problem, demands.get(c.demand_id), c, strongest) for c in carriers)
     ordered = sorted(settled, key=lambda c: c.center_hz)
     out = []
@@ -165,6 +166,7 @@ def _settled(
         cfg.rolloff,
         cfg.symbol_rate_baud,
         strongest_db,
+        output_backoff_db=cfg.output_backoff_db,
     )
     if fam is None:
         return carrier
@@ -235,7 +237,7 @@ def setting_change(before: CurrentSetting, after: CurrentSetting) -> SettingChan
     SettingChange
         Whether the centre moved (beyond :data:`SAME_CENTER_TOLERANCE_HZ`, Hz) and whether the
         configuration changed (symbol rate and roll-off beyond the relative
-        :data:`SAME_RATE_TOLERANCE`; modulation and code rate exactly).
+        :data:`SAME_RATE_TOLERANCE`; modulation, code rate and a stated back-off exactly).
 
     Examples
     --------
@@ -253,6 +255,11 @@ def setting_change(before: CurrentSetting, after: CurrentSetting) -> SettingChan
         and math.isclose(
             after.symbol_rate_baud, before.symbol_rate_baud, rel_tol=SAME_RATE_TOLERANCE
         )
+        and (
+            before.output_backoff_db is None
+            or after.output_backoff_db is None
+            or math.isclose(after.output_backoff_db, before.output_backoff_db, abs_tol=1e-9)
+        )
     )
     return SettingChange(moved, reconfigured)
 
@@ -260,7 +267,12 @@ def setting_change(before: CurrentSetting, after: CurrentSetting) -> SettingChan
 def _setting(carrier: Carrier) -> CurrentSetting:
     cfg = carrier.config
     return CurrentSetting(
-        carrier.center_hz, cfg.symbol_rate_baud, cfg.rolloff, cfg.modulation, cfg.code_rate
+        carrier.center_hz,
+        cfg.symbol_rate_baud,
+        cfg.rolloff,
+        cfg.modulation,
+        cfg.code_rate,
+        cfg.output_backoff_db,
     )
 
 

@@ -10,9 +10,13 @@ from __future__ import annotations
 
 import math
 
-from solver.model import Block, Coding, Demand, Problem, ProblemError, Transmitter
+from solver.model import Block, Coding, Demand, EquipmentProfile, Problem, ProblemError, Transmitter
+from solver.physics.modcodsets import MODCOD_SET_NAMES
 
 __all__ = ["MAX_TIME_LIMIT_S", "MIN_S_PER_DEMAND", "validate_problem"]
+
+MAX_BACKOFF_DB = 30.0
+"""The deepest amplifier output back-off a request may state."""
 
 MAX_TIME_LIMIT_S = 300.0
 """Longest solve a single request may ask for."""
@@ -76,25 +80,85 @@ def _check_block(block: Block) -> None:
         previous_stop = x.stop_hz
 
 
-def _check_transmitter(tx: Transmitter) -> None:
+def _check_transmitter(tx: Transmitter | EquipmentProfile, where: str = "transmitter") -> None:
     _require(
         2 <= tx.filter_span_symbols <= 256,
-        "transmitter.filter_span_symbols",
+        f"{where}.filter_span_symbols",
         f"{tx.filter_span_symbols} must be between 2 and 256",
     )
-    _require(bool(tx.rolloffs), "transmitter.rolloffs", "at least one roll-off is needed")
+    _require(bool(tx.rolloffs), f"{where}.rolloffs", "at least one roll-off is needed")
     for i, a in enumerate(tx.rolloffs):
-        _require(0.0 < a <= 1.0, f"transmitter.rolloffs[{i}]", f"{a} must lie in (0, 1]")
+        _require(0.0 < a <= 1.0, f"{where}.rolloffs[{i}]", f"{a} must lie in (0, 1]")
     if tx.amplifier is not None:
         _require(
             tx.amplifier.smoothness >= 0.1,
-            "transmitter.amplifier.smoothness",
+            f"{where}.amplifier.smoothness",
             f"{tx.amplifier.smoothness} must be at least 0.1 (Rapp p; 1 to 10 is usual)",
         )
+        _check_backoff(tx.amplifier.output_backoff_db, f"{where}.amplifier.output_backoff_db")
+
+
+def _check_backoff(backoff_db: float, field_name: str) -> None:
+    _require(
+        math.isfinite(backoff_db) and 0.0 < backoff_db <= MAX_BACKOFF_DB,
+        field_name,
+        f"{backoff_db} must lie in (0, {MAX_BACKOFF_DB:g}] dB",
+    )
+
+
+def _check_profile(i: int, p: EquipmentProfile) -> None:
+    where = f"profiles[{i}]"
+    _require(bool(p.name.strip()), f"{where}.name", "must not be empty")
+    _check_transmitter(p, where)
+    if not p.modcods:
         _require(
-            0.0 <= tx.amplifier.output_backoff_db <= 30.0,
-            "transmitter.amplifier.output_backoff_db",
-            f"{tx.amplifier.output_backoff_db} must lie between 0 and 30 dB",
+            p.modcod_set in MODCOD_SET_NAMES,
+            f"{where}.modcod_set",
+            f"{p.modcod_set!r} is not one of {', '.join(MODCOD_SET_NAMES)}",
+        )
+    for k, row in enumerate(p.modcods):
+        if row.required_esn0_db is not None:
+            _finite(row.required_esn0_db, f"{where}.modcods[{k}].required_esn0_db")
+        if row.spectral_efficiency is not None:
+            _require(
+                math.isfinite(row.spectral_efficiency) and row.spectral_efficiency > 0,
+                f"{where}.modcods[{k}].spectral_efficiency",
+                f"{row.spectral_efficiency} must be a finite number > 0 (bit per symbol)",
+            )
+    _require(p.symbol_rate_step_baud >= 0, f"{where}.symbol_rate_step_baud", "must not be negative")
+    _require(
+        0 <= p.symbol_rate_min_baud < p.symbol_rate_max_baud,
+        f"{where}.symbol_rate_max_baud",
+        f"{p.symbol_rate_max_baud} must be above symbol_rate_min_baud {p.symbol_rate_min_baud}",
+    )
+    for name in ("tx_evm_pct", "rx_evm_pct"):
+        value = getattr(p, name)
+        _require(0 <= value < 100, f"{where}.{name}", f"{value} must lie in [0, 100) % rms")
+    _finite(p.implementation_loss_db, f"{where}.implementation_loss_db")
+    for k, b in enumerate(p.output_backoffs_db):
+        _check_backoff(b, f"{where}.output_backoffs_db[{k}]")
+    if p.output_backoffs_db or p.reference_backoff_db is not None:
+        _require(
+            p.amplifier is not None,
+            f"{where}.amplifier",
+            "back-offs need an amplifier to back off",
+        )
+    if p.reference_backoff_db is not None:
+        _check_backoff(p.reference_backoff_db, f"{where}.reference_backoff_db")
+
+
+def _check_profiles(problem: Problem) -> None:
+    names: set[str] = set()
+    for i, p in enumerate(problem.profiles):
+        _check_profile(i, p)
+        _require(p.name not in names, f"profiles[{i}].name", f"{p.name!r} is used twice")
+        names.add(p.name)
+    known = ", ".join(sorted(names)) or "none"
+    for i, d in enumerate(problem.demands):
+        _require(
+            not d.profile or d.profile in names,
+            f"demands[{i}].profile",
+            f"{d.profile!r} is not one of the request's profiles ({known})",
         )
 
 
@@ -190,6 +254,7 @@ def validate_problem(problem: Problem) -> None:
     )
     _check_transmitter(problem.transmitter)
     _check_coding(problem.coding)
+    _check_profiles(problem)
     _require(
         0 < problem.time_limit_s <= MAX_TIME_LIMIT_S,
         "time_limit_s",

@@ -27,6 +27,7 @@ from typing import Literal
 import numpy as np
 from numpy.typing import NDArray
 
+from solver import equipment
 from solver.model import Carrier, Problem
 from solver.physics import emission
 
@@ -88,10 +89,7 @@ class Verification:
 
 
 def _key(problem: Problem, carrier: Carrier, *, linear: bool = False) -> emission.EmissionKey:
-    cfg = carrier.config
-    return emission.EmissionKey.for_carrier(
-        problem.transmitter, cfg.modulation, cfg.rolloff, linear=linear
-    )
+    return equipment.carrier_emission_key(problem, carrier.config, linear=linear)
 
 
 @dataclass(frozen=True)
@@ -423,7 +421,10 @@ class _InterferenceRule:
         return cls(problem, levels, floors)
 
     def emitter(self, carrier: Carrier) -> _Emitter:
-        return _Emitter.of(self.problem, carrier, self.levels[carrier.demand_id])
+        """``carrier``'s emission at its demand's level, moved by its back-off."""
+        offset_db = equipment.level_offset_db(self.problem, carrier.config)
+        level = self.levels[carrier.demand_id] * 10.0 ** (offset_db / 10.0)
+        return _Emitter.of(self.problem, carrier, level)
 
     def check(
         self, victim: _Emitter, by_centre: Sequence[_Emitter]

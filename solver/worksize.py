@@ -1,9 +1,10 @@
 """How many carrier configurations the solver weighs for a demand, bounded from the problem alone.
 
-:mod:`solver.candidates` builds, for every demand, one row per (catalogue entry, roll-off):
-the catalogue holds each allowed modulation with every code rate of
-:data:`~solver.physics.modcod.CODE_RATES` and uncoded, and each row is taken once per roll-off
-listed by the transmitter.  Under ``max_throughput`` and ``min_bandwidth`` a row becomes one
+:mod:`solver.candidates` builds, for every demand, one row per (MODCOD table entry, roll-off,
+back-off): the table is the demand's equipment profile's (:func:`solver.equipment.modcod_table`),
+restricted to the modulations the demand allows, and each entry is taken once per roll-off and
+amplifier back-off the profile lists.
+Under ``max_throughput`` and ``min_bandwidth`` a row becomes one
 family whose width is a single integer variable of the packing model, so it counts once.  Under
 ``max_margin`` every row is laid out on a geometric width grid of ratio
 :data:`~solver.candidates.WIDTH_STEP` between what the minimum rate and the target rate need,
@@ -17,16 +18,15 @@ other row beats, rows whose link cannot close and widths that round to the same 
 from __future__ import annotations
 
 import math
+from collections import Counter
 from dataclasses import dataclass
 
+from solver import equipment
 from solver.candidates import WIDTH_STEP
-from solver.model import Demand, Modulation, Objective, Problem
-from solver.physics.modcod import CODE_RATES
+from solver.model import Demand, Objective, Problem
+from solver.physics import modcodsets
 
 __all__ = ["ConfigurationBound", "configuration_bound"]
-
-CODE_RATES_PER_MODULATION = len(CODE_RATES) + 1
-"""Catalogue entries of one modulation: every code rate of the catalogue, and uncoded."""
 
 
 @dataclass(frozen=True)
@@ -36,26 +36,28 @@ class ConfigurationBound:
     Attributes
     ----------
     modulations : int
-        Modulations allowed to the demand (all of :class:`~solver.model.Modulation` when it
-        lists none).
+        Modulations of the demand's MODCOD table that the demand allows.
     code_rates : int
-        Catalogue entries per modulation (code rates and uncoded).
+        Most table entries of one of those modulations.
     rolloffs : int
-        Roll-off factors the transmitter lists.
+        Roll-off factors the demand's profile lists.
     width_steps : int
         Widths per (entry, roll-off): 1 for a family (its width is one model variable), the
         width-grid bound under ``max_margin``.
+    backoffs : int
+        Amplifier back-offs the profile lets the optimiser choose from (1 when fixed).
     """
 
     modulations: int
     code_rates: int
     rolloffs: int
     width_steps: int
+    backoffs: int = 1
 
     @property
     def total(self) -> int:
         """The product of the factors: configurations weighed for the demand, at most."""
-        return self.modulations * self.code_rates * self.rolloffs * self.width_steps
+        return self.modulations * self.code_rates * self.rolloffs * self.width_steps * self.backoffs
 
 
 def width_steps_bound(min_rate_bps: float, target_rate_bps: float) -> int:
@@ -113,16 +115,23 @@ def configuration_bound(problem: Problem, demand: Demand) -> ConfigurationBound:
     >>> problem = Problem(Block(0.0, 1e6), (demand,), transmitter=Transmitter(rolloffs=(0.2, 0.35)))
     >>> bound = configuration_bound(problem, demand)
     >>> bound.modulations, bound.code_rates, bound.rolloffs, bound.width_steps, bound.total
-    (10, 12, 2, 1, 240)
+    (7, 16, 2, 1, 224)
     """
-    modulations = len(demand.modulations) or len(Modulation)
+    profile = equipment.profile_for(problem, demand)
+    rows = profile.modcods or modcodsets.modcod_set(profile.modcod_set)
+    allowed = [
+        r.modulation for r in rows if not demand.modulations or r.modulation in demand.modulations
+    ]
+    per_modulation = Counter(allowed)
     if problem.objective is Objective.MAX_MARGIN:
         steps = width_steps_bound(demand.min_rate_bps, demand.target_rate_bps)
     else:
         steps = 1
+    backoffs = len(set(profile.output_backoffs_db)) if profile.amplifier is not None else 0
     return ConfigurationBound(
-        modulations=modulations,
-        code_rates=CODE_RATES_PER_MODULATION,
-        rolloffs=len(problem.transmitter.rolloffs),
+        modulations=len(per_modulation),
+        code_rates=max(per_modulation.values(), default=0),
+        rolloffs=len(profile.rolloffs),
         width_steps=steps,
+        backoffs=max(backoffs, 1),
     )

@@ -15,7 +15,8 @@ and the independent checks:
 How it searches
 ---------------
 For every demand, a handful of carrier configurations (:func:`configurations`): every finite
-catalogue entry × every roll-off × symbol rates whose allocated width Rs(1 + α) is an even number
+entry of the demand's MODCOD table (:func:`solver.equipment.modcod_table`) × every roll-off ×
+symbol rates whose allocated width Rs(1 + α) is an even number
 of raster steps (centres on the raster), from the narrowest that carries the minimum rate up to
 the first that reaches the target (or the last at which the link still closes with the demand's
 margin).  Dominated configurations are pruned and the rest thinned to at most
@@ -66,11 +67,12 @@ from solver import (
     Demand,
     Objective,
     Problem,
+    equipment,
     verify_plan,
 )
 from solver.candidates import candidate_for
 from solver.geometry import free_segments_hz
-from solver.physics import emission, link, modcod
+from solver.physics import emission, link
 from solver.summary import with_guards
 from solver.verify import ViolationKind
 
@@ -187,14 +189,12 @@ def objective_value(problem: Problem, carriers: Sequence[Carrier], objective: Ob
 
 
 def _symbol_rates(
-    problem: Problem, demand: Demand, entry: modcod.ModcodEntry, rolloff: float
+    problem: Problem, demand: Demand, entry: equipment.TableEntry, rolloff: float
 ) -> list[float]:
     """Symbol rates filling an even number of raster steps, from the minimum rate to the first
     width that reaches the target (the top), sampled at :data:`WIDTHS_PER_FAMILY` widths."""
     raster = problem.block.raster_hz
-    per_baud = link.throughput_bps(
-        1.0, entry.bits_per_symbol, entry.code_rate, problem.coding.framing_overhead
-    )
+    per_baud = entry.net_bits_per_symbol
     if demand.cn0_dbhz is not None:
         rs_link = link.max_symbol_rate_for_esn0(
             demand.cn0_dbhz, entry.required_esn0_db + demand.margin_db
@@ -242,10 +242,9 @@ class _Scored:
 
 def _raw_configurations(problem: Problem, demand: Demand) -> list[_Scored]:
     out: list[_Scored] = []
-    for entry in modcod.catalogue(problem.coding, demand.modulations or None):
-        if not math.isfinite(entry.required_esn0_db):
-            continue
-        for rolloff in problem.transmitter.rolloffs:
+    profile = equipment.profile_for(problem, demand)
+    for entry in equipment.modcod_table(profile, problem.coding, tuple(demand.modulations)):
+        for rolloff in profile.rolloffs:
             for rs in _symbol_rates(problem, demand, entry, rolloff):
                 cand = candidate_for(
                     problem, demand, entry.modulation, entry.code_rate, rolloff, rs

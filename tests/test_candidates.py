@@ -10,7 +10,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from solver import Block, Demand, Modulation, Objective, Problem, Transmitter
+from solver import Block, Demand, Modulation, Objective, Problem, Transmitter, equipment
 from solver.candidates import _family_front, build_candidates, candidate_for
 from solver.physics import modcod
 from solver.physics.link import esn0_from_cn0_db
@@ -87,9 +87,10 @@ def test_fixed_link_keeps_only_the_most_efficient_family() -> None:
     assert 1 <= len(families) <= 3
     best = families[-1].config
     # Its modulation and rate is the most efficient entry that closes at 14 - 2 = 12 dB.
-    closing = [e for e in modcod.catalogue(_problem(demand).coding) if e.required_esn0_db <= 12.0]
-    top_efficiency = max(e.spectral_efficiency_bps_per_hz for e in closing)
-    assert best.bits_per_symbol * float(best.code_rate or 1) >= top_efficiency * 0.9
+    problem = _problem(demand)
+    table = equipment.modcod_table(equipment.profile_for(problem, demand), problem.coding)
+    top_efficiency = max(e.net_bits_per_symbol for e in table if e.required_esn0_db <= 12.0)
+    assert best.throughput_bps / best.symbol_rate_baud == pytest.approx(top_efficiency, rel=1e-9)
 
 
 def test_no_link_explains_itself() -> None:
@@ -121,7 +122,7 @@ def test_narrowest_at_min_rate_is_the_narrowest_of_every_configuration(
     rate: float, link: float, power: bool, margin: float
 ) -> None:
     """Property: the greedy peer's shortlist (every combination sized at once) starts with the
-    configuration that a one-by-one search over the whole catalogue × roll-offs finds
+    configuration that a one-by-one search over the demand's whole MODCOD table × roll-offs finds
     narrowest (allocated width plus guard)."""
     from solver.candidates import narrowest_at_min_rate
 
@@ -140,8 +141,7 @@ def test_narrowest_at_min_rate_is_the_narrowest_of_every_configuration(
     )
     every = [
         c
-        for entry in modcod.catalogue(problem.coding)
-        if math.isfinite(entry.required_esn0_db)
+        for entry in equipment.modcod_table(equipment.profile_for(problem, demand), problem.coding)
         for alpha in problem.transmitter.rolloffs
         if (
             c := candidate_for(
@@ -150,8 +150,7 @@ def test_narrowest_at_min_rate_is_the_narrowest_of_every_configuration(
                 entry.modulation,
                 entry.code_rate,
                 alpha,
-                rate
-                / (entry.spectral_efficiency_bps_per_hz * (1 - problem.coding.framing_overhead)),
+                rate / entry.net_bits_per_symbol,
             )
         )
         is not None

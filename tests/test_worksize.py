@@ -11,8 +11,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from solver import Block, Demand, Modulation, Objective, Problem, Transmitter, configuration_bound
-from solver.candidates import _combos, _family_span, _width_grid
-from solver.physics.modcod import CODE_RATES, catalogue
+from solver.candidates import _demand_combos, _family_span, _width_grid
+from solver.physics.modcodsets import modcod_set
 
 ROLLOFF_CHOICES = (0.2, 0.35)  # few distinct roll-offs: their spectrum profiles are computed once
 FEW_MODULATIONS = (Modulation.QPSK, Modulation.PSK8, Modulation.QAM16)
@@ -51,7 +51,7 @@ def test_the_width_grid_never_holds_more_points_than_the_bound(
     demand: Demand, rolloffs: list[float], raster_hz: float
 ) -> None:
     problem = _problem(demand, rolloffs, raster_hz, Objective.MAX_MARGIN)
-    combos = _combos(problem.coding, problem.transmitter, demand.modulations)
+    combos = _demand_combos(problem, demand)
     grid = _width_grid(combos, demand, raster_hz, problem.block.width_hz)
     bound = configuration_bound(problem, demand)
     assert grid.combo_index.size <= bound.total
@@ -71,7 +71,7 @@ def test_a_family_counts_once_and_the_families_stay_under_the_bound(
     demand: Demand, rolloffs: list[float], raster_hz: float, objective: Objective
 ) -> None:
     problem = _problem(demand, rolloffs, raster_hz, objective)
-    combos = _combos(problem.coding, problem.transmitter, demand.modulations)
+    combos = _demand_combos(problem, demand)
     span = _family_span(combos, demand, raster_hz, problem.block.width_hz)
     bound = configuration_bound(problem, demand)
     assert bound.width_steps == 1
@@ -82,12 +82,16 @@ def test_the_factors_follow_the_catalogue_and_the_request() -> None:
     demand = Demand("d", min_rate_bps=1e6, target_rate_bps=3e6, esn0_db=10.0)
     problem = _problem(demand, [0.2, 0.35, 0.2], 1e3, Objective.MAX_THROUGHPUT)
     bound = configuration_bound(problem, demand)
-    # every modulation of the catalogue, each with its code rates and uncoded
-    assert bound.modulations == len(Modulation)
-    assert bound.modulations * bound.code_rates == len(catalogue())
-    assert bound.code_rates == len(CODE_RATES) + 1
+    # the default set: DVB-S2 (EN 302 307-1: QPSK, 8PSK, 16APSK, 32APSK) and TS 38.214
+    # Table 5.1.3.1-2 (QPSK, 16QAM, 64QAM, 256QAM); QPSK has 11 + 5 entries, the most
+    standard = modcod_set("standard")
+    assert bound.modulations == len({e.modulation for e in standard}) == 7
+    assert bound.code_rates == 16
+    assert bound.modulations * bound.code_rates >= len(standard)
     assert bound.rolloffs == 3  # a repeated roll-off is built twice, so it counts twice
     narrowed = Demand(
         "d", min_rate_bps=1e6, target_rate_bps=3e6, esn0_db=10.0, modulations=(Modulation.QPSK,)
     )
-    assert configuration_bound(problem, narrowed).total == bound.total // len(Modulation)
+    qpsk = configuration_bound(problem, narrowed)
+    assert (qpsk.modulations, qpsk.code_rates) == (1, 16)
+    assert qpsk.total == 16 * 3

@@ -10,9 +10,9 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from solver.model import CarrierConfig, Demand
-from solver.physics import emission
+from solver.physics import distortion, emission
 
-__all__ = ["Candidate", "DemandOptions", "Family", "mask_guard_per_baud"]
+__all__ = ["Candidate", "DemandOptions", "Family", "mask_guard_per_baud", "settings_of"]
 
 
 @dataclass(frozen=True)
@@ -102,6 +102,8 @@ class Family:
     sensitivity_db: float = 0.0
     leakage_guard_per_baud: float = 0.0
     key: emission.EmissionKey | None = None
+    symbol_rate_step_baud: float = 0.0
+    """The equipment's symbol-rate step (0: any rate); scaled rates are rounded down to it."""
     memo: dict[object, float] = field(
         default_factory=dict, init=False, compare=False, hash=False, repr=False
     )
@@ -142,7 +144,18 @@ class Family:
         """The top configuration at ``scale`` times its symbol rate (the link re-measured
         when power-limited), guarded for a segment at ``level_db``."""
         top = self.top.config
-        esn0 = top.esn0_db - 10.0 * math.log10(scale) if self.power_limited else top.esn0_db
+        step = self.symbol_rate_step_baud
+        if step > 0 and scale != 1.0:  # the top is on the grid; a scaled rate is rounded down
+            scale = max(math.floor(top.symbol_rate_baud * scale / step + 1e-9), 1) * step
+            scale /= top.symbol_rate_baud
+        thermal = top.esn0_db if top.thermal_esn0_db is None else top.thermal_esn0_db
+        if self.power_limited:
+            thermal -= 10.0 * math.log10(scale)
+        esn0 = (
+            float(distortion.effective_esn0_db(thermal, top.evm_pct))
+            if top.thermal_esn0_db is not None
+            else thermal
+        )
         return replace(
             top,
             symbol_rate_baud=top.symbol_rate_baud * scale,
@@ -152,6 +165,7 @@ class Family:
             edge_guard_hz=top.edge_guard_hz * scale,
             throughput_bps=top.throughput_bps * scale,
             esn0_db=esn0,
+            thermal_esn0_db=None if top.thermal_esn0_db is None else thermal,
         )
 
     def at(self, half: int, level_db: float | None = None) -> Candidate:
@@ -173,13 +187,18 @@ class DemandOptions:
     best_link_detail: str
 
     def family_index(self, config: CarrierConfig) -> int | None:
-        """The index of the family with ``config``'s modulation, code rate and roll-off."""
-        settings = (config.modulation, config.code_rate, config.rolloff)
+        """The index of the family with ``config``'s settings (:func:`settings_of`)."""
         return next(
             (
                 k
                 for k, fam in enumerate(self.candidates)
-                if (fam.config.modulation, fam.config.code_rate, fam.config.rolloff) == settings
+                if settings_of(fam.config) == settings_of(config)
             ),
             None,
         )
+
+
+def settings_of(config: CarrierConfig) -> tuple[object, ...]:
+    """What an engineer sets on the equipment, apart from the symbol rate: modulation, code
+    rate, roll-off and amplifier back-off."""
+    return (config.modulation, config.code_rate, config.rolloff, config.output_backoff_db)

@@ -165,16 +165,13 @@ def fill_grid(
     throughput = top.throughput_bps * per_half
     lo = max(1, math.ceil(min_rate_bps / throughput - 1e-9))
     # never wider than the family's own top (a target far above it would make a grid of
-    # astronomically many steps)
-    hi = max(lo, min(math.ceil(target_rate_bps / throughput - 1e-9), (family.hi_half + 1) * fine))
+    # astronomically many steps); on an equipment's symbol-rate grid, never above the top's
+    # rate (the top is the highest the equipment and the link allow)
+    widest = (family.hi_half + (0 if family.symbol_rate_step_baud > 0 else 1)) * fine
+    hi = max(lo, min(math.ceil(target_rate_bps / throughput - 1e-9), widest))
 
     def margin(half: int) -> float:
-        esn0 = (
-            top.esn0_db - 10.0 * math.log10(half * per_half)
-            if family.power_limited
-            else top.esn0_db
-        )
-        return esn0 - top.required_esn0_db
+        return family.config_at(half * per_half).margin_db
 
     if margin(hi) < margin_db - 1e-9:  # the margin falls with the width: bisect the widest
         good = lo

@@ -28,10 +28,12 @@ from service.store import Store
 
 pytestmark = pytest.mark.anyio
 
-MODULATIONS = 10
-"""Modulations of the catalogue (solver.Modulation), each allowed when a demand lists none."""
-CODE_RATE_ENTRIES = 12
-"""Per modulation: the eleven DVB-S2 code rates (EN 302 307-1 §5.3) and uncoded."""
+MODULATIONS = 7
+"""Modulations of the default MODCOD set, each allowed when a demand lists none: QPSK, 8PSK,
+16APSK, 32APSK (ETSI EN 302 307-1) and 16QAM, 64QAM, 256QAM (3GPP TS 38.214 Table 5.1.3.1-2)."""
+CODE_RATE_ENTRIES = 16
+"""The most entries of one modulation in that set: QPSK's eleven DVB-S2 code rates
+(EN 302 307-1 §5.3) and the five QPSK rows of TS 38.214 Table 5.1.3.1-2 (MCS 0–4)."""
 
 
 def _free_port() -> int:
@@ -264,7 +266,7 @@ async def test_a_request_over_the_work_size_is_refused_naming_its_fields(
         assert {"demands", "transmitter.rolloffs", "demands[0].modulations"} <= fields.keys()
         assert f"{expected:,}" in fields["demands"] and f"{limit:,}" in fields["demands"]
         assert "2 roll-offs" in fields["transmitter.rolloffs"]
-        assert f"{MODULATIONS} modulations" in fields["demands[0].modulations"]
+        assert f"{MODULATIONS} modulations of its MODCOD table" in fields["demands[0].modulations"]
     assert batch.status_code == 422, batch.text
     assert f"{expected:,}" in _fields(batch)["items[1].demands"]  # the item over it, by place
     assert jobs_stored == 0  # the job and the batch were refused before anything was stored
@@ -273,7 +275,7 @@ async def test_a_request_over_the_work_size_is_refused_naming_its_fields(
 
 async def test_under_max_margin_the_width_grid_counts_too(settings: Settings) -> None:
     sized = settings.model_copy(update={"max_work_configurations": 1000, "solve_rate_limit": ""})
-    demands = _demands(2, modulations=["QPSK"])  # 2 × 1 × 12 × 2 = 48 configurations as families
+    demands = _demands(2, modulations=["QPSK"])  # 2 × 1 × 16 × 2 = 64 configurations as families
     families = small_request(demands=demands)
     margin = small_request(demands=demands, objective="max_margin")
     async with serving(create_app(sized)) as client:
@@ -283,7 +285,7 @@ async def test_under_max_margin_the_width_grid_counts_too(settings: Settings) ->
     assert on_a_grid.status_code == 422, on_a_grid.text
     fields = _fields(on_a_grid)
     assert "max_margin" in fields["demands[0].target_rate_bps"]
-    assert "1 of 10 modulations" in fields["demands[0].modulations"]
+    assert "1 modulations of its MODCOD table" in fields["demands[0].modulations"]
 
 
 async def test_the_limit_is_checked_before_any_solve_starts(
