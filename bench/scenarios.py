@@ -266,6 +266,39 @@ AMPLIFIER = Recipe(12, (0.5e6, 3e6), 1.0, 1, 0.03, 10e3, 10.0, size_linear=True)
 FRAGMENTED = Recipe(16, (10e3, 20e6), 0.9, 3, 0.02, 1e3, 10.0)
 
 
+# ---------------------------------------------------------------- back-off as a decision
+
+BACKOFFS_DB = (2.0, 4.0, 6.0, 8.0)
+"""The output back-offs each carrier of the back-off scenario chooses from (dB)."""
+
+REFERENCE_BACKOFF_DB = 6.0
+"""The back-off at which the back-off scenario's demands state their C/N0 or Es/N0."""
+
+
+def with_backoffs(problem: Problem, backoffs_db: tuple[float, ...]) -> Problem:
+    """``problem`` with every demand on one amplifier profile (Rapp p = 2, its in-band
+    distortion counted) that may run at each of ``backoffs_db``; links stated at
+    :data:`REFERENCE_BACKOFF_DB`."""
+    profile = EquipmentProfile(
+        "shared-pa",
+        rolloffs=ROLLOFFS,
+        filter_span_symbols=12,
+        amplifier=_rapp(REFERENCE_BACKOFF_DB),
+        output_backoffs_db=backoffs_db,
+        reference_backoff_db=REFERENCE_BACKOFF_DB,
+        implementation_loss_db=problem.coding.implementation_loss_db,
+    )
+    demands = tuple(replace(d, profile=profile.name) for d in problem.demands)
+    return replace(problem, demands=demands, profiles=(profile,))
+
+
+def backoff_scenario(seed: int) -> Problem:
+    """Twelve demands (the amplifier recipe) whose carriers each pick a back-off from
+    :data:`BACKOFFS_DB`; the block is sized on a linear transmitter, as for ``amplifier-*``."""
+    base = generated("amplifier-choice", seed, replace(AMPLIFIER, amplifier=_rapp(6.0)))
+    return with_backoffs(base, BACKOFFS_DB)
+
+
 PINNED_WIDTH_HZ = {
     "oversub-1.5": 4_200_000.0,
     "oversub-3": 2_840_000.0,
@@ -326,36 +359,3 @@ def expand(names: list[str]) -> list[str]:
             if n not in out:
                 out.append(n)
     return out
-
-
-# ---------------------------------------------------------------- back-off as a decision
-
-BACKOFFS_DB = (2.0, 4.0, 6.0, 8.0)
-"""The output back-offs each carrier of the back-off scenario chooses from (dB)."""
-
-REFERENCE_BACKOFF_DB = 6.0
-"""The back-off at which the back-off scenario's demands state their C/N0 or Es/N0."""
-
-
-def with_backoffs(problem: Problem, backoffs_db: tuple[float, ...]) -> Problem:
-    """``problem`` with every demand on one amplifier profile (Rapp p = 2, its in-band
-    distortion counted) that may run at each of ``backoffs_db``; links stated at
-    :data:`REFERENCE_BACKOFF_DB`."""
-    profile = EquipmentProfile(
-        "shared-pa",
-        rolloffs=ROLLOFFS,
-        filter_span_symbols=12,
-        amplifier=_rapp(REFERENCE_BACKOFF_DB),
-        output_backoffs_db=backoffs_db,
-        reference_backoff_db=REFERENCE_BACKOFF_DB,
-        implementation_loss_db=problem.coding.implementation_loss_db,
-    )
-    demands = tuple(replace(d, profile=profile.name) for d in problem.demands)
-    return replace(problem, demands=demands, profiles=(profile,))
-
-
-def backoff_scenario(seed: int) -> Problem:
-    """Twelve demands (the amplifier recipe) whose carriers each pick a back-off from
-    :data:`BACKOFFS_DB`; the block is sized on a linear transmitter, as for ``amplifier-*``."""
-    base = generated("amplifier-choice", seed, replace(AMPLIFIER, amplifier=_rapp(6.0)))
-    return with_backoffs(base, BACKOFFS_DB)

@@ -704,14 +704,11 @@ def family_for(
     option = equipment.backoff_option(profile, output_backoff_db)
     if not math.isfinite(entry):
         return None
-    net = _net_bits(problem, profile, modulation, code_rate)
-    throughput = symbol_rate_baud * net
-    thermal = (
-        demand.cn0_dbhz - 10.0 * math.log10(symbol_rate_baud)
-        if demand.cn0_dbhz is not None
-        else (demand.esn0_db if demand.esn0_db is not None else -math.inf)
-    ) + option.esn0_offset_db
-    esn0 = float(distortion.effective_esn0_db(thermal, option.evm_pct))
+    throughput = symbol_rate_baud * _net_bits(problem, profile, modulation, code_rate)
+    thermal = _thermal_at(demand, option, symbol_rate_baud)
+    esn0 = thermal
+    if option.evm_pct > 0:
+        esn0 = float(distortion.effective_esn0_db(thermal, option.evm_pct))
     if throughput < demand.min_rate_bps * (1 - 1e-9) or esn0 - entry < demand.margin_db:
         return None
     tx = equipment.transmitter_at(profile, option.output_backoff_db)
@@ -748,11 +745,26 @@ def family_for(
     return _single_family(problem, demand, config, key, immunity, leak_per_baud)
 
 
+def _thermal_at(demand: Demand, option: equipment.BackoffOption, rate_baud: float) -> float:
+    """Es/N0 (dB) from thermal noise of ``demand`` at ``rate_baud`` and back-off ``option``."""
+    if demand.cn0_dbhz is not None:
+        stated = demand.cn0_dbhz - 10.0 * math.log10(rate_baud)
+    else:
+        stated = demand.esn0_db if demand.esn0_db is not None else -math.inf
+    return stated + option.esn0_offset_db
+
+
 def _table_entry(
     problem: Problem, profile: EquipmentProfile, modulation: Modulation, code_rate: CodeRate
 ) -> equipment.TableEntry | None:
-    table = equipment.modcod_table(profile, problem.coding)
-    return next((e for e in table if e.modulation == modulation and e.code_rate == code_rate), None)
+    return _table_index(profile, problem.coding).get((modulation, code_rate))
+
+
+@functools.lru_cache(maxsize=256)
+def _table_index(
+    profile: EquipmentProfile, coding: Coding
+) -> dict[tuple[Modulation, CodeRate], equipment.TableEntry]:
+    return {(e.modulation, e.code_rate): e for e in equipment.modcod_table(profile, coding)}
 
 
 def _threshold_db(

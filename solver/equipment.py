@@ -64,11 +64,15 @@ DEFAULT_SET = "standard"
 
 def default_profile(problem: Problem) -> EquipmentProfile:
     """The profile of a demand that names none: the request's transmitter and coding."""
-    tx = problem.transmitter
+    return _default_profile(problem.transmitter, problem.coding.implementation_loss_db)
+
+
+@functools.lru_cache(maxsize=64)
+def _default_profile(tx: Transmitter, implementation_loss_db: float) -> EquipmentProfile:
     return EquipmentProfile(
         name="",
         modcod_set=DEFAULT_SET,
-        implementation_loss_db=problem.coding.implementation_loss_db,
+        implementation_loss_db=implementation_loss_db,
         rolloffs=tx.rolloffs,
         filter_span_symbols=tx.filter_span_symbols,
         window=tx.window,
@@ -211,6 +215,7 @@ def backoff_option(profile: EquipmentProfile, output_backoff_db: float | None) -
     return BackoffOption(backoff, reference - backoff, evm)
 
 
+@functools.lru_cache(maxsize=256)
 def backoff_options(profile: EquipmentProfile) -> tuple[BackoffOption, ...]:
     """Every back-off ``profile`` allows, in increasing order."""
     if profile.amplifier is None:
@@ -219,17 +224,27 @@ def backoff_options(profile: EquipmentProfile) -> tuple[BackoffOption, ...]:
     return tuple(backoff_option(profile, b) for b in sorted(set(allowed)))
 
 
+_STRONGEST: dict[int, tuple[Problem, float]] = {}
+""":func:`strongest_level_db` of the last few problems, by identity (a problem is immutable)."""
+
+
 def strongest_level_db(problem: Problem) -> float:
     """The highest level (dB) any carrier of the request can have: its demand's relative level
     raised by running below the reference back-off, where its profile allows that."""
-    return max(
-        (
-            d.relative_level_db
-            + max(0.0, *(o.esn0_offset_db for o in backoff_options(profile_for(problem, d))))
-            for d in problem.demands
-        ),
-        default=0.0,
+    hit = _STRONGEST.get(id(problem))
+    if hit is not None and hit[0] is problem:
+        return hit[1]
+    boost = {
+        p.name: max(0.0, *(o.esn0_offset_db for o in backoff_options(p)))
+        for p in (default_profile(problem), *problem.profiles)
+    }
+    value = max(
+        (d.relative_level_db + boost.get(d.profile, 0.0) for d in problem.demands), default=0.0
     )
+    if len(_STRONGEST) >= 32:
+        _STRONGEST.clear()
+    _STRONGEST[id(problem)] = (problem, value)
+    return value
 
 
 def transmitter_at(profile: EquipmentProfile, output_backoff_db: float | None) -> Transmitter:

@@ -153,7 +153,7 @@ class Family:
             thermal -= 10.0 * math.log10(scale)
         esn0 = (
             float(distortion.effective_esn0_db(thermal, top.evm_pct))
-            if top.thermal_esn0_db is not None
+            if top.thermal_esn0_db is not None and top.evm_pct > 0
             else thermal
         )
         return replace(
