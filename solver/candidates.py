@@ -700,11 +700,12 @@ def family_for(
     reference).  A MODCOD outside the profile's table takes the physics core's threshold (a
     replan's carrier runs it today)."""
     profile = equipment.profile_for(problem, demand)
-    entry = _threshold_db(problem, profile, modulation, code_rate)
+    table_entry = _entry(problem, profile, modulation, code_rate)
+    entry = table_entry.required_esn0_db
     option = equipment.backoff_option(profile, output_backoff_db)
     if not math.isfinite(entry):
         return None
-    throughput = symbol_rate_baud * _net_bits(problem, profile, modulation, code_rate)
+    throughput = symbol_rate_baud * table_entry.net_bits_per_symbol
     thermal = _thermal_at(demand, option, symbol_rate_baud)
     esn0 = thermal
     if option.evm_pct > 0:
@@ -754,12 +755,6 @@ def _thermal_at(demand: Demand, option: equipment.BackoffOption, rate_baud: floa
     return stated + option.esn0_offset_db
 
 
-def _table_entry(
-    problem: Problem, profile: EquipmentProfile, modulation: Modulation, code_rate: CodeRate
-) -> equipment.TableEntry | None:
-    return _table_index(profile, problem.coding).get((modulation, code_rate))
-
-
 @functools.lru_cache(maxsize=256)
 def _table_index(
     profile: EquipmentProfile, coding: Coding
@@ -767,26 +762,23 @@ def _table_index(
     return {(e.modulation, e.code_rate): e for e in equipment.modcod_table(profile, coding)}
 
 
-def _threshold_db(
+def _entry(
     problem: Problem, profile: EquipmentProfile, modulation: Modulation, code_rate: CodeRate
-) -> float:
-    """The profile table's threshold of a MODCOD, else the physics core's."""
-    entry = _table_entry(problem, profile, modulation, code_rate)
-    if entry is not None:
-        return entry.required_esn0_db
+) -> equipment.TableEntry:
+    """The profile table's entry of a MODCOD; one outside the table (a replan's carrier runs it
+    today) gets the physics core's threshold and the request's framing."""
+    found = _table_index(profile, problem.coding).get((modulation, code_rate))
+    if found is not None:
+        return found
     coding = replace(problem.coding, implementation_loss_db=profile.implementation_loss_db)
-    return modcod.required_esn0_db(modulation, code_rate, coding)
-
-
-def _net_bits(
-    problem: Problem, profile: EquipmentProfile, modulation: Modulation, code_rate: CodeRate
-) -> float:
-    """Information bits per symbol of a MODCOD: the table's, else after the request's framing."""
-    entry = _table_entry(problem, profile, modulation, code_rate)
-    if entry is not None:
-        return entry.net_bits_per_symbol
     bits = modcod.constellation(modulation).bits_per_symbol
-    return link.throughput_bps(1.0, bits, code_rate, problem.coding.framing_overhead)
+    return equipment.TableEntry(
+        modulation,
+        code_rate,
+        bits,
+        link.throughput_bps(1.0, bits, code_rate, problem.coding.framing_overhead),
+        modcod.required_esn0_db(modulation, code_rate, coding),
+    )
 
 
 def _weakest_gap_db(

@@ -760,8 +760,10 @@ class _Teller:
         clock: _Clock,
         progress: Callable[[ProgressEvent], None] | None,
         problem: Problem,
+        cancel: threading.Event | None = None,
     ) -> None:
         self.clock, self.progress, self.problem = clock, progress, problem
+        self.cancel = cancel
         self.families: dict[str, tuple[Family, ...]] = {}
         self.free = free_segments(problem, [])
         self.last: tuple[tuple[Carrier, ...], Judgement] | None = None
@@ -781,6 +783,8 @@ class _Teller:
         if self.last is None or self.last[0] != key:
             left = self.problem.time_limit_s - self.clock.elapsed()
             branch = min(INTEGRAL_S, max(0.0, left / 2))
+            if self.cancel is not None and self.cancel.is_set():
+                branch = 0.0  # a cancelled solve returns at once, with the linear bound
             verdict = judge(self.problem, carriers, self.free, self.families, branch)
             self.last = key, verdict
         verdict = self.last[1]
@@ -809,7 +813,8 @@ def solve(
         Receives a :class:`ProgressEvent` on every improving solution.
     cancel : threading.Event, optional
         Set to stop the search early; the best verified plan so far is returned (the peer
-        and the squeeze are skipped).
+        and the squeeze are skipped, and its bound is the linear relaxation's, without the
+        mixed-integer refinement).
 
     Returns
     -------
@@ -826,7 +831,7 @@ def solve(
     """
     validate_problem(problem)
     clock = _Clock.start(problem)
-    tell = _Teller(clock, progress, problem)
+    tell = _Teller(clock, progress, problem, cancel)
     tell.stage("building spectra and candidates")
     sets = {}
     for d in problem.demands:

@@ -72,7 +72,7 @@ from solver import (
 )
 from solver.candidates import candidate_for
 from solver.geometry import free_segments_hz
-from solver.physics import emission, link
+from solver.physics import distortion, emission, link
 from solver.summary import with_guards
 from solver.verify import ViolationKind
 
@@ -189,19 +189,27 @@ def objective_value(problem: Problem, carriers: Sequence[Carrier], objective: Ob
 
 
 def _symbol_rates(
-    problem: Problem, demand: Demand, entry: equipment.TableEntry, rolloff: float
+    problem: Problem,
+    demand: Demand,
+    entry: equipment.TableEntry,
+    rolloff: float,
+    option: equipment.BackoffOption,
 ) -> list[float]:
     """Symbol rates filling an even number of raster steps, from the minimum rate to the first
-    width that reaches the target (the top), sampled at :data:`WIDTHS_PER_FAMILY` widths."""
+    width that reaches the target (the top), sampled at :data:`WIDTHS_PER_FAMILY` widths; the
+    link measured at the back-off ``option`` (its Es/N0 offset and error-vector floor)."""
     raster = problem.block.raster_hz
     per_baud = entry.net_bits_per_symbol
+    thermal_needed = distortion.thermal_esn0_needed_db(
+        entry.required_esn0_db + demand.margin_db, option.evm_pct
+    )
     if demand.cn0_dbhz is not None:
         rs_link = link.max_symbol_rate_for_esn0(
-            demand.cn0_dbhz, entry.required_esn0_db + demand.margin_db
+            demand.cn0_dbhz + option.esn0_offset_db, thermal_needed
         )
     else:
         esn0 = demand.esn0_db if demand.esn0_db is not None else -math.inf
-        rs_link = math.inf if esn0 - entry.required_esn0_db >= demand.margin_db else 0.0
+        rs_link = math.inf if esn0 + option.esn0_offset_db >= thermal_needed else 0.0
     step_baud = 2 * raster / (1 + rolloff)  # one even raster step of width
     lo = max(1, math.ceil(demand.min_rate_bps * (1 - 1e-9) / per_baud / step_baud - 1e-9))
     top = max(lo, math.ceil(demand.target_rate_bps * (1 - 1e-9) / per_baud / step_baud - 1e-9))
@@ -243,17 +251,24 @@ class _Scored:
 def _raw_configurations(problem: Problem, demand: Demand) -> list[_Scored]:
     out: list[_Scored] = []
     profile = equipment.profile_for(problem, demand)
-    for entry in equipment.modcod_table(profile, problem.coding, tuple(demand.modulations)):
-        for rolloff in profile.rolloffs:
-            for rs in _symbol_rates(problem, demand, entry, rolloff):
-                cand = candidate_for(
-                    problem, demand, entry.modulation, entry.code_rate, rolloff, rs
-                )
-                if cand is None:
-                    continue
-                cfg = cand.config
-                capped = min(cfg.throughput_bps, demand.target_rate_bps)
-                out.append(_Scored(cfg, capped, cfg.margin_db - demand.margin_db))
+    table = equipment.modcod_table(profile, problem.coding, tuple(demand.modulations))
+    settings = itertools.product(table, profile.rolloffs, equipment.backoff_options(profile))
+    for entry, rolloff, option in settings:
+        for rs in _symbol_rates(problem, demand, entry, rolloff, option):
+            cand = candidate_for(
+                problem,
+                demand,
+                entry.modulation,
+                entry.code_rate,
+                rolloff,
+                rs,
+                output_backoff_db=option.output_backoff_db,
+            )
+            if cand is None:
+                continue
+            cfg = cand.config
+            capped = min(cfg.throughput_bps, demand.target_rate_bps)
+            out.append(_Scored(cfg, capped, cfg.margin_db - demand.margin_db))
     return out
 
 
