@@ -557,6 +557,9 @@ class SettingOut(BaseModel):
     rolloff: float
     modulation: Modulation
     code_rate: str
+    output_backoff_db: float | None = Field(
+        None, description="amplifier back-off (dB); null: linear or not stated"
+    )
 
 
 class RetuneOut(BaseModel):
@@ -623,6 +626,7 @@ class EvaluateResponse(BaseModel):
     required_esn0_db: float | None = Field(
         description="(dB); null: this MODCOD cannot reach the target error rate at any Es/N0"
     )
+    label: str = Field("", description="the set's own name of the entry (e.g. 'MCS 17')")
     margin_db: float | None = Field(
         description="Es/N0 − required Es/N0 (dB); null when required_esn0_db is null"
     )
@@ -641,6 +645,7 @@ class ModcodOut(BaseModel):
     required_esn0_db: float | None = Field(
         description="(dB); null: this MODCOD cannot reach the target error rate at any Es/N0"
     )
+    label: str = Field("", description="the set's own name of the entry (e.g. 'MCS 17')")
 
 
 # ----------------------------------------------------------------------------- jobs, health

@@ -5,7 +5,7 @@ imports only these.  The physics floor (spectra, amplifiers, MODCODs, link budge
 :mod:`solver.physics` and depends on nothing in the solver but :mod:`solver.model`.
 """
 
-from solver.equipment import DEFAULT_SET, carrier_emission_key
+from solver.equipment import DEFAULT_SET, carrier_emission_key, modcod_table
 from solver.evaluate import CarrierEvaluation, LeakageAtGap, evaluate_carrier
 from solver.model import (
     Amplifier,
@@ -90,6 +90,7 @@ __all__ = [
     "evaluate_carrier",
     "format_code_rate",
     "get_profile",
+    "modcod_table",
     "parse_code_rate",
     "rule_of_thumb_plan",
     "setting_change",

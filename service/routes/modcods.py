@@ -8,8 +8,15 @@ from fastapi import APIRouter, Query
 
 from service.convert import finite_or_none
 from service.routes.plans import PROBLEM_RESPONSES
-from service.schemas import ModcodOut
-from solver import Coding, Modulation, catalogue, format_code_rate
+from service.schemas import ModcodOut, ModcodSetName
+from solver import (
+    Coding,
+    EquipmentProfile,
+    Modulation,
+    catalogue,
+    format_code_rate,
+    modcod_table,
+)
 
 __all__ = ["router"]
 
@@ -39,8 +46,13 @@ def list_modcods(
     modulation: Annotated[
         list[Modulation] | None, Query(description="restrict to these modulations")
     ] = None,
+    modcod_set: Annotated[
+        ModcodSetName | None,
+        Query(description="a named set's entries, in its order (null: the whole catalogue)"),
+    ] = None,
 ) -> list[ModcodOut]:
-    """Every (modulation, code rate) pair, with spectral efficiency before framing."""
+    """Every (modulation, code rate) pair, with spectral efficiency before framing; or a named
+    set's entries with their labels."""
     coding = Coding(
         block_length_bits=block_length_bits,
         target_block_error_rate=target_block_error_rate,
@@ -48,6 +60,8 @@ def list_modcods(
         framing_overhead=DEFAULTS.framing_overhead,
         target_bit_error_rate=target_bit_error_rate,
     )
+    if modcod_set is not None:
+        return _named_set(modcod_set, coding, tuple(modulation or ()))
     entries = catalogue(coding, tuple(modulation) if modulation else None)
     return [
         ModcodOut(
@@ -58,4 +72,23 @@ def list_modcods(
             required_esn0_db=finite_or_none(e.required_esn0_db),
         )
         for e in entries
+    ]
+
+
+def _named_set(name: str, coding: Coding, modulations: tuple[Modulation, ...]) -> list[ModcodOut]:
+    """The entries of a named set whose threshold is finite, with the set's labels."""
+    profile = EquipmentProfile(
+        "query", modcod_set=name, implementation_loss_db=coding.implementation_loss_db
+    )
+    return [
+        ModcodOut(
+            modulation=e.modulation,
+            code_rate=format_code_rate(e.code_rate),
+            bits_per_symbol=e.bits_per_symbol,
+            spectral_efficiency_bps_per_hz=e.bits_per_symbol
+            * (1.0 if e.code_rate is None else float(e.code_rate)),
+            required_esn0_db=e.required_esn0_db,
+            label=e.label,
+        )
+        for e in modcod_table(profile, coding, modulations)
     ]

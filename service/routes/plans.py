@@ -331,6 +331,7 @@ def _setting(carrier: CarrierOut) -> SettingOut:
         rolloff=carrier.rolloff,
         modulation=carrier.modulation,
         code_rate=carrier.code_rate,
+        output_backoff_db=carrier.output_backoff_db,
     )
 
 

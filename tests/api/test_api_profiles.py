@@ -94,3 +94,25 @@ async def test_a_demand_naming_an_unknown_profile_is_refused(app: FastAPI) -> No
         answer = await client.post("/v1/plans", json=request)
     message = _fields(answer)["demands[0].profile"]
     assert "radio-b" in message and "radio-a" in message
+
+
+async def test_modcods_lists_a_named_set_with_its_labels(app: FastAPI) -> None:
+    # 3GPP TS 38.214 Table 5.1.3.1-2 (from memory): MCS 0 is QPSK at R = 120/1024, MCS 27
+    # 256QAM at 948/1024; 28 rows in all, of which these thresholds must all be finite.
+    async with serving(app) as client:
+        answer = await client.get("/v1/modcods", params={"modcod_set": "nr-256qam"})
+        unknown = await client.get("/v1/modcods", params={"modcod_set": "dvb-s9"})
+    assert answer.status_code == 200, answer.text
+    rows = answer.json()
+    assert len(rows) == 28
+    assert (rows[0]["label"], rows[0]["modulation"], rows[0]["code_rate"]) == (
+        "MCS 0",
+        "QPSK",
+        "15/128",
+    )
+    assert (rows[-1]["label"], rows[-1]["modulation"], rows[-1]["code_rate"]) == (
+        "MCS 27",
+        "256QAM",
+        "237/256",
+    )
+    assert unknown.status_code == 422
