@@ -190,8 +190,9 @@ class ModcodRowIn(WireModel):
     _rate = field_validator("code_rate")(_check_code_rate)
 
 
-class EquipmentProfileIn(WireModel):
-    """What one kind of radio can be set to; demands name it in ``profile``."""
+class EquipmentProfileIn(TransmitterIn):
+    """What one kind of radio can be set to (its pulse shaping and amplifier as a
+    transmitter's, and more); demands name it in ``profile``."""
 
     name: str = Field(pattern=DEMAND_ID_PATTERN, description="how demands refer to it")
     modcod_set: ModcodSetName = Field(
@@ -212,15 +213,6 @@ class EquipmentProfileIn(WireModel):
     implementation_loss_db: float = Field(
         1.0, ge=0, le=20, description="added to every computed threshold (dB)"
     )
-    rolloffs: list[Annotated[float, Field(gt=0, le=1)]] = Field(
-        default_factory=lambda: [0.05, 0.10, 0.15, 0.20, 0.25, 0.35],
-        min_length=1,
-        max_length=MAX_ROLLOFFS,
-        description="roll-off factors the equipment supports",
-    )
-    filter_span_symbols: int = Field(12, ge=2, le=256, description="filter span (symbols)")
-    window: Window = Field(Window.NONE, description="window applied to the truncated filter")
-    amplifier: AmplifierIn | None = Field(None, description="amplifier model, or null for linear")
     output_backoffs_db: list[Annotated[float, Field(gt=0, le=30)]] = Field(
         default_factory=list,
         max_length=MAX_ROLLOFFS,
