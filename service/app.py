@@ -50,8 +50,10 @@ DESCRIPTION = (
     "Plans carriers in a licensed spectrum block: symbol rate, modulation, code rate, roll-off "
     "and guard bands for every demand, packed by CP-SAT and verified from the power spectral "
     "densities. All quantities are SI and carry their unit in the field name. Errors are "
-    "RFC 9457 problem details. A plan is an engineering estimate from models: measure real "
-    "equipment before a carrier goes on air; licence conditions and the regulator decide."
+    "RFC 9457 problem details; their type is a URN, urn:bandwright:problem:<slug> (or "
+    "about:blank), and a body that is not JSON is a 400 (malformed-json). A plan is an "
+    "engineering estimate from models: measure real equipment before a carrier goes on air; "
+    "licence conditions and the regulator decide."
 )
 
 

@@ -64,8 +64,9 @@ __all__ = [
 ]
 
 
-def finite_or_none(value: float) -> float | None:
-    return value if math.isfinite(value) else None
+def finite_or_none(value: float | None) -> float | None:
+    """The value if it is a finite number, else ``None`` (JSON has no infinity, RFC 8259 §6)."""
+    return value if value is not None and math.isfinite(value) else None
 
 
 def _or_inf(value: float | None) -> float:

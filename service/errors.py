@@ -14,13 +14,20 @@ Exception tree of the service::
      └── SchemaNotReadyError   503  it answers, but its tables are not this version's
 
 Also mapped here: :class:`solver.ProblemError` (422, naming its field), FastAPI's
-``RequestValidationError`` (422, one entry per bad field), Starlette's ``HTTPException`` (its own
-status, e.g. 405 or 413) and any other exception (500, logged with its traceback).  Every answer
-is an ``application/problem+json`` document; no request ever gets a bare 500.
+``RequestValidationError`` (422, one entry per bad field; 400 ``malformed-json`` when the body is
+not JSON at all, or not UTF-8), Starlette's ``HTTPException`` (its own status, e.g. 405 or 413)
+and any other exception (500, logged with its traceback).  Every answer is an
+``application/problem+json`` document; no request ever gets a bare 500.
+
+Problem types are URNs of the service's own namespace, ``urn:bandwright:problem:<slug>``
+(RFC 8141 syntax), one per entry of :data:`PROBLEM_TYPES`; a plain HTTP status with nothing more
+to say is ``about:blank`` (RFC 9457 §4.2.1).  No type points at a web address.
 
 References
 ----------
 RFC 9457, "Problem Details for HTTP APIs", IETF, July 2023.
+RFC 8141, "Uniform Resource Names (URNs)", IETF, April 2017.
+RFC 9110, "HTTP Semantics", §15.5.1 (400 Bad Request), IETF, June 2022.
 RFC 6585, "Additional HTTP Status Codes", §4 (429 Too Many Requests), IETF, April 2012.
 RFC 9110, "HTTP Semantics", §10.2.3 (Retry-After), IETF, June 2022.
 """
@@ -43,6 +50,7 @@ from solver import ProblemError
 
 __all__ = [
     "PROBLEM_JSON",
+    "PROBLEM_TYPES",
     "BodyLimitMiddleware",
     "BodyTooLargeError",
     "ConflictError",
@@ -62,12 +70,29 @@ __all__ = [
     "install_error_handlers",
     "problem_document",
     "problem_response",
+    "problem_type",
 ]
 
 logger = logging.getLogger(__name__)
 
 PROBLEM_JSON = "application/problem+json"
-PROBLEM_BASE = "https://bandwright.dev/problems/"
+PROBLEM_URN_PREFIX = "urn:bandwright:problem:"
+PROBLEM_TYPES: dict[str, str] = {
+    "malformed-json": "Malformed JSON",  # 400: not JSON (RFC 8259), or not UTF-8
+    "invalid-request": "Invalid request",  # 422: JSON, but `errors` names each bad field
+    "unauthenticated": "Unauthenticated",  # 401: no API key, or an unknown or revoked one
+    "forbidden": "Forbidden",  # 403: the key's scope does not cover the request
+    "not-found": "Not found",  # 404
+    "conflict": "Conflict",  # 409: the resource's state does not allow the request
+    "body-too-large": "Body too large",  # 413
+    "rate-limited": "Rate limited",  # 429, Retry-After
+    "too-many-jobs": "Too many jobs",  # 429, Retry-After
+    "internal": "Internal",  # 500, logged
+    "solver-busy": "Solver busy",  # 503, Retry-After
+    "pictures-busy": "Pictures busy",  # 503, Retry-After
+    "store-unavailable": "Store unavailable",  # 503, Retry-After
+}
+"""Every problem type the service emits: slug (``urn:bandwright:problem:<slug>``) → title."""
 VALUE_ERROR_PREFIX = "Value error, "  # pydantic prefixes messages of ValueError
 REQUEST_PARTS = frozenset({"body", "query", "path", "header", "cookie"})
 
@@ -192,14 +217,29 @@ def field_path(loc: Sequence[int | str]) -> str:
     return path or "body"
 
 
+def problem_type(slug: str | None) -> str:
+    """The ``type`` URI of a problem: ``urn:bandwright:problem:<slug>``, or ``about:blank``.
+
+    >>> problem_type("not-found")
+    'urn:bandwright:problem:not-found'
+    >>> problem_type(None)
+    'about:blank'
+    """
+    if slug is None:
+        return "about:blank"
+    if slug not in PROBLEM_TYPES:
+        raise ValueError(f"{slug=} is not one of the service's problem types")
+    return PROBLEM_URN_PREFIX + slug
+
+
 def problem_document(
     status: int, slug: str | None, detail: str, instance: str, errors: Sequence[FieldIssue] = ()
 ) -> dict[str, Any]:
     """One problem details document; ``slug=None`` means ``about:blank`` (plain HTTP status)."""
     phrase = HTTPStatus(status).phrase
     body: dict[str, Any] = {
-        "type": "about:blank" if slug is None else PROBLEM_BASE + slug,
-        "title": phrase if slug is None else slug.replace("-", " ").capitalize(),
+        "type": problem_type(slug),
+        "title": phrase if slug is None else PROBLEM_TYPES[slug],
         "status": status,
         "detail": detail,
         "instance": instance,
@@ -231,9 +271,34 @@ def _issues_from_validation(exc: RequestValidationError) -> list[FieldIssue]:
     return issues
 
 
+def _malformed_json(request: Request, message: str) -> JSONResponse:
+    """400 (RFC 9110 §15.5.1): the body cannot be parsed, so no field can be named but ``body``."""
+    return problem_response(
+        400,
+        slug="malformed-json",
+        detail=f"the request body is not valid JSON: {message}",
+        instance=request.url.path,
+        errors=[FieldIssue("body", message)],
+    )
+
+
+def _json_syntax_error(exc: RequestValidationError) -> str | None:
+    """Where and why the body failed to parse as JSON, or ``None`` if it parsed."""
+    for err in exc.errors():
+        if err.get("type") == "json_invalid":
+            reason = str(err.get("ctx", {}).get("error", "JSON decode error"))
+            loc = err.get("loc", ())
+            offset = loc[-1] if len(loc) > 1 and isinstance(loc[-1], int) else None
+            return reason if offset is None else f"{reason} at character {offset}"
+    return None
+
+
 async def _on_validation(request: Request, exc: Exception) -> JSONResponse:
     if not isinstance(exc, RequestValidationError):
         return await _on_unexpected(request, exc)
+    syntax_error = _json_syntax_error(exc)
+    if syntax_error is not None:
+        return _malformed_json(request, syntax_error)
     issues = _issues_from_validation(exc)
     detail = f"{len(issues)} invalid field(s): " + ", ".join(i.field for i in issues)
     return problem_response(
@@ -285,6 +350,9 @@ async def _on_problem_error(request: Request, exc: Exception) -> JSONResponse:
 async def _on_http_error(request: Request, exc: Exception) -> JSONResponse:
     if not isinstance(exc, StarletteHTTPException):
         return await _on_unexpected(request, exc)
+    if exc.status_code == 400 and isinstance(exc.__cause__, UnicodeDecodeError):
+        # FastAPI's answer to a JSON body whose bytes are not UTF-8 (RFC 8259 §8.1)
+        return _malformed_json(request, f"not UTF-8 ({exc.__cause__.reason})")
     detail = exc.detail if isinstance(exc.detail, str) else HTTPStatus(exc.status_code).phrase
     headers = dict(exc.headers) if exc.headers else None
     return problem_response(

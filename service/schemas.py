@@ -404,7 +404,11 @@ class FieldIssueOut(BaseModel):
 class ProblemDocument(BaseModel):
     """An RFC 9457 problem details document (media type application/problem+json)."""
 
-    type: str = Field(description="URI reference naming the problem type")
+    type: str = Field(
+        description="problem type: a URN urn:bandwright:problem:<slug> (RFC 8141), or "
+        "about:blank for a plain HTTP status (RFC 9457 §4.2.1)",
+        examples=["urn:bandwright:problem:invalid-request"],
+    )
     title: str
     status: int
     detail: str
@@ -594,7 +598,9 @@ class EvaluateRequest(WireModel):
     gaps_hz: list[Annotated[float, Field(ge=0, le=MAX_FREQUENCY_HZ)]] = Field(
         default_factory=list, max_length=MAX_GAPS, description="edge-to-edge gaps (Hz)"
     )
-    leakage_limit_db: float = Field(30.0, ge=0, le=150, description="leakage limit (dB)")
+    leakage_limit_db: float | None = Field(
+        30.0, ge=0, le=150, description="leakage limit (dB) for the guard; null: no limit"
+    )
 
     _rate = field_validator("code_rate")(_check_code_rate)
     _link = field_validator("esn0_db")(_exactly_one_link)
@@ -613,7 +619,11 @@ class EvaluateResponse(BaseModel):
     occupied_bandwidth_hz: float = Field(description="99 % power bandwidth (Hz)")
     allocated_bandwidth_hz: float = Field(description="Rs(1+α) (Hz)")
     leakage_ratio_db: list[LeakageAtGap]
-    guard_needed_hz: float | None = Field(description="gap for the leakage limit (Hz)")
+    guard_needed_hz: float | None = Field(
+        description="gap (Hz) beyond which the leakage ratio meets leakage_limit_db; null when "
+        "no limit applies (leakage_limit_db null) or the limit is not met within the modelled "
+        "reach of the spectrum"
+    )
     esn0_db: float
     required_esn0_db: float | None = Field(
         description="(dB); null: this MODCOD cannot reach the target error rate at any Es/N0"
@@ -624,7 +634,10 @@ class EvaluateResponse(BaseModel):
     )
     link_closes: bool = Field(description="margin_db ≥ the requested margin")
     bits_per_symbol: int
-    throughput_bps: float
+    throughput_bps: float = Field(
+        description="Rs·log2(M)·r·(1 − framing overhead) (bit/s) when the link closes; "
+        "0 when it does not"
+    )
 
 
 class ModcodOut(BaseModel):

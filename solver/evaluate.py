@@ -35,7 +35,7 @@ class CarrierEvaluation:
     occupied_bandwidth_hz: float
     allocated_bandwidth_hz: float
     leakage_ratio_db: tuple[LeakageAtGap, ...]
-    guard_needed_hz: float
+    guard_needed_hz: float | None
     esn0_db: float
     required_esn0_db: float
     margin_db: float
@@ -74,7 +74,7 @@ def evaluate_carrier(
     coding: Coding | None = None,
     margin_db: float = 3.0,
     gaps_hz: Sequence[float] = (),
-    leakage_limit_db: float = 30.0,
+    leakage_limit_db: float | None = 30.0,
 ) -> CarrierEvaluation:
     """Evaluate one carrier configuration in isolation.
 
@@ -102,16 +102,19 @@ def evaluate_carrier(
         Margin (dB) the link must keep above the threshold to count as closing.
     gaps_hz : sequence of float
         Edge-to-edge gaps (Hz) at which to report the leakage ratio.
-    leakage_limit_db : float
-        Leakage limit (dB) for the guard needed.
+    leakage_limit_db : float or None
+        Leakage limit (dB) for the guard needed; ``None``: no limit applies, and no guard is
+        computed.
 
     Returns
     -------
     CarrierEvaluation
         Occupied (99 % power) and allocated (Rs(1+α)) bandwidths (Hz), the worst-side leakage
-        ratio (dB) at each gap, the guard (Hz) for the limit, Es/N0, required Es/N0 and their
-        difference (dB), whether that difference reaches ``margin_db``, and the throughput
-        Rs·log2(M)·r·(1 − overhead) (bit/s).
+        ratio (dB) at each gap, the guard (Hz) for the limit (``None`` without a limit,
+        ``math.inf`` when the limit is not met within the profile's reach), Es/N0, required
+        Es/N0 and their difference (dB), whether that difference reaches ``margin_db``, and the
+        throughput Rs·log2(M)·r·(1 − overhead) (bit/s) when it does, 0 when it does not: a link
+        that does not close carries nothing.
 
     Raises
     ------
@@ -131,6 +134,9 @@ def evaluate_carrier(
     ...                      code_rate=Fraction(3, 4), esn0_db=10.0)
     >>> round(e.allocated_bandwidth_hz)
     1200000
+    >>> evaluate_carrier(symbol_rate_baud=1e6, rolloff=0.2, modulation=Modulation.QPSK,
+    ...                  code_rate=Fraction(3, 4), esn0_db=-5.0).throughput_bps
+    0.0
     """
     _check_inputs(symbol_rate_baud, gaps_hz)
     coding = Coding() if coding is None else coding
@@ -142,18 +148,26 @@ def evaluate_carrier(
     required = float(modcod.required_esn0_db(modulation, code_rate, coding))
     bits = constellation(modulation).bits_per_symbol
     margin = float(link.margin_db(esn0, required))
+    closes = margin >= margin_db
+    guard_hz = (
+        None
+        if leakage_limit_db is None
+        else emission.guard_needed_hz(key, symbol_rate_baud, leakage_limit_db)
+    )
     return CarrierEvaluation(
         occupied_bandwidth_hz=emission.occupied_bandwidth_hz(key, symbol_rate_baud),
         allocated_bandwidth_hz=profile.nominal_bandwidth * symbol_rate_baud,
         leakage_ratio_db=_leakage(profile, gaps_hz, symbol_rate_baud),
-        guard_needed_hz=emission.guard_needed_hz(key, symbol_rate_baud, leakage_limit_db),
+        guard_needed_hz=guard_hz,
         esn0_db=esn0,
         required_esn0_db=required,
         margin_db=margin,
-        link_closes=margin >= margin_db,
+        link_closes=closes,
         bits_per_symbol=bits,
-        throughput_bps=float(
-            link.throughput_bps(symbol_rate_baud, bits, code_rate, coding.framing_overhead)
+        throughput_bps=(
+            float(link.throughput_bps(symbol_rate_baud, bits, code_rate, coding.framing_overhead))
+            if closes
+            else 0.0
         ),
     )
 

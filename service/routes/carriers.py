@@ -68,7 +68,7 @@ def _evaluate(body: EvaluateRequest) -> EvaluateResponse:
             LeakageAtGap(gap_hz=item.gap_hz, ratio_db=finite_or_none(item.ratio_db))
             for item in result.leakage_ratio_db
         ],
-        guard_needed_hz=finite_or_none(result.guard_needed_hz),
+        guard_needed_hz=finite_or_none(result.guard_needed_hz),  # None: no limit, or none met
         esn0_db=result.esn0_db,
         required_esn0_db=finite_or_none(result.required_esn0_db),
         margin_db=finite_or_none(result.margin_db),

@@ -166,11 +166,70 @@ def test_leakage_stays_within_limit_beyond_the_guard(
         "leakage_limit_db": limit_db,
     }
     guard_hz = evaluate_carrier(**common).guard_needed_hz
-    assume(math.isfinite(guard_hz))
+    assume(guard_hz is not None and math.isfinite(guard_hz))
     gaps = [guard_hz + extra for extra in extra_gaps_hz]
     result = evaluate_carrier(**common, gaps_hz=gaps)
     ratios = np.array([item.ratio_db for item in result.leakage_ratio_db])
     assert np.all(ratios >= limit_db - 0.05)
+
+
+async def test_no_limit_gives_a_null_guard(app: FastAPI) -> None:
+    # Wire contract (README "HTTP", EvaluateResponse.guard_needed_hz): with no leakage limit
+    # there is no guard to compute, so null, never 0 or a huge number; the leakage at each gap
+    # is still reported.
+    async with serving(app) as client:
+        answer = await client.post(
+            "/v1/carriers/evaluate", json=_evaluate_body(leakage_limit_db=None)
+        )
+    assert answer.status_code == 200, answer.text
+    body = answer.json()
+    assert body["guard_needed_hz"] is None
+    assert len(body["leakage_ratio_db"]) == 3
+    assert "Infinity" not in answer.text and "NaN" not in answer.text  # RFC 8259 §6
+
+
+async def test_a_limit_beyond_the_modelled_spectrum_gives_a_null_guard(app: FastAPI) -> None:
+    # 150 dB (the schema's largest limit) from a 2-symbol filter: its truncation sidelobes sit
+    # far above −150 dB of the carrier power for any gap the profile models, so no gap meets the
+    # limit; the wire says null rather than a number or an infinity (JSON has none, RFC 8259 §6).
+    async with serving(app) as client:
+        answer = await client.post(
+            "/v1/carriers/evaluate",
+            json=_evaluate_body(filter_span_symbols=2, leakage_limit_db=150.0),
+        )
+    assert answer.status_code == 200, answer.text
+    assert answer.json()["guard_needed_hz"] is None
+    assert "Infinity" not in answer.text
+
+
+# Shannon (C. E. Shannon, "A Mathematical Theory of Communication", 1948; AWGN capacity
+# log2(1 + Es/N0) bit per complex symbol): QPSK at rate 3/4 carries 1.5 bit/symbol, so no code
+# can close it below Es/N0 = 10·log10(2^1.5 − 1) = 2.62 dB.  Independent of the service's
+# finite-length thresholds, which can only be higher.
+SHANNON_QPSK_3_4_ESN0_DB = 10 * math.log10(2**1.5 - 1)
+
+
+@pytest.mark.parametrize(
+    "changes",
+    [
+        {"cn0_dbhz": 60.0},  # 60 dB-Hz at 1 Mbaud: Es/N0 = 0 dB, under the Shannon limit
+        {"cn0_dbhz": None, "esn0_db": -5.0},
+        # 30 dB leaves at most 30 − 2.62 = 27.4 dB over any threshold: short of a 40 dB margin
+        {"cn0_dbhz": None, "esn0_db": 30.0, "margin_db": 40.0},
+    ],
+    ids=["below-capacity-cn0", "below-capacity-esn0", "short-of-the-margin"],
+)
+async def test_a_link_that_cannot_close_carries_nothing(
+    app: FastAPI, changes: dict[str, Any]
+) -> None:
+    async with serving(app) as client:
+        answer = await client.post("/v1/carriers/evaluate", json=_evaluate_body(**changes))
+    assert answer.status_code == 200, answer.text
+    body = answer.json()
+    assert body["required_esn0_db"] > SHANNON_QPSK_3_4_ESN0_DB
+    assert body["link_closes"] is False
+    assert body["throughput_bps"] == 0.0
+    assert body["margin_db"] < changes.get("margin_db", 3.0)  # the margin asked for
 
 
 # EN 302 307-1 (DVB-S2) Table 13 ideal Es/N0, normal FECFRAME 64 800 bits, PER 1e-7 (via

@@ -55,7 +55,8 @@ def _assert_too_many(answer: httpx.Response, slug: str, window_s: int) -> None:
     assert answer.status_code == 429, answer.text
     assert answer.headers["content-type"].startswith("application/problem+json")
     body = answer.json()
-    assert body["type"].endswith(f"/{slug}") and body["status"] == 429
+    # the service's own problem-type URN (RFC 8141 syntax; README "HTTP"), not a web address
+    assert body["type"] == f"urn:bandwright:problem:{slug}" and body["status"] == 429
     retry_after = answer.headers["Retry-After"]
     assert retry_after.isdigit() and 1 <= int(retry_after) <= window_s  # RFC 9110 delay-seconds
 

@@ -225,7 +225,7 @@ async def test_past_the_drawing_places_the_answer_is_503_with_retry_after(
             (folder / "release").touch()
     assert busy.status_code == 503
     assert busy.headers["content-type"].startswith("application/problem+json")
-    assert busy.json()["type"].endswith("/pictures-busy")
+    assert busy.json()["type"] == "urn:bandwright:problem:pictures-busy"  # RFC 8141 URN
     assert busy.headers["Retry-After"] == str(one_place.retry_after_s)
     assert [a.status_code for a in answers] == [200, 200]
     assert len(_pids(folder)) == 1

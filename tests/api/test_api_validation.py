@@ -163,11 +163,43 @@ async def test_body_over_5_mb_gets_413_problem(app: FastAPI) -> None:
     assert_problem(response, 413)
 
 
-async def test_malformed_json_is_a_problem(app: FastAPI) -> None:
+# Bodies that are not JSON text (RFC 8259 §2: a JSON text is one value; §8.1: UTF-8), each on a
+# route that takes a body: the server cannot understand the request at all, so it is a 400
+# (RFC 9110 §15.5.1), not a 422, which is for content it understood (§15.5.21).
+MALFORMED_BODIES: list[tuple[str, bytes]] = [
+    ("/v1/plans", b'{"name": '),  # cut short
+    ("/v1/plans", b"{'name': 'single quotes'}"),
+    ("/v1/carriers/evaluate", b"not json"),
+    ("/v1/carriers/evaluate", b'{"symbol_rate_baud": 1e6,}'),  # trailing comma
+    ("/v1/carriers/evaluate", b'{"modulation": "\xff"}'),  # not UTF-8
+    ("/v1/jobs", b"[1, 2"),
+    ("/v1/batches", b"   "),  # whitespace only: no value
+]
+
+
+@pytest.mark.parametrize(("path", "body"), MALFORMED_BODIES)
+async def test_malformed_json_is_a_400_problem(app: FastAPI, path: str, body: bytes) -> None:
     headers = {"content-type": "application/json"}
     async with serving(app) as client:
-        response = await client.post("/v1/plans", content=b'{"name": ', headers=headers)
-    assert assert_problem(response, 422)["errors"]
+        response = await client.post(path, content=body, headers=headers)
+    doc = assert_problem(response, 400)
+    assert doc["type"] == "urn:bandwright:problem:malformed-json"  # RFC 9457 §3.1.1, RFC 8141
+    assert [e["field"] for e in doc["errors"]] == ["body"]
+    assert "JSON" in doc["detail"]
+
+
+async def test_json_that_parses_but_is_invalid_stays_a_422_naming_the_field(app: FastAPI) -> None:
+    headers = {"content-type": "application/json"}
+    body = b'{"symbol_rate_baud": "fast", "rolloff": 0.2, "modulation": "QPSK", '
+    body += b'"code_rate": "3/4", "esn0_db": 10}'
+    async with serving(app) as client:
+        response = await client.post("/v1/carriers/evaluate", content=body, headers=headers)
+        empty_object = await client.post("/v1/plans", content=b"{}", headers=headers)
+    doc = assert_problem(response, 422)  # RFC 9110 §15.5.21: understood, but not processable
+    assert doc["type"] == "urn:bandwright:problem:invalid-request"
+    assert [e["field"] for e in doc["errors"]] == ["symbol_rate_baud"]
+    fields = {e["field"] for e in assert_problem(empty_object, 422)["errors"]}
+    assert {"block", "demands"} <= fields
 
 
 async def test_unknown_previous_plan_is_named(app: FastAPI) -> None:
