@@ -3,15 +3,19 @@
 ::
 
     bandwright serve [--host H] [--port P]
-    bandwright plan REQUEST.json [--server URL] [-o PLAN.json] [--svg FILE]
-    bandwright replan REQUEST.json --previous PLAN.json [--server URL] [-o PLAN.json] [--svg FILE]
-    bandwright demo [--request FILE] [--svg FILE]
+    bandwright plan REQUEST.json [--server URL] [-o PLAN.json] [--svg F] [--png F] [--csv F]
+    bandwright replan REQUEST.json --previous PLAN.json [--server URL] [-o ...] [--csv F] ...
+    bandwright demo [--request FILE] [-o PLAN.json] [--svg FILE] [--png FILE] [--csv FILE]
+    bandwright --version
     bandwright keys create|list|revoke ...
     bandwright db upgrade|current [--url URL]
 
 Without ``--server`` a plan is computed in this process and **nothing is stored**: the plan goes
 to ``-o`` (its ``id`` is null) and the summary to stdout.  With ``--server`` the request is sent
-as a job to that service, which stores the plan; progress is polled.  A progress line for long
+as a job to that service, which stores the plan; progress is polled.  ``BANDWRIGHT_SERVER`` is
+the default of ``--server``; a URL without ``http://`` or ``https://`` is invalid input.
+``replan`` marks retuned carriers with ``*`` in its table and ends with one line for a
+notification, ``retuned K of N carriers: a, b``.  A progress line for long
 solves goes to stderr.  Exit codes a nightly script can branch on: 0 every demand served,
 3 some unserved, 4 infeasible, 2 invalid input (field and message on stderr), 5 server (or
 database) unreachable, 6 the database's schema is behind this version (run ``bandwright db
@@ -25,6 +29,7 @@ replicas start.  ``db current`` prints the database's revision (exit 6 when behi
 from __future__ import annotations
 
 import argparse
+import importlib.metadata
 import json
 import logging
 import os
@@ -33,7 +38,6 @@ import sys
 import threading
 import time
 from collections.abc import Sequence
-from dataclasses import dataclass
 from enum import IntEnum
 from pathlib import Path
 from typing import Any
@@ -42,6 +46,7 @@ import httpx
 import pydantic
 import sqlalchemy as sa
 
+from service.cli_report import ImageFormat, Outputs, retune_line, summary_table, write_outputs
 from service.convert import finite_or_none, plan_to_wire, to_problem
 from service.errors import (
     FieldIssue,
@@ -60,7 +65,14 @@ __all__ = ["ExitCode", "main", "summary_table"]
 logger = logging.getLogger(__name__)
 
 DEMO_REQUEST = Path("examples/demo-request.json")
-DEMO_SVG = Path("out/demo-spectrum.svg")
+DEMO_OUTPUTS = Outputs(
+    plan_path=Path("out/demo-plan.json"),
+    svg_path=Path("out/demo-spectrum.svg"),
+    png_path=Path("out/demo-spectrum.png"),
+    csv_path=Path("out/demo-carriers.csv"),
+)
+SERVER_ENV = "BANDWRIGHT_SERVER"
+URL_SCHEMES = frozenset({"http", "https"})
 LOOPBACK = "127.0.0.1"
 PROGRESS_AFTER_S = 1.0
 POLL_INTERVAL_S = 0.25
@@ -69,8 +81,6 @@ BUSY_RETRIES = 10
 WAIT_AND_RETRY = frozenset({httpx.codes.SERVICE_UNAVAILABLE, httpx.codes.TOO_MANY_REQUESTS})
 """Answers after which a POST is sent again once its Retry-After has passed."""
 SERVER_START_TIMEOUT_S = 20.0
-MHZ = 1e6
-KHZ = 1e3
 PERCENT = 100.0
 
 
@@ -98,6 +108,18 @@ class ExitCode(IntEnum):
     INFEASIBLE = 4
     UNREACHABLE = 5
     OUTDATED = 6
+
+
+EXIT_MEANINGS: dict[ExitCode, str] = {
+    ExitCode.SERVED: "every demand served",
+    ExitCode.UNSERVED: "some unserved",
+    ExitCode.INFEASIBLE: "infeasible",
+    ExitCode.INVALID: "invalid input (the field and the problem on stderr)",
+    ExitCode.UNREACHABLE: "server (or database) unreachable",
+    ExitCode.OUTDATED: "the database's schema is behind this version (run `bandwright db upgrade`)",
+    ExitCode.FAILED: "any other failure",
+}
+"""What each exit code means, for ``--help`` (the README's "Exit codes" paragraph agrees)."""
 
 
 class CliError(Exception):
@@ -171,38 +193,6 @@ class ProgressLine:
 # ----------------------------------------------------------------------------- summary
 
 
-def summary_table(plan: PlanOut) -> str:
-    """A readable table of the plan: one line per carrier, then unserved demands and totals."""
-    width = max([len("demand"), *(len(c.demand_id) for c in plan.carriers)]) + 2
-    head = (
-        f"{'demand':<{width}}{'centre MHz':>14}{'Rs Mbaud':>10}{'α':>6}  {'MODCOD':<16}"
-        f"{'Mbit/s':>9}{'margin dB':>10}{'guard kHz':>16}{'OBO dB':>8}{'EVM %':>7}"
-    )
-    lines = [f"plan {plan.id or '(not stored)'}  {plan.name!r}  status {plan.status.value}", head]
-    lines.append("-" * len(head))
-    for c in sorted(plan.carriers, key=lambda c: c.center_hz):
-        modcod = f"{c.modulation.value} {c.code_rate}"
-        guards = f"{c.guard_below_hz / KHZ:.1f}/{c.guard_above_hz / KHZ:.1f}"
-        backoff = "—" if c.output_backoff_db is None else f"{c.output_backoff_db:.1f}"
-        lines.append(
-            f"{c.demand_id:<{width}}{c.center_hz / MHZ:>14.4f}{c.symbol_rate_baud / MHZ:>10.4f}"
-            f"{c.rolloff:>6.2f}  {modcod:<16}{c.throughput_bps / MHZ:>9.3f}{c.margin_db:>10.2f}"
-            f"{guards:>16}{backoff:>8}{c.evm_pct:>7.2f}"
-        )
-    lines.extend(f"unserved {u.demand_id}: {u.reason.value} ({u.detail})" for u in plan.unserved)
-    s = plan.summary
-    gap = "—" if s.optimality_gap is None else f"{s.optimality_gap * PERCENT:.2f} %"
-    lines.append(
-        f"used {s.used_bandwidth_hz / MHZ:.4f} MHz, free {s.free_bandwidth_hz / MHZ:.4f} MHz "
-        f"(largest segment {s.largest_free_segment_hz / MHZ:.4f} MHz); throughput "
-        f"{s.total_throughput_bps / MHZ:.3f} Mbit/s, {s.spectral_efficiency_bps_per_hz:.3f} "
-        f"bit/s/Hz, {s.efficiency_vs_bound * PERCENT:.1f} % of the bound; gap {gap}; "
-        f"solved in {s.solve_time_s:.2f} s"
-    )
-    lines.extend(f"note: {n}" for n in plan.notices)
-    return "\n".join(lines) + "\n"
-
-
 def exit_code_for(plan: PlanOut) -> ExitCode:
     """0 every demand served, 3 some unserved, 4 infeasible."""
     if plan.status is SolveStatus.INFEASIBLE:
@@ -213,7 +203,12 @@ def exit_code_for(plan: PlanOut) -> ExitCode:
 # ----------------------------------------------------------------------------- in process
 
 
-def _solve_here(request: PlanRequest, previous: PlanOut | None) -> tuple[PlanOut, bytes | None]:
+Pictures = dict[ImageFormat, bytes]
+
+
+def _solve_here(
+    request: PlanRequest, previous: PlanOut | None, formats: Sequence[ImageFormat]
+) -> tuple[PlanOut, Pictures]:
     from solver import solve
 
     if request.previous_plan_id is not None and previous is None:
@@ -227,14 +222,14 @@ def _solve_here(request: PlanRequest, previous: PlanOut | None) -> tuple[PlanOut
         raise _invalid([FieldIssue(exc.field, exc.message)]) from exc
     parent = None if previous is None else previous.id
     out = plan_to_wire(plan, plan_id=None, created_at=utc_now(), parent_id=parent)
-    return out, _render_here(plan, problem)
+    return out, _render_here(plan, problem, formats)
 
 
-def _render_here(plan: Any, problem: Any) -> bytes:
+def _render_here(plan: Any, problem: Any, formats: Sequence[ImageFormat]) -> Pictures:
+    """The pictures asked for (none: no drawing at all)."""
     from service.render import render_spectrum
 
-    picture: bytes = render_spectrum(plan, problem, "svg")
-    return picture
+    return {fmt: render_spectrum(plan, problem, fmt) for fmt in formats}
 
 
 # ----------------------------------------------------------------------------- over HTTP
@@ -322,8 +317,8 @@ def _with_current(demand: DemandIn, carriers: dict[str, Any]) -> DemandIn:
 
 
 def _solve_remote(
-    server: str, request: PlanRequest, previous: PlanOut | None
-) -> tuple[PlanOut, bytes | None]:
+    server: str, request: PlanRequest, previous: PlanOut | None, formats: Sequence[ImageFormat]
+) -> tuple[PlanOut, Pictures]:
     payload = _request_for_server(request, previous)
     try:
         with _client(server) as client:
@@ -332,32 +327,43 @@ def _solve_remote(
             if response.status_code != httpx.codes.OK:
                 raise _problem_exit(response)
             plan = PlanOut.model_validate(response.json())
-            picture = client.get(f"{plan_url}/spectrum.svg")
-            svg = picture.content if picture.status_code == httpx.codes.OK else None
+            pictures = {fmt: client.get(f"{plan_url}/spectrum.{fmt}") for fmt in formats}
     except httpx.TransportError as exc:
         raise CliError(ExitCode.UNREACHABLE, f"server unreachable: {server}: {exc}") from exc
-    return plan, svg
+    drawn = {f: p.content for f, p in pictures.items() if p.status_code == httpx.codes.OK}
+    return plan, drawn
+
+
+def _server_url(value: str | None) -> str | None:
+    """``--server`` (or ``BANDWRIGHT_SERVER``), checked: an http(s) URL with a host."""
+    if not value:
+        return None
+    source = "--server" if value != os.environ.get(SERVER_ENV) else f"--server ({SERVER_ENV})"
+    try:
+        url = httpx.URL(value)
+    except httpx.InvalidURL as exc:
+        raise _invalid([FieldIssue(source, f"{value!r} is not a URL: {exc}")]) from exc
+    if url.scheme not in URL_SCHEMES or not url.host:
+        reason = f"{value!r} needs http:// or https:// and a host, e.g. http://127.0.0.1:8000"
+        raise _invalid([FieldIssue(source, reason)])
+    return value
 
 
 # ----------------------------------------------------------------------------- commands
 
 
-@dataclass(frozen=True)
-class _Outputs:
-    plan_path: Path | None
-    svg_path: Path | None
-
-
-def _finish(plan: PlanOut, svg: bytes | None, outputs: _Outputs) -> ExitCode:
-    if outputs.plan_path is not None:
-        outputs.plan_path.parent.mkdir(parents=True, exist_ok=True)
-        outputs.plan_path.write_text(plan.model_dump_json(indent=2) + "\n", encoding="utf-8")
-    if outputs.svg_path is not None:
-        if svg is None:
-            raise CliError(ExitCode.FAILED, "no spectrum picture was produced")
-        outputs.svg_path.parent.mkdir(parents=True, exist_ok=True)
-        outputs.svg_path.write_bytes(svg)
+def _finish(plan: PlanOut, pictures: Pictures, outputs: Outputs, *, replan: bool) -> ExitCode:
+    """Write the files asked for, then the table to stdout (and, for a replan, its retune
+    line after it); the exit code the plan calls for."""
+    try:
+        write_outputs(plan, pictures, outputs)
+    except ValueError as exc:
+        raise CliError(ExitCode.FAILED, str(exc)) from exc
+    except OSError as exc:
+        raise CliError(ExitCode.FAILED, f"cannot write: {exc}") from exc
     sys.stdout.write(summary_table(plan))
+    if replan:
+        sys.stdout.write(retune_line(plan))
     return exit_code_for(plan)
 
 
@@ -407,7 +413,8 @@ def _follow_batch(client: httpx.Client, location: str, total: int) -> dict[str, 
 
 def _cmd_batch(args: argparse.Namespace) -> ExitCode:
     """``replan --batch DIR --server URL``: every request in DIR as one batch of jobs."""
-    if args.server is None:
+    server = _server_url(args.server)
+    if server is None:
         raise _invalid([FieldIssue("--server", "a batch runs on the service's workers")])
     loaded = _load_batch(args.batch)
     payload = {
@@ -416,7 +423,7 @@ def _cmd_batch(args: argparse.Namespace) -> ExitCode:
     }
     out_dir = args.batch / "plans" if args.output_dir is None else args.output_dir
     try:
-        with _client(args.server) as client:
+        with _client(server) as client:
             batch = _follow_batch(client, _post_batch(client, payload), len(loaded))
             out_dir.mkdir(parents=True, exist_ok=True)
             for (path, _), item in zip(loaded, batch["items"], strict=True):
@@ -446,14 +453,15 @@ def _cmd_plan(args: argparse.Namespace) -> ExitCode:
         raise _invalid([FieldIssue("REQUEST.json", "required (or --batch DIR for replan)")])
     if args.command == "replan" and args.previous is None:
         raise _invalid([FieldIssue("--previous", "required with REQUEST.json")])
+    server = _server_url(args.server)
     request = _load_request(args.request)
     previous = _load_plan(args.previous) if getattr(args, "previous", None) else None
-    outputs = _Outputs(args.output, args.svg)
-    if args.server:
-        plan, svg = _solve_remote(args.server, request, previous)
+    outputs = Outputs(args.output, args.svg, args.png, args.csv)
+    if server:
+        plan, pictures = _solve_remote(server, request, previous, outputs.formats())
     else:
-        plan, svg = _solve_here(request, previous)
-    return _finish(plan, svg, outputs)
+        plan, pictures = _solve_here(request, previous, outputs.formats())
+    return _finish(plan, pictures, outputs, replan=args.command == "replan")
 
 
 def _cmd_serve(args: argparse.Namespace) -> ExitCode:
@@ -630,9 +638,11 @@ def _cmd_demo(args: argparse.Namespace) -> ExitCode:
         if not server.started:
             raise CliError(ExitCode.FAILED, "the demo service did not start")
         _err(f"demo service on http://{LOOPBACK}:{port} (store: {Settings().database_url})")
-        plan, svg = _solve_remote(f"http://{LOOPBACK}:{port}", request, None)
-        code = _finish(plan, svg, _Outputs(None, args.svg))
-        _err(f"spectrum picture written to {args.svg}")
+        outputs = Outputs(args.output, args.svg, args.png, args.csv)
+        url = f"http://{LOOPBACK}:{port}"
+        plan, pictures = _solve_remote(url, request, None, outputs.formats())
+        code = _finish(plan, pictures, outputs, replan=False)
+        sys.stdout.writelines(f"wrote {path}\n" for path in outputs.paths())
         return code
     finally:
         server.should_exit = True
@@ -640,43 +650,125 @@ def _cmd_demo(args: argparse.Namespace) -> ExitCode:
         sock.close()
 
 
+def _version() -> str:
+    try:
+        return importlib.metadata.version("bandwright")
+    except importlib.metadata.PackageNotFoundError:  # run from a checkout, not installed
+        return "unknown (not installed)"
+
+
+def _exit_codes_epilog() -> str:
+    lines = [f"  {int(code)}  {EXIT_MEANINGS[code]}" for code in sorted(EXIT_MEANINGS)]
+    return "exit codes:\n" + "\n".join(lines)
+
+
 def _parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
-        prog="bandwright", description="Plan carriers in a licensed spectrum block."
+        prog="bandwright",
+        description="Plan carriers in a licensed spectrum block.",
+        epilog=_exit_codes_epilog(),
+        formatter_class=argparse.RawDescriptionHelpFormatter,
     )
-    sub = parser.add_subparsers(dest="command", required=True)
+    parser.add_argument(
+        "--version", action="version", version=f"%(prog)s {_version()}", help="print the version"
+    )
+    sub = parser.add_subparsers(dest="command", required=True, help="what to do")
     serve = sub.add_parser("serve", help="run the HTTP service")
     serve.add_argument("--host", help="address to bind (default BANDWRIGHT_HOST or 127.0.0.1)")
     serve.add_argument("--port", type=int, help="port (default BANDWRIGHT_PORT or 8000)")
     serve.set_defaults(run=_cmd_serve)
     for name, text in (("plan", "plan a request"), ("replan", "replan from a previous plan")):
-        cmd = sub.add_parser(name, help=text)
-        cmd.add_argument("request", type=Path, metavar="REQUEST.json", nargs="?")
-        if name == "replan":
-            cmd.add_argument("--previous", type=Path, metavar="PLAN.json")
-            cmd.add_argument(
-                "--batch",
-                type=Path,
-                metavar="DIR",
-                help="every *.json request in DIR as one batch on --server (a replan names its "
-                "previous_plan_id); exit code of the worst outcome",
-            )
-            cmd.add_argument(
-                "--output-dir", type=Path, metavar="DIR", help="batch plans (default DIR/plans)"
-            )
-        cmd.add_argument("--server", help="service URL; without it the plan is computed here")
-        cmd.add_argument("-o", "--output", type=Path, metavar="PLAN.json", help="write the plan")
-        cmd.add_argument("--svg", type=Path, metavar="FILE", help="write the spectrum picture")
-        cmd.set_defaults(run=_cmd_plan)
+        _add_plan_command(sub, name, text)
+    _add_keys_command(sub)
+    _add_worker_command(sub)
+    _add_db_command(sub)
+    _add_demo_command(sub)
+    return parser
+
+
+Commands = Any
+"""argparse's sub-parser action (its class is private to argparse)."""
+
+
+def _add_outputs(cmd: argparse.ArgumentParser, defaults: Outputs) -> None:
+    """``-o``, ``--svg``, ``--png``, ``--csv``: the files a plan is written to."""
+    cmd.add_argument(
+        "-o",
+        "--output",
+        type=Path,
+        metavar="PLAN.json",
+        default=defaults.plan_path,
+        help="write the plan (JSON, with its notices)",
+    )
+    cmd.add_argument(
+        "--svg",
+        type=Path,
+        metavar="FILE",
+        default=defaults.svg_path,
+        help="write the spectrum picture (SVG)",
+    )
+    cmd.add_argument(
+        "--png",
+        type=Path,
+        metavar="FILE",
+        default=defaults.png_path,
+        help="write the spectrum picture (PNG)",
+    )
+    cmd.add_argument(
+        "--csv",
+        type=Path,
+        metavar="FILE",
+        default=defaults.csv_path,
+        help="write the carriers as CSV (RFC 4180, units in the column names); the plan's "
+        "notices apply to it",
+    )
+
+
+def _add_plan_command(sub: Commands, name: str, text: str) -> None:
+    cmd = sub.add_parser(name, help=text)
+    cmd.add_argument(
+        "request", type=Path, metavar="REQUEST.json", nargs="?", help="the plan request (JSON)"
+    )
+    if name == "replan":
+        cmd.add_argument(
+            "--previous", type=Path, metavar="PLAN.json", help="the plan in force (JSON, from -o)"
+        )
+        cmd.add_argument(
+            "--batch",
+            type=Path,
+            metavar="DIR",
+            help="every *.json request in DIR as one batch on --server (a replan names its "
+            "previous_plan_id); exit code of the worst outcome",
+        )
+        cmd.add_argument(
+            "--output-dir", type=Path, metavar="DIR", help="batch plans (default DIR/plans)"
+        )
+    cmd.add_argument(
+        "--server",
+        default=os.environ.get(SERVER_ENV) or None,
+        metavar="URL",
+        help=f"service URL, e.g. http://127.0.0.1:8000 (default {SERVER_ENV}); without it the "
+        "plan is computed here and not stored",
+    )
+    _add_outputs(cmd, Outputs())
+    cmd.set_defaults(run=_cmd_plan)
+
+
+def _add_keys_command(sub: Commands) -> None:
     keys = sub.add_parser("keys", help="create, list and revoke API keys")
-    actions = keys.add_subparsers(dest="action", required=True)
+    actions = keys.add_subparsers(dest="action", required=True, help="what to do with keys")
     create = actions.add_parser("create", help="print a new key (shown only once)")
-    create.add_argument("--scope", choices=["read", "plan", "admin"], required=True)
+    create.add_argument(
+        "--scope", choices=["read", "plan", "admin"], required=True, help="what the key may do"
+    )
     create.add_argument("--name", default="", help="who or what the key is for")
     actions.add_parser("list", help="every key: id, scope, state, created, name")
     revoke = actions.add_parser("revoke", help="revoke a key by its id")
-    revoke.add_argument("id")
+    revoke.add_argument("id", help="the key's id (from `keys list`)")
     keys.set_defaults(run=_cmd_keys)
+
+
+def _add_worker_command(sub: Commands) -> None:
     worker = sub.add_parser("worker", help="run a worker for background jobs (needs a broker)")
     worker.add_argument(
         "--concurrency", type=int, default=1, help="jobs solved at once (processes; default 1)"
@@ -685,8 +777,11 @@ def _parser() -> argparse.ArgumentParser:
         "--check", action="store_true", help="exit 0 when a worker here beat in the last minute"
     )
     worker.set_defaults(run=_cmd_worker)
+
+
+def _add_db_command(sub: Commands) -> None:
     db = sub.add_parser("db", help="the store's schema: migrate it, or show its revision")
-    db_actions = db.add_subparsers(dest="action", required=True)
+    db_actions = db.add_subparsers(dest="action", required=True, help="what to do")
     for action, text in (
         ("upgrade", "migrate the database to this version's newest revision (once per release)"),
         ("current", "print the database's revision; exit 6 when it is behind this version"),
@@ -694,17 +789,24 @@ def _parser() -> argparse.ArgumentParser:
         command = db_actions.add_parser(action, help=text)
         command.add_argument("--url", help="SQLAlchemy URL (default BANDWRIGHT_DATABASE_URL)")
     db.set_defaults(run=_cmd_db)
-    demo = sub.add_parser("demo", help="start a local service and plan the demo request")
+
+
+def _add_demo_command(sub: Commands) -> None:
+    demo = sub.add_parser(
+        "demo", help="start a local service, plan the demo request, write plan, pictures, CSV"
+    )
     demo.add_argument("--request", type=Path, default=DEMO_REQUEST, help="request to plan")
-    demo.add_argument("--svg", type=Path, default=DEMO_SVG, help="where to write the picture")
+    _add_outputs(demo, DEMO_OUTPUTS)
     demo.set_defaults(run=_cmd_demo)
-    return parser
 
 
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``bandwright`` console script; returns the exit code."""
     logging.basicConfig(level=logging.WARNING, format="%(levelname)s %(name)s: %(message)s")
-    args = _parser().parse_args(argv)
+    try:
+        args = _parser().parse_args(argv)
+    except SystemExit as exc:  # --help, --version (0) or a refused argument (2: invalid input)
+        return ExitCode.SERVED if exc.code is None else int(exc.code)
     try:
         return int(args.run(args))
     except CliError as exc:
