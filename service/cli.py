@@ -38,7 +38,6 @@ import sys
 import threading
 import time
 from collections.abc import Sequence
-from enum import IntEnum
 from pathlib import Path
 from typing import Any
 
@@ -46,8 +45,31 @@ import httpx
 import pydantic
 import sqlalchemy as sa
 
-from service.cli_report import ImageFormat, Outputs, retune_line, summary_table, write_outputs
-from service.convert import finite_or_none, plan_to_wire, to_problem
+from service.cli_remote import (
+    SERVER_ENV,
+    follow_batch,
+    open_client,
+    post_batch,
+    problem_exit,
+    server_url,
+    solve_remote,
+)
+from service.cli_report import (
+    EXIT_MEANINGS,
+    CliError,
+    ExitCode,
+    ImageFormat,
+    Outputs,
+    Pictures,
+    ProgressLine,
+    err,
+    exit_code_for,
+    invalid,
+    retune_line,
+    summary_table,
+    write_outputs,
+)
+from service.convert import plan_to_wire, to_problem
 from service.errors import (
     FieldIssue,
     InvalidInputError,
@@ -55,10 +77,10 @@ from service.errors import (
     StoreUnavailableError,
     field_path,
 )
-from service.schemas import DemandIn, PlanOut, PlanRequest
+from service.schemas import PlanOut, PlanRequest
 from service.settings import Settings
 from service.store import Store, utc_now
-from solver import ProblemError, ProgressEvent, SolveStatus
+from solver import ProblemError
 
 __all__ = ["ExitCode", "main", "summary_table"]
 
@@ -71,17 +93,9 @@ DEMO_OUTPUTS = Outputs(
     png_path=Path("out/demo-spectrum.png"),
     csv_path=Path("out/demo-carriers.csv"),
 )
-SERVER_ENV = "BANDWRIGHT_SERVER"
-URL_SCHEMES = frozenset({"http", "https"})
 LOOPBACK = "127.0.0.1"
-PROGRESS_AFTER_S = 1.0
-POLL_INTERVAL_S = 0.25
-HTTP_TIMEOUT_S = 30.0
-BUSY_RETRIES = 10
-WAIT_AND_RETRY = frozenset({httpx.codes.SERVICE_UNAVAILABLE, httpx.codes.TOO_MANY_REQUESTS})
-"""Answers after which a POST is sent again once its Retry-After has passed."""
 SERVER_START_TIMEOUT_S = 20.0
-PERCENT = 100.0
+STARTED_POLL_S = 0.05
 
 
 FALLBACK_DEMO_REQUEST: dict[str, Any] = {
@@ -98,48 +112,6 @@ FALLBACK_DEMO_REQUEST: dict[str, Any] = {
 """Used by ``bandwright demo`` when examples/demo-request.json is absent (invented scenario)."""
 
 
-class ExitCode(IntEnum):
-    """Process exit codes."""
-
-    SERVED = 0
-    FAILED = 1
-    INVALID = 2
-    UNSERVED = 3
-    INFEASIBLE = 4
-    UNREACHABLE = 5
-    OUTDATED = 6
-
-
-EXIT_MEANINGS: dict[ExitCode, str] = {
-    ExitCode.SERVED: "every demand served",
-    ExitCode.UNSERVED: "some unserved",
-    ExitCode.INFEASIBLE: "infeasible",
-    ExitCode.INVALID: "invalid input (the field and the problem on stderr)",
-    ExitCode.UNREACHABLE: "server (or database) unreachable",
-    ExitCode.OUTDATED: "the database's schema is behind this version (run `bandwright db upgrade`)",
-    ExitCode.FAILED: "any other failure",
-}
-"""What each exit code means, for ``--help`` (the README's "Exit codes" paragraph agrees)."""
-
-
-class CliError(Exception):
-    """Ends the command with ``code`` after writing ``message`` to stderr."""
-
-    def __init__(self, code: ExitCode, message: str) -> None:
-        super().__init__(message)
-        self.code = code
-
-
-def _err(text: str) -> None:
-    sys.stderr.write(text + "\n")
-    sys.stderr.flush()
-
-
-def _invalid(issues: Sequence[FieldIssue]) -> CliError:
-    lines = [f"invalid input: {i.field}: {i.message}" for i in issues]
-    return CliError(ExitCode.INVALID, "\n".join(lines))
-
-
 def _read_json(path: Path, what: str) -> Any:
     try:
         return json.loads(path.read_text(encoding="utf-8"))
@@ -152,7 +124,7 @@ def _load_request(path: Path) -> PlanRequest:
         return PlanRequest.model_validate(_read_json(path, "REQUEST"))
     except pydantic.ValidationError as exc:
         issues = [FieldIssue(field_path(e["loc"]), e["msg"]) for e in exc.errors()]
-        raise _invalid(issues) from exc
+        raise invalid(issues) from exc
 
 
 def _load_plan(path: Path) -> PlanOut:
@@ -162,48 +134,7 @@ def _load_plan(path: Path) -> PlanOut:
         raise CliError(ExitCode.INVALID, f"invalid input: --previous: {path}: {exc}") from exc
 
 
-class ProgressLine:
-    """Writes to stderr what the solve is computing, at once whenever that changes and at
-    most once a second otherwise; with each verified plan, its objective and gap (the
-    figures the plan reports)."""
-
-    def __init__(self) -> None:
-        self._started = time.monotonic()
-        self._last = -PROGRESS_AFTER_S
-        self._stage: str | None = None
-
-    def __call__(self, event: ProgressEvent) -> None:
-        self.show(
-            finite_or_none(event.objective_value), finite_or_none(event.optimality_gap), event.stage
-        )
-
-    def show(self, objective: float | None, gap: float | None, stage: str | None = None) -> None:
-        now = time.monotonic() - self._started
-        changed = stage != self._stage
-        if not changed and now - self._last < PROGRESS_AFTER_S:
-            return
-        self._last, self._stage = now, stage
-        best = "—" if objective is None else f"{objective:.6g}"
-        gap_text = "—" if gap is None else f"{gap * PERCENT:.2f} %"
-        # Wall time since the command started waiting (one clock for every stage).
-        what = f"{stage}: " if stage else ""
-        _err(f"solving: elapsed {now:6.1f} s  {what}best objective {best}  gap {gap_text}")
-
-
-# ----------------------------------------------------------------------------- summary
-
-
-def exit_code_for(plan: PlanOut) -> ExitCode:
-    """0 every demand served, 3 some unserved, 4 infeasible."""
-    if plan.status is SolveStatus.INFEASIBLE:
-        return ExitCode.INFEASIBLE
-    return ExitCode.UNSERVED if plan.unserved else ExitCode.SERVED
-
-
 # ----------------------------------------------------------------------------- in process
-
-
-Pictures = dict[ImageFormat, bytes]
 
 
 def _solve_here(
@@ -212,14 +143,14 @@ def _solve_here(
     from solver import solve
 
     if request.previous_plan_id is not None and previous is None:
-        raise _invalid([FieldIssue("previous_plan_id", "needs --server, or use --previous")])
+        raise invalid([FieldIssue("previous_plan_id", "needs --server, or use --previous")])
     try:
         problem = to_problem(request, previous=previous)
         plan = solve(problem, progress=ProgressLine())
     except InvalidInputError as exc:
-        raise _invalid(exc.issues) from exc
+        raise invalid(exc.issues) from exc
     except ProblemError as exc:
-        raise _invalid([FieldIssue(exc.field, exc.message)]) from exc
+        raise invalid([FieldIssue(exc.field, exc.message)]) from exc
     parent = None if previous is None else previous.id
     out = plan_to_wire(plan, plan_id=None, created_at=utc_now(), parent_id=parent)
     return out, _render_here(plan, problem, formats)
@@ -230,123 +161,6 @@ def _render_here(plan: Any, problem: Any, formats: Sequence[ImageFormat]) -> Pic
     from service.render import render_spectrum
 
     return {fmt: render_spectrum(plan, problem, fmt) for fmt in formats}
-
-
-# ----------------------------------------------------------------------------- over HTTP
-
-
-def _problem_exit(response: httpx.Response) -> CliError:
-    try:
-        doc = response.json()
-    except ValueError:
-        doc = {}
-    if response.status_code == httpx.codes.UNPROCESSABLE_ENTITY:
-        issues = [FieldIssue(e["field"], e["message"]) for e in doc.get("errors", [])]
-        return _invalid(issues or [FieldIssue("body", str(doc.get("detail", "invalid")))])
-    detail = doc.get("detail", response.text[:200])
-    return CliError(ExitCode.FAILED, f"server answered {response.status_code}: {detail}")
-
-
-def _client(server: str) -> httpx.Client:
-    """An HTTP client for the service, sending ``BANDWRIGHT_API_KEY`` as a bearer key if set."""
-    key = os.environ.get("BANDWRIGHT_API_KEY", "")
-    headers = {"Authorization": f"Bearer {key}"} if key else {}
-    return httpx.Client(base_url=server, timeout=HTTP_TIMEOUT_S, headers=headers)
-
-
-def _post_job(client: httpx.Client, payload: dict[str, Any]) -> str:
-    return _post_accepted(client, "/v1/jobs", payload)
-
-
-def _post_batch(client: httpx.Client, payload: dict[str, Any]) -> str:
-    return _post_accepted(client, "/v1/batches", payload)
-
-
-def _post_accepted(client: httpx.Client, path: str, payload: dict[str, Any]) -> str:
-    """POST for a 202, waiting out 503 and 429 answers; the Location of what was accepted."""
-    for _ in range(BUSY_RETRIES):
-        response = client.post(path, json=payload)
-        if response.status_code in WAIT_AND_RETRY:
-            time.sleep(float(response.headers.get("Retry-After", "1")))
-            continue
-        if response.status_code != httpx.codes.ACCEPTED:
-            raise _problem_exit(response)
-        return str(response.headers["Location"])
-    raise CliError(ExitCode.FAILED, "the server stayed busy; try again later")
-
-
-def _wait_for_job(client: httpx.Client, location: str) -> str:
-    progress = ProgressLine()
-    while True:
-        response = client.get(location)
-        if response.status_code != httpx.codes.OK:
-            raise _problem_exit(response)
-        job = response.json()
-        if job["state"] == "done":
-            return str(job["plan_url"])
-        if job["state"] == "failed":
-            error = job.get("error") or {}
-            if error.get("status") == httpx.codes.UNPROCESSABLE_ENTITY:
-                issues = [FieldIssue(e["field"], e["message"]) for e in error.get("errors", [])]
-                raise _invalid(issues)
-            raise CliError(ExitCode.FAILED, f"job failed: {error.get('detail', 'unknown')}")
-        if job.get("progress"):
-            p = job["progress"]
-            progress.show(p["objective_value"], p["optimality_gap"], p.get("stage"))
-        time.sleep(POLL_INTERVAL_S)
-
-
-def _request_for_server(request: PlanRequest, previous: PlanOut | None) -> dict[str, Any]:
-    if previous is None:
-        return request.model_dump(mode="json")
-    if previous.id is not None:
-        return request.model_copy(update={"previous_plan_id": previous.id}).model_dump(mode="json")
-    # An offline plan has no id on the server: send its settings as each demand's `current`.
-    carriers = {c.demand_id: c for c in previous.carriers}
-    demands = [_with_current(d, carriers) for d in request.demands]
-    return request.model_copy(update={"demands": demands}).model_dump(mode="json")
-
-
-def _with_current(demand: DemandIn, carriers: dict[str, Any]) -> DemandIn:
-    carrier = carriers.get(demand.id)
-    if demand.current is not None or carrier is None:
-        return demand
-    current = {k: getattr(carrier, k) for k in ("center_hz", "symbol_rate_baud", "rolloff")}
-    current |= {"modulation": carrier.modulation, "code_rate": carrier.code_rate}
-    return DemandIn.model_validate({**demand.model_dump(), "current": current})
-
-
-def _solve_remote(
-    server: str, request: PlanRequest, previous: PlanOut | None, formats: Sequence[ImageFormat]
-) -> tuple[PlanOut, Pictures]:
-    payload = _request_for_server(request, previous)
-    try:
-        with _client(server) as client:
-            plan_url = _wait_for_job(client, _post_job(client, payload))
-            response = client.get(plan_url)
-            if response.status_code != httpx.codes.OK:
-                raise _problem_exit(response)
-            plan = PlanOut.model_validate(response.json())
-            pictures = {fmt: client.get(f"{plan_url}/spectrum.{fmt}") for fmt in formats}
-    except httpx.TransportError as exc:
-        raise CliError(ExitCode.UNREACHABLE, f"server unreachable: {server}: {exc}") from exc
-    drawn = {f: p.content for f, p in pictures.items() if p.status_code == httpx.codes.OK}
-    return plan, drawn
-
-
-def _server_url(value: str | None) -> str | None:
-    """``--server`` (or ``BANDWRIGHT_SERVER``), checked: an http(s) URL with a host."""
-    if not value:
-        return None
-    source = "--server" if value != os.environ.get(SERVER_ENV) else f"--server ({SERVER_ENV})"
-    try:
-        url = httpx.URL(value)
-    except httpx.InvalidURL as exc:
-        raise _invalid([FieldIssue(source, f"{value!r} is not a URL: {exc}")]) from exc
-    if url.scheme not in URL_SCHEMES or not url.host:
-        reason = f"{value!r} needs http:// or https:// and a host, e.g. http://127.0.0.1:8000"
-        raise _invalid([FieldIssue(source, reason)])
-    return value
 
 
 # ----------------------------------------------------------------------------- commands
@@ -379,10 +193,10 @@ OUTCOME_EXIT = {
 
 def _load_batch(directory: Path) -> list[tuple[Path, PlanRequest]]:
     if not directory.is_dir():
-        raise _invalid([FieldIssue("--batch", f"{directory} is not a directory")])
+        raise invalid([FieldIssue("--batch", f"{directory} is not a directory")])
     files = sorted(directory.glob("*.json"))
     if not files:
-        raise _invalid([FieldIssue("--batch", f"no *.json request in {directory}")])
+        raise invalid([FieldIssue("--batch", f"no *.json request in {directory}")])
     loaded, issues = [], []
     for path in files:
         try:
@@ -390,32 +204,15 @@ def _load_batch(directory: Path) -> list[tuple[Path, PlanRequest]]:
         except CliError as exc:
             issues.append(FieldIssue(path.name, str(exc).removeprefix("invalid input: ")))
     if issues:
-        raise _invalid(issues)
+        raise invalid(issues)
     return loaded
-
-
-def _follow_batch(client: httpx.Client, location: str, total: int) -> dict[str, Any]:
-    from tqdm import tqdm
-
-    with tqdm(total=total, unit="plan", file=sys.stderr, dynamic_ncols=True) as bar:
-        while True:
-            response = client.get(location)
-            if response.status_code != httpx.codes.OK:
-                raise _problem_exit(response)
-            batch: dict[str, Any] = response.json()
-            s = batch["summary"]
-            bar.update(s["done"] + s["failed"] + s["cancelled"] - bar.n)
-            bar.set_postfix(running=s["running"], queued=s["queued"], worst=s["worst"])
-            if s["finished"]:
-                return batch
-            time.sleep(POLL_INTERVAL_S * 4)
 
 
 def _cmd_batch(args: argparse.Namespace) -> ExitCode:
     """``replan --batch DIR --server URL``: every request in DIR as one batch of jobs."""
-    server = _server_url(args.server)
+    server = server_url(args.server)
     if server is None:
-        raise _invalid([FieldIssue("--server", "a batch runs on the service's workers")])
+        raise invalid([FieldIssue("--server", "a batch runs on the service's workers")])
     loaded = _load_batch(args.batch)
     payload = {
         "name": args.batch.resolve().name or "batch",
@@ -423,15 +220,15 @@ def _cmd_batch(args: argparse.Namespace) -> ExitCode:
     }
     out_dir = args.batch / "plans" if args.output_dir is None else args.output_dir
     try:
-        with _client(server) as client:
-            batch = _follow_batch(client, _post_batch(client, payload), len(loaded))
+        with open_client(server) as client:
+            batch = follow_batch(client, post_batch(client, payload), len(loaded))
             out_dir.mkdir(parents=True, exist_ok=True)
             for (path, _), item in zip(loaded, batch["items"], strict=True):
                 line = f"{path.name}: {item['outcome']}"
                 if item["plan_url"]:
                     plan = client.get(item["plan_url"])
                     if plan.status_code != httpx.codes.OK:
-                        raise _problem_exit(plan)
+                        raise problem_exit(plan)
                     (out_dir / f"{path.stem}.plan.json").write_text(plan.text, encoding="utf-8")
                     line += f" ({item['unserved_count']} unserved) → {item['plan_url']}"
                 elif item["error"]:
@@ -440,25 +237,25 @@ def _cmd_batch(args: argparse.Namespace) -> ExitCode:
     except httpx.TransportError as exc:
         raise CliError(ExitCode.UNREACHABLE, f"server unreachable: {args.server}: {exc}") from exc
     worst = batch["summary"]["worst"]
-    _err(f"batch {batch['id']}: {len(loaded)} item(s), worst outcome {worst}; plans in {out_dir}")
+    err(f"batch {batch['id']}: {len(loaded)} item(s), worst outcome {worst}; plans in {out_dir}")
     return OUTCOME_EXIT[worst]
 
 
 def _cmd_plan(args: argparse.Namespace) -> ExitCode:
     if getattr(args, "batch", None) is not None:
         if args.request is not None or args.previous is not None:
-            raise _invalid([FieldIssue("--batch", "give either --batch DIR or REQUEST.json")])
+            raise invalid([FieldIssue("--batch", "give either --batch DIR or REQUEST.json")])
         return _cmd_batch(args)
     if args.request is None:
-        raise _invalid([FieldIssue("REQUEST.json", "required (or --batch DIR for replan)")])
+        raise invalid([FieldIssue("REQUEST.json", "required (or --batch DIR for replan)")])
     if args.command == "replan" and args.previous is None:
-        raise _invalid([FieldIssue("--previous", "required with REQUEST.json")])
-    server = _server_url(args.server)
+        raise invalid([FieldIssue("--previous", "required with REQUEST.json")])
+    server = server_url(args.server)
     request = _load_request(args.request)
     previous = _load_plan(args.previous) if getattr(args, "previous", None) else None
     outputs = Outputs(args.output, args.svg, args.png, args.csv)
     if server:
-        plan, pictures = _solve_remote(server, request, previous, outputs.formats())
+        plan, pictures = solve_remote(server, request, previous, outputs.formats())
     else:
         plan, pictures = _solve_here(request, previous, outputs.formats())
     return _finish(plan, pictures, outputs, replan=args.command == "replan")
@@ -518,7 +315,7 @@ def _cmd_keys(args: argparse.Namespace) -> ExitCode:
         store.ensure_schema()
         if args.action == "create":
             key, record = create_key(store, Scope(args.scope), args.name, settings.keys_pepper)
-            _err(f"key {record.id} ({record.scope}, {record.name!r}); it is shown only once:")
+            err(f"key {record.id} ({record.scope}, {record.name!r}); it is shown only once:")
             print(key)
         elif args.action == "list":
             for item in store.list_keys():
@@ -527,7 +324,7 @@ def _cmd_keys(args: argparse.Namespace) -> ExitCode:
         elif not store.revoke_key(args.id):
             raise CliError(ExitCode.INVALID, f"no live key {args.id!r}")
         else:
-            _err(f"key {args.id} revoked")
+            err(f"key {args.id} revoked")
     finally:
         store.close()
     return ExitCode.SERVED
@@ -547,7 +344,7 @@ def _cmd_worker(args: argparse.Namespace) -> ExitCode:
         if age is None or age > WORKER_STALE_AFTER_S:
             seen = "no heartbeat file" if age is None else f"last heartbeat {age:.0f} s ago"
             raise CliError(ExitCode.FAILED, f"worker not alive: {seen}")
-        _err(f"worker alive: last heartbeat {age:.0f} s ago")
+        err(f"worker alive: last heartbeat {age:.0f} s ago")
         return ExitCode.SERVED
     if not settings.broker_url:
         raise CliError(ExitCode.INVALID, "BANDWRIGHT_BROKER_URL is not set: no queue to work for")
@@ -580,7 +377,7 @@ def _cmd_db(args: argparse.Namespace) -> ExitCode:
     """``db upgrade|current``: the store's schema against this version's migrations."""
     store = _open_store(args)
     try:
-        _err(f"database: {sa.make_url(store.url).render_as_string(hide_password=True)}")
+        err(f"database: {sa.make_url(store.url).render_as_string(hide_password=True)}")
         return _db_upgrade(store) if args.action == "upgrade" else _db_current(store)
     finally:
         store.close()
@@ -623,7 +420,7 @@ def _cmd_demo(args: argparse.Namespace) -> ExitCode:
     if args.request.exists():
         request = _load_request(args.request)
     else:
-        _err(f"{args.request} not found; planning the built-in invented demo request")
+        err(f"{args.request} not found; planning the built-in invented demo request")
         request = PlanRequest.model_validate(FALLBACK_DEMO_REQUEST)
     sock = _free_socket()
     port = sock.getsockname()[1]
@@ -634,13 +431,13 @@ def _cmd_demo(args: argparse.Namespace) -> ExitCode:
     try:
         deadline = time.monotonic() + SERVER_START_TIMEOUT_S
         while not server.started and thread.is_alive() and time.monotonic() < deadline:
-            time.sleep(POLL_INTERVAL_S / 5)
+            time.sleep(STARTED_POLL_S)
         if not server.started:
             raise CliError(ExitCode.FAILED, "the demo service did not start")
-        _err(f"demo service on http://{LOOPBACK}:{port} (store: {Settings().database_url})")
+        err(f"demo service on http://{LOOPBACK}:{port} (store: {Settings().database_url})")
         outputs = Outputs(args.output, args.svg, args.png, args.csv)
         url = f"http://{LOOPBACK}:{port}"
-        plan, pictures = _solve_remote(url, request, None, outputs.formats())
+        plan, pictures = solve_remote(url, request, None, outputs.formats())
         code = _finish(plan, pictures, outputs, replan=False)
         sys.stdout.writelines(f"wrote {path}\n" for path in outputs.paths())
         return code
@@ -810,16 +607,16 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         return int(args.run(args))
     except CliError as exc:
-        _err(str(exc))
+        err(str(exc))
         return int(exc.code)
     except SchemaNotReadyError as exc:
-        _err(str(exc))
+        err(str(exc))
         return int(ExitCode.OUTDATED)
     except StoreUnavailableError as exc:
-        _err(str(exc))
+        err(str(exc))
         return int(ExitCode.UNREACHABLE)
     except KeyboardInterrupt:
-        _err("interrupted")
+        err("interrupted")
         return int(ExitCode.FAILED)
 
 

@@ -1,19 +1,41 @@
-"""What the ``bandwright`` command prints and writes: the plan table, the retune line, files.
+"""What the ``bandwright`` command reports: exit codes, errors and progress on stderr, the plan
+table and the retune line (returned as text), and the files it writes.
 
-Kept apart from :mod:`service.cli` (argument parsing, solving here or over HTTP) so that each
-reads at once.  Nothing here prints; callers write the returned text.
+Kept apart from :mod:`service.cli` (commands and arguments) and :mod:`service.cli_remote`
+(the service over HTTP) so that each reads at once.
 """
 
 from __future__ import annotations
 
+import sys
+import time
+from collections.abc import Sequence
 from dataclasses import dataclass, fields
+from enum import IntEnum
 from pathlib import Path
 from typing import Literal
 
+from service.convert import finite_or_none
 from service.csvout import carriers_csv
+from service.errors import FieldIssue
 from service.schemas import PlanOut
+from solver import ProgressEvent, SolveStatus
 
-__all__ = ["ImageFormat", "Outputs", "retune_line", "summary_table", "write_outputs"]
+__all__ = [
+    "EXIT_MEANINGS",
+    "CliError",
+    "ExitCode",
+    "ImageFormat",
+    "Outputs",
+    "Pictures",
+    "ProgressLine",
+    "err",
+    "exit_code_for",
+    "invalid",
+    "retune_line",
+    "summary_table",
+    "write_outputs",
+]
 
 MHZ = 1e6
 KHZ = 1e3
@@ -21,7 +43,90 @@ PERCENT = 100.0
 RETUNED_MARK = "*"
 """Marks a retuned carrier (the wire's ``CarrierOut.retuned``) in the table's first column."""
 
+PROGRESS_AFTER_S = 1.0
+
 ImageFormat = Literal["svg", "png"]
+Pictures = dict[ImageFormat, bytes]
+"""Spectrum pictures by format."""
+
+
+class ExitCode(IntEnum):
+    """Process exit codes."""
+
+    SERVED = 0
+    FAILED = 1
+    INVALID = 2
+    UNSERVED = 3
+    INFEASIBLE = 4
+    UNREACHABLE = 5
+    OUTDATED = 6
+
+
+EXIT_MEANINGS: dict[ExitCode, str] = {
+    ExitCode.SERVED: "every demand served",
+    ExitCode.UNSERVED: "some unserved",
+    ExitCode.INFEASIBLE: "infeasible",
+    ExitCode.INVALID: "invalid input (the field and the problem on stderr)",
+    ExitCode.UNREACHABLE: "server (or database) unreachable",
+    ExitCode.OUTDATED: "the database's schema is behind this version (run `bandwright db upgrade`)",
+    ExitCode.FAILED: "any other failure",
+}
+"""What each exit code means, for ``--help`` (the README's "Exit codes" paragraph agrees)."""
+
+
+class CliError(Exception):
+    """Ends the command with ``code`` after writing ``message`` to stderr."""
+
+    def __init__(self, code: ExitCode, message: str) -> None:
+        super().__init__(message)
+        self.code = code
+
+
+def err(text: str) -> None:
+    """Write a line to stderr at once."""
+    sys.stderr.write(text + "\n")
+    sys.stderr.flush()
+
+
+def invalid(issues: Sequence[FieldIssue]) -> CliError:
+    """Exit 2, one ``invalid input: FIELD: MESSAGE`` line per issue."""
+    lines = [f"invalid input: {i.field}: {i.message}" for i in issues]
+    return CliError(ExitCode.INVALID, "\n".join(lines))
+
+
+class ProgressLine:
+    """Writes to stderr what the solve is computing, at once whenever that changes and at
+    most once a second otherwise; with each verified plan, its objective and gap (the
+    figures the plan reports)."""
+
+    def __init__(self) -> None:
+        self._started = time.monotonic()
+        self._last = -PROGRESS_AFTER_S
+        self._stage: str | None = None
+
+    def __call__(self, event: ProgressEvent) -> None:
+        self.show(
+            finite_or_none(event.objective_value), finite_or_none(event.optimality_gap), event.stage
+        )
+
+    def show(self, objective: float | None, gap: float | None, stage: str | None = None) -> None:
+        now = time.monotonic() - self._started
+        changed = stage != self._stage
+        if not changed and now - self._last < PROGRESS_AFTER_S:
+            return
+        self._last, self._stage = now, stage
+        best = "—" if objective is None else f"{objective:.6g}"
+        gap_text = "—" if gap is None else f"{gap * PERCENT:.2f} %"
+        # Wall time since the command started waiting (one clock for every stage).
+        what = f"{stage}: " if stage else ""
+        err(f"solving: elapsed {now:6.1f} s  {what}best objective {best}  gap {gap_text}")
+
+
+def exit_code_for(plan: PlanOut) -> ExitCode:
+    """0 every demand served, 3 some unserved, 4 infeasible."""
+    if plan.status is SolveStatus.INFEASIBLE:
+        return ExitCode.INFEASIBLE
+    return ExitCode.UNSERVED if plan.unserved else ExitCode.SERVED
 
 
 def summary_table(plan: PlanOut) -> str:

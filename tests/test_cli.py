@@ -253,7 +253,7 @@ def test_a_batch_with_a_bad_file_exits_2_naming_it(
 def test_a_busy_or_rate_limited_answer_is_waited_out_then_sent_again() -> None:
     import httpx
 
-    from service.cli import _post_batch
+    from service.cli_remote import post_batch
 
     answers = iter(
         [
@@ -269,7 +269,7 @@ def test_a_busy_or_rate_limited_answer_is_waited_out_then_sent_again() -> None:
         return next(answers)
 
     with httpx.Client(transport=httpx.MockTransport(answer), base_url="http://bw") as client:
-        assert _post_batch(client, {"items": []}) == "/v1/batches/abc"
+        assert post_batch(client, {"items": []}) == "/v1/batches/abc"
     assert sent == ["/v1/batches"] * 3
 
 
