@@ -1,4 +1,5 @@
-# One entry point for every gate. `make demo` and `make test` each build .venv on first use.
+# One entry point for every gate. `make demo` and `make test` each build .venv on first use;
+# `make demo` writes the demo plan (JSON), its spectrum (SVG, PNG) and carriers (CSV) under out/.
 PY ?= python3
 VENV := .venv
 BIN := $(VENV)/bin

@@ -3,15 +3,19 @@
 ::
 
     bandwright serve [--host H] [--port P]
-    bandwright plan REQUEST.json [--server URL] [-o PLAN.json] [--svg FILE]
-    bandwright replan REQUEST.json --previous PLAN.json [--server URL] [-o PLAN.json] [--svg FILE]
-    bandwright demo [--request FILE] [--svg FILE]
+    bandwright plan REQUEST.json [--server URL] [-o PLAN.json] [--svg F] [--png F] [--csv F]
+    bandwright replan REQUEST.json --previous PLAN.json [--server URL] [-o ...] [--csv F] ...
+    bandwright demo [--request FILE] [-o PLAN.json] [--svg FILE] [--png FILE] [--csv FILE]
+    bandwright --version
     bandwright keys create|list|revoke ...
     bandwright db upgrade|current [--url URL]
 
 Without ``--server`` a plan is computed in this process and **nothing is stored**: the plan goes
 to ``-o`` (its ``id`` is null) and the summary to stdout.  With ``--server`` the request is sent
-as a job to that service, which stores the plan; progress is polled.  A progress line for long
+as a job to that service, which stores the plan; progress is polled.  ``BANDWRIGHT_SERVER`` is
+the default of ``--server``; a URL without ``http://`` or ``https://`` is invalid input.
+``replan`` marks retuned carriers with ``*`` in its table and ends with one line for a
+notification, ``retuned K of N carriers: a, b``.  A progress line for long
 solves goes to stderr.  Exit codes a nightly script can branch on: 0 every demand served,
 3 some unserved, 4 infeasible, 2 invalid input (field and message on stderr), 5 server (or
 database) unreachable, 6 the database's schema is behind this version (run ``bandwright db
@@ -25,6 +29,7 @@ replicas start.  ``db current`` prints the database's revision (exit 6 when behi
 from __future__ import annotations
 
 import argparse
+import importlib.metadata
 import json
 import logging
 import os
@@ -33,8 +38,6 @@ import sys
 import threading
 import time
 from collections.abc import Sequence
-from dataclasses import dataclass
-from enum import IntEnum
 from pathlib import Path
 from typing import Any
 
@@ -42,7 +45,31 @@ import httpx
 import pydantic
 import sqlalchemy as sa
 
-from service.convert import finite_or_none, plan_to_wire, to_problem
+from service.cli_remote import (
+    SERVER_ENV,
+    follow_batch,
+    open_client,
+    post_batch,
+    problem_exit,
+    server_url,
+    solve_remote,
+)
+from service.cli_report import (
+    EXIT_MEANINGS,
+    CliError,
+    ExitCode,
+    ImageFormat,
+    Outputs,
+    Pictures,
+    ProgressLine,
+    err,
+    exit_code_for,
+    invalid,
+    retune_line,
+    summary_table,
+    write_outputs,
+)
+from service.convert import plan_to_wire, to_problem
 from service.errors import (
     FieldIssue,
     InvalidInputError,
@@ -50,28 +77,25 @@ from service.errors import (
     StoreUnavailableError,
     field_path,
 )
-from service.schemas import DemandIn, PlanOut, PlanRequest
+from service.schemas import PlanOut, PlanRequest
 from service.settings import Settings
 from service.store import Store, utc_now
-from solver import ProblemError, ProgressEvent, SolveStatus
+from solver import ProblemError
 
 __all__ = ["ExitCode", "main", "summary_table"]
 
 logger = logging.getLogger(__name__)
 
 DEMO_REQUEST = Path("examples/demo-request.json")
-DEMO_SVG = Path("out/demo-spectrum.svg")
+DEMO_OUTPUTS = Outputs(
+    plan_path=Path("out/demo-plan.json"),
+    svg_path=Path("out/demo-spectrum.svg"),
+    png_path=Path("out/demo-spectrum.png"),
+    csv_path=Path("out/demo-carriers.csv"),
+)
 LOOPBACK = "127.0.0.1"
-PROGRESS_AFTER_S = 1.0
-POLL_INTERVAL_S = 0.25
-HTTP_TIMEOUT_S = 30.0
-BUSY_RETRIES = 10
-WAIT_AND_RETRY = frozenset({httpx.codes.SERVICE_UNAVAILABLE, httpx.codes.TOO_MANY_REQUESTS})
-"""Answers after which a POST is sent again once its Retry-After has passed."""
 SERVER_START_TIMEOUT_S = 20.0
-MHZ = 1e6
-KHZ = 1e3
-PERCENT = 100.0
+STARTED_POLL_S = 0.05
 
 
 FALLBACK_DEMO_REQUEST: dict[str, Any] = {
@@ -88,36 +112,6 @@ FALLBACK_DEMO_REQUEST: dict[str, Any] = {
 """Used by ``bandwright demo`` when examples/demo-request.json is absent (invented scenario)."""
 
 
-class ExitCode(IntEnum):
-    """Process exit codes."""
-
-    SERVED = 0
-    FAILED = 1
-    INVALID = 2
-    UNSERVED = 3
-    INFEASIBLE = 4
-    UNREACHABLE = 5
-    OUTDATED = 6
-
-
-class CliError(Exception):
-    """Ends the command with ``code`` after writing ``message`` to stderr."""
-
-    def __init__(self, code: ExitCode, message: str) -> None:
-        super().__init__(message)
-        self.code = code
-
-
-def _err(text: str) -> None:
-    sys.stderr.write(text + "\n")
-    sys.stderr.flush()
-
-
-def _invalid(issues: Sequence[FieldIssue]) -> CliError:
-    lines = [f"invalid input: {i.field}: {i.message}" for i in issues]
-    return CliError(ExitCode.INVALID, "\n".join(lines))
-
-
 def _read_json(path: Path, what: str) -> Any:
     try:
         return json.loads(path.read_text(encoding="utf-8"))
@@ -130,7 +124,7 @@ def _load_request(path: Path) -> PlanRequest:
         return PlanRequest.model_validate(_read_json(path, "REQUEST"))
     except pydantic.ValidationError as exc:
         issues = [FieldIssue(field_path(e["loc"]), e["msg"]) for e in exc.errors()]
-        raise _invalid(issues) from exc
+        raise invalid(issues) from exc
 
 
 def _load_plan(path: Path) -> PlanOut:
@@ -140,224 +134,50 @@ def _load_plan(path: Path) -> PlanOut:
         raise CliError(ExitCode.INVALID, f"invalid input: --previous: {path}: {exc}") from exc
 
 
-class ProgressLine:
-    """Writes to stderr what the solve is computing, at once whenever that changes and at
-    most once a second otherwise; with each verified plan, its objective and gap (the
-    figures the plan reports)."""
-
-    def __init__(self) -> None:
-        self._started = time.monotonic()
-        self._last = -PROGRESS_AFTER_S
-        self._stage: str | None = None
-
-    def __call__(self, event: ProgressEvent) -> None:
-        self.show(
-            finite_or_none(event.objective_value), finite_or_none(event.optimality_gap), event.stage
-        )
-
-    def show(self, objective: float | None, gap: float | None, stage: str | None = None) -> None:
-        now = time.monotonic() - self._started
-        changed = stage != self._stage
-        if not changed and now - self._last < PROGRESS_AFTER_S:
-            return
-        self._last, self._stage = now, stage
-        best = "—" if objective is None else f"{objective:.6g}"
-        gap_text = "—" if gap is None else f"{gap * PERCENT:.2f} %"
-        # Wall time since the command started waiting (one clock for every stage).
-        what = f"{stage}: " if stage else ""
-        _err(f"solving: elapsed {now:6.1f} s  {what}best objective {best}  gap {gap_text}")
-
-
-# ----------------------------------------------------------------------------- summary
-
-
-def summary_table(plan: PlanOut) -> str:
-    """A readable table of the plan: one line per carrier, then unserved demands and totals."""
-    width = max([len("demand"), *(len(c.demand_id) for c in plan.carriers)]) + 2
-    head = (
-        f"{'demand':<{width}}{'centre MHz':>14}{'Rs Mbaud':>10}{'α':>6}  {'MODCOD':<16}"
-        f"{'Mbit/s':>9}{'margin dB':>10}{'guard kHz':>16}{'OBO dB':>8}{'EVM %':>7}"
-    )
-    lines = [f"plan {plan.id or '(not stored)'}  {plan.name!r}  status {plan.status.value}", head]
-    lines.append("-" * len(head))
-    for c in sorted(plan.carriers, key=lambda c: c.center_hz):
-        modcod = f"{c.modulation.value} {c.code_rate}"
-        guards = f"{c.guard_below_hz / KHZ:.1f}/{c.guard_above_hz / KHZ:.1f}"
-        backoff = "—" if c.output_backoff_db is None else f"{c.output_backoff_db:.1f}"
-        lines.append(
-            f"{c.demand_id:<{width}}{c.center_hz / MHZ:>14.4f}{c.symbol_rate_baud / MHZ:>10.4f}"
-            f"{c.rolloff:>6.2f}  {modcod:<16}{c.throughput_bps / MHZ:>9.3f}{c.margin_db:>10.2f}"
-            f"{guards:>16}{backoff:>8}{c.evm_pct:>7.2f}"
-        )
-    lines.extend(f"unserved {u.demand_id}: {u.reason.value} ({u.detail})" for u in plan.unserved)
-    s = plan.summary
-    gap = "—" if s.optimality_gap is None else f"{s.optimality_gap * PERCENT:.2f} %"
-    lines.append(
-        f"used {s.used_bandwidth_hz / MHZ:.4f} MHz, free {s.free_bandwidth_hz / MHZ:.4f} MHz "
-        f"(largest segment {s.largest_free_segment_hz / MHZ:.4f} MHz); throughput "
-        f"{s.total_throughput_bps / MHZ:.3f} Mbit/s, {s.spectral_efficiency_bps_per_hz:.3f} "
-        f"bit/s/Hz, {s.efficiency_vs_bound * PERCENT:.1f} % of the bound; gap {gap}; "
-        f"solved in {s.solve_time_s:.2f} s"
-    )
-    lines.extend(f"note: {n}" for n in plan.notices)
-    return "\n".join(lines) + "\n"
-
-
-def exit_code_for(plan: PlanOut) -> ExitCode:
-    """0 every demand served, 3 some unserved, 4 infeasible."""
-    if plan.status is SolveStatus.INFEASIBLE:
-        return ExitCode.INFEASIBLE
-    return ExitCode.UNSERVED if plan.unserved else ExitCode.SERVED
-
-
 # ----------------------------------------------------------------------------- in process
 
 
-def _solve_here(request: PlanRequest, previous: PlanOut | None) -> tuple[PlanOut, bytes | None]:
+def _solve_here(
+    request: PlanRequest, previous: PlanOut | None, formats: Sequence[ImageFormat]
+) -> tuple[PlanOut, Pictures]:
     from solver import solve
 
     if request.previous_plan_id is not None and previous is None:
-        raise _invalid([FieldIssue("previous_plan_id", "needs --server, or use --previous")])
+        raise invalid([FieldIssue("previous_plan_id", "needs --server, or use --previous")])
     try:
         problem = to_problem(request, previous=previous)
         plan = solve(problem, progress=ProgressLine())
     except InvalidInputError as exc:
-        raise _invalid(exc.issues) from exc
+        raise invalid(exc.issues) from exc
     except ProblemError as exc:
-        raise _invalid([FieldIssue(exc.field, exc.message)]) from exc
+        raise invalid([FieldIssue(exc.field, exc.message)]) from exc
     parent = None if previous is None else previous.id
     out = plan_to_wire(plan, plan_id=None, created_at=utc_now(), parent_id=parent)
-    return out, _render_here(plan, problem)
+    return out, _render_here(plan, problem, formats)
 
 
-def _render_here(plan: Any, problem: Any) -> bytes:
+def _render_here(plan: Any, problem: Any, formats: Sequence[ImageFormat]) -> Pictures:
+    """The pictures asked for (none: no drawing at all)."""
     from service.render import render_spectrum
 
-    picture: bytes = render_spectrum(plan, problem, "svg")
-    return picture
-
-
-# ----------------------------------------------------------------------------- over HTTP
-
-
-def _problem_exit(response: httpx.Response) -> CliError:
-    try:
-        doc = response.json()
-    except ValueError:
-        doc = {}
-    if response.status_code == httpx.codes.UNPROCESSABLE_ENTITY:
-        issues = [FieldIssue(e["field"], e["message"]) for e in doc.get("errors", [])]
-        return _invalid(issues or [FieldIssue("body", str(doc.get("detail", "invalid")))])
-    detail = doc.get("detail", response.text[:200])
-    return CliError(ExitCode.FAILED, f"server answered {response.status_code}: {detail}")
-
-
-def _client(server: str) -> httpx.Client:
-    """An HTTP client for the service, sending ``BANDWRIGHT_API_KEY`` as a bearer key if set."""
-    key = os.environ.get("BANDWRIGHT_API_KEY", "")
-    headers = {"Authorization": f"Bearer {key}"} if key else {}
-    return httpx.Client(base_url=server, timeout=HTTP_TIMEOUT_S, headers=headers)
-
-
-def _post_job(client: httpx.Client, payload: dict[str, Any]) -> str:
-    return _post_accepted(client, "/v1/jobs", payload)
-
-
-def _post_batch(client: httpx.Client, payload: dict[str, Any]) -> str:
-    return _post_accepted(client, "/v1/batches", payload)
-
-
-def _post_accepted(client: httpx.Client, path: str, payload: dict[str, Any]) -> str:
-    """POST for a 202, waiting out 503 and 429 answers; the Location of what was accepted."""
-    for _ in range(BUSY_RETRIES):
-        response = client.post(path, json=payload)
-        if response.status_code in WAIT_AND_RETRY:
-            time.sleep(float(response.headers.get("Retry-After", "1")))
-            continue
-        if response.status_code != httpx.codes.ACCEPTED:
-            raise _problem_exit(response)
-        return str(response.headers["Location"])
-    raise CliError(ExitCode.FAILED, "the server stayed busy; try again later")
-
-
-def _wait_for_job(client: httpx.Client, location: str) -> str:
-    progress = ProgressLine()
-    while True:
-        response = client.get(location)
-        if response.status_code != httpx.codes.OK:
-            raise _problem_exit(response)
-        job = response.json()
-        if job["state"] == "done":
-            return str(job["plan_url"])
-        if job["state"] == "failed":
-            error = job.get("error") or {}
-            if error.get("status") == httpx.codes.UNPROCESSABLE_ENTITY:
-                issues = [FieldIssue(e["field"], e["message"]) for e in error.get("errors", [])]
-                raise _invalid(issues)
-            raise CliError(ExitCode.FAILED, f"job failed: {error.get('detail', 'unknown')}")
-        if job.get("progress"):
-            p = job["progress"]
-            progress.show(p["objective_value"], p["optimality_gap"], p.get("stage"))
-        time.sleep(POLL_INTERVAL_S)
-
-
-def _request_for_server(request: PlanRequest, previous: PlanOut | None) -> dict[str, Any]:
-    if previous is None:
-        return request.model_dump(mode="json")
-    if previous.id is not None:
-        return request.model_copy(update={"previous_plan_id": previous.id}).model_dump(mode="json")
-    # An offline plan has no id on the server: send its settings as each demand's `current`.
-    carriers = {c.demand_id: c for c in previous.carriers}
-    demands = [_with_current(d, carriers) for d in request.demands]
-    return request.model_copy(update={"demands": demands}).model_dump(mode="json")
-
-
-def _with_current(demand: DemandIn, carriers: dict[str, Any]) -> DemandIn:
-    carrier = carriers.get(demand.id)
-    if demand.current is not None or carrier is None:
-        return demand
-    current = {k: getattr(carrier, k) for k in ("center_hz", "symbol_rate_baud", "rolloff")}
-    current |= {"modulation": carrier.modulation, "code_rate": carrier.code_rate}
-    return DemandIn.model_validate({**demand.model_dump(), "current": current})
-
-
-def _solve_remote(
-    server: str, request: PlanRequest, previous: PlanOut | None
-) -> tuple[PlanOut, bytes | None]:
-    payload = _request_for_server(request, previous)
-    try:
-        with _client(server) as client:
-            plan_url = _wait_for_job(client, _post_job(client, payload))
-            response = client.get(plan_url)
-            if response.status_code != httpx.codes.OK:
-                raise _problem_exit(response)
-            plan = PlanOut.model_validate(response.json())
-            picture = client.get(f"{plan_url}/spectrum.svg")
-            svg = picture.content if picture.status_code == httpx.codes.OK else None
-    except httpx.TransportError as exc:
-        raise CliError(ExitCode.UNREACHABLE, f"server unreachable: {server}: {exc}") from exc
-    return plan, svg
+    return {fmt: render_spectrum(plan, problem, fmt) for fmt in formats}
 
 
 # ----------------------------------------------------------------------------- commands
 
 
-@dataclass(frozen=True)
-class _Outputs:
-    plan_path: Path | None
-    svg_path: Path | None
-
-
-def _finish(plan: PlanOut, svg: bytes | None, outputs: _Outputs) -> ExitCode:
-    if outputs.plan_path is not None:
-        outputs.plan_path.parent.mkdir(parents=True, exist_ok=True)
-        outputs.plan_path.write_text(plan.model_dump_json(indent=2) + "\n", encoding="utf-8")
-    if outputs.svg_path is not None:
-        if svg is None:
-            raise CliError(ExitCode.FAILED, "no spectrum picture was produced")
-        outputs.svg_path.parent.mkdir(parents=True, exist_ok=True)
-        outputs.svg_path.write_bytes(svg)
+def _finish(plan: PlanOut, pictures: Pictures, outputs: Outputs, *, replan: bool) -> ExitCode:
+    """Write the files asked for, then the table to stdout (and, for a replan, its retune
+    line after it); the exit code the plan calls for."""
+    try:
+        write_outputs(plan, pictures, outputs)
+    except ValueError as exc:
+        raise CliError(ExitCode.FAILED, str(exc)) from exc
+    except OSError as exc:
+        raise CliError(ExitCode.FAILED, f"cannot write: {exc}") from exc
     sys.stdout.write(summary_table(plan))
+    if replan:
+        sys.stdout.write(retune_line(plan))
     return exit_code_for(plan)
 
 
@@ -373,10 +193,10 @@ OUTCOME_EXIT = {
 
 def _load_batch(directory: Path) -> list[tuple[Path, PlanRequest]]:
     if not directory.is_dir():
-        raise _invalid([FieldIssue("--batch", f"{directory} is not a directory")])
+        raise invalid([FieldIssue("--batch", f"{directory} is not a directory")])
     files = sorted(directory.glob("*.json"))
     if not files:
-        raise _invalid([FieldIssue("--batch", f"no *.json request in {directory}")])
+        raise invalid([FieldIssue("--batch", f"no *.json request in {directory}")])
     loaded, issues = [], []
     for path in files:
         try:
@@ -384,31 +204,15 @@ def _load_batch(directory: Path) -> list[tuple[Path, PlanRequest]]:
         except CliError as exc:
             issues.append(FieldIssue(path.name, str(exc).removeprefix("invalid input: ")))
     if issues:
-        raise _invalid(issues)
+        raise invalid(issues)
     return loaded
-
-
-def _follow_batch(client: httpx.Client, location: str, total: int) -> dict[str, Any]:
-    from tqdm import tqdm
-
-    with tqdm(total=total, unit="plan", file=sys.stderr, dynamic_ncols=True) as bar:
-        while True:
-            response = client.get(location)
-            if response.status_code != httpx.codes.OK:
-                raise _problem_exit(response)
-            batch: dict[str, Any] = response.json()
-            s = batch["summary"]
-            bar.update(s["done"] + s["failed"] + s["cancelled"] - bar.n)
-            bar.set_postfix(running=s["running"], queued=s["queued"], worst=s["worst"])
-            if s["finished"]:
-                return batch
-            time.sleep(POLL_INTERVAL_S * 4)
 
 
 def _cmd_batch(args: argparse.Namespace) -> ExitCode:
     """``replan --batch DIR --server URL``: every request in DIR as one batch of jobs."""
-    if args.server is None:
-        raise _invalid([FieldIssue("--server", "a batch runs on the service's workers")])
+    server = server_url(args.server)
+    if server is None:
+        raise invalid([FieldIssue("--server", "a batch runs on the service's workers")])
     loaded = _load_batch(args.batch)
     payload = {
         "name": args.batch.resolve().name or "batch",
@@ -416,15 +220,15 @@ def _cmd_batch(args: argparse.Namespace) -> ExitCode:
     }
     out_dir = args.batch / "plans" if args.output_dir is None else args.output_dir
     try:
-        with _client(args.server) as client:
-            batch = _follow_batch(client, _post_batch(client, payload), len(loaded))
+        with open_client(server) as client:
+            batch = follow_batch(client, post_batch(client, payload), len(loaded))
             out_dir.mkdir(parents=True, exist_ok=True)
             for (path, _), item in zip(loaded, batch["items"], strict=True):
                 line = f"{path.name}: {item['outcome']}"
                 if item["plan_url"]:
                     plan = client.get(item["plan_url"])
                     if plan.status_code != httpx.codes.OK:
-                        raise _problem_exit(plan)
+                        raise problem_exit(plan)
                     (out_dir / f"{path.stem}.plan.json").write_text(plan.text, encoding="utf-8")
                     line += f" ({item['unserved_count']} unserved) → {item['plan_url']}"
                 elif item["error"]:
@@ -433,27 +237,28 @@ def _cmd_batch(args: argparse.Namespace) -> ExitCode:
     except httpx.TransportError as exc:
         raise CliError(ExitCode.UNREACHABLE, f"server unreachable: {args.server}: {exc}") from exc
     worst = batch["summary"]["worst"]
-    _err(f"batch {batch['id']}: {len(loaded)} item(s), worst outcome {worst}; plans in {out_dir}")
+    err(f"batch {batch['id']}: {len(loaded)} item(s), worst outcome {worst}; plans in {out_dir}")
     return OUTCOME_EXIT[worst]
 
 
 def _cmd_plan(args: argparse.Namespace) -> ExitCode:
     if getattr(args, "batch", None) is not None:
         if args.request is not None or args.previous is not None:
-            raise _invalid([FieldIssue("--batch", "give either --batch DIR or REQUEST.json")])
+            raise invalid([FieldIssue("--batch", "give either --batch DIR or REQUEST.json")])
         return _cmd_batch(args)
     if args.request is None:
-        raise _invalid([FieldIssue("REQUEST.json", "required (or --batch DIR for replan)")])
+        raise invalid([FieldIssue("REQUEST.json", "required (or --batch DIR for replan)")])
     if args.command == "replan" and args.previous is None:
-        raise _invalid([FieldIssue("--previous", "required with REQUEST.json")])
+        raise invalid([FieldIssue("--previous", "required with REQUEST.json")])
+    server = server_url(args.server)
     request = _load_request(args.request)
     previous = _load_plan(args.previous) if getattr(args, "previous", None) else None
-    outputs = _Outputs(args.output, args.svg)
-    if args.server:
-        plan, svg = _solve_remote(args.server, request, previous)
+    outputs = Outputs(args.output, args.svg, args.png, args.csv)
+    if server:
+        plan, pictures = solve_remote(server, request, previous, outputs.formats())
     else:
-        plan, svg = _solve_here(request, previous)
-    return _finish(plan, svg, outputs)
+        plan, pictures = _solve_here(request, previous, outputs.formats())
+    return _finish(plan, pictures, outputs, replan=args.command == "replan")
 
 
 def _cmd_serve(args: argparse.Namespace) -> ExitCode:
@@ -510,7 +315,7 @@ def _cmd_keys(args: argparse.Namespace) -> ExitCode:
         store.ensure_schema()
         if args.action == "create":
             key, record = create_key(store, Scope(args.scope), args.name, settings.keys_pepper)
-            _err(f"key {record.id} ({record.scope}, {record.name!r}); it is shown only once:")
+            err(f"key {record.id} ({record.scope}, {record.name!r}); it is shown only once:")
             print(key)
         elif args.action == "list":
             for item in store.list_keys():
@@ -519,7 +324,7 @@ def _cmd_keys(args: argparse.Namespace) -> ExitCode:
         elif not store.revoke_key(args.id):
             raise CliError(ExitCode.INVALID, f"no live key {args.id!r}")
         else:
-            _err(f"key {args.id} revoked")
+            err(f"key {args.id} revoked")
     finally:
         store.close()
     return ExitCode.SERVED
@@ -539,7 +344,7 @@ def _cmd_worker(args: argparse.Namespace) -> ExitCode:
         if age is None or age > WORKER_STALE_AFTER_S:
             seen = "no heartbeat file" if age is None else f"last heartbeat {age:.0f} s ago"
             raise CliError(ExitCode.FAILED, f"worker not alive: {seen}")
-        _err(f"worker alive: last heartbeat {age:.0f} s ago")
+        err(f"worker alive: last heartbeat {age:.0f} s ago")
         return ExitCode.SERVED
     if not settings.broker_url:
         raise CliError(ExitCode.INVALID, "BANDWRIGHT_BROKER_URL is not set: no queue to work for")
@@ -572,7 +377,7 @@ def _cmd_db(args: argparse.Namespace) -> ExitCode:
     """``db upgrade|current``: the store's schema against this version's migrations."""
     store = _open_store(args)
     try:
-        _err(f"database: {sa.make_url(store.url).render_as_string(hide_password=True)}")
+        err(f"database: {sa.make_url(store.url).render_as_string(hide_password=True)}")
         return _db_upgrade(store) if args.action == "upgrade" else _db_current(store)
     finally:
         store.close()
@@ -615,7 +420,7 @@ def _cmd_demo(args: argparse.Namespace) -> ExitCode:
     if args.request.exists():
         request = _load_request(args.request)
     else:
-        _err(f"{args.request} not found; planning the built-in invented demo request")
+        err(f"{args.request} not found; planning the built-in invented demo request")
         request = PlanRequest.model_validate(FALLBACK_DEMO_REQUEST)
     sock = _free_socket()
     port = sock.getsockname()[1]
@@ -626,13 +431,15 @@ def _cmd_demo(args: argparse.Namespace) -> ExitCode:
     try:
         deadline = time.monotonic() + SERVER_START_TIMEOUT_S
         while not server.started and thread.is_alive() and time.monotonic() < deadline:
-            time.sleep(POLL_INTERVAL_S / 5)
+            time.sleep(STARTED_POLL_S)
         if not server.started:
             raise CliError(ExitCode.FAILED, "the demo service did not start")
-        _err(f"demo service on http://{LOOPBACK}:{port} (store: {Settings().database_url})")
-        plan, svg = _solve_remote(f"http://{LOOPBACK}:{port}", request, None)
-        code = _finish(plan, svg, _Outputs(None, args.svg))
-        _err(f"spectrum picture written to {args.svg}")
+        err(f"demo service on http://{LOOPBACK}:{port} (store: {Settings().database_url})")
+        outputs = Outputs(args.output, args.svg, args.png, args.csv)
+        url = f"http://{LOOPBACK}:{port}"
+        plan, pictures = solve_remote(url, request, None, outputs.formats())
+        code = _finish(plan, pictures, outputs, replan=False)
+        sys.stdout.writelines(f"wrote {path}\n" for path in outputs.paths())
         return code
     finally:
         server.should_exit = True
@@ -640,43 +447,125 @@ def _cmd_demo(args: argparse.Namespace) -> ExitCode:
         sock.close()
 
 
+def _version() -> str:
+    try:
+        return importlib.metadata.version("bandwright")
+    except importlib.metadata.PackageNotFoundError:  # run from a checkout, not installed
+        return "unknown (not installed)"
+
+
+def _exit_codes_epilog() -> str:
+    lines = [f"  {int(code)}  {EXIT_MEANINGS[code]}" for code in sorted(EXIT_MEANINGS)]
+    return "exit codes:\n" + "\n".join(lines)
+
+
 def _parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
-        prog="bandwright", description="Plan carriers in a licensed spectrum block."
+        prog="bandwright",
+        description="Plan carriers in a licensed spectrum block.",
+        epilog=_exit_codes_epilog(),
+        formatter_class=argparse.RawDescriptionHelpFormatter,
     )
-    sub = parser.add_subparsers(dest="command", required=True)
+    parser.add_argument(
+        "--version", action="version", version=f"%(prog)s {_version()}", help="print the version"
+    )
+    sub = parser.add_subparsers(dest="command", required=True, help="what to do")
     serve = sub.add_parser("serve", help="run the HTTP service")
     serve.add_argument("--host", help="address to bind (default BANDWRIGHT_HOST or 127.0.0.1)")
     serve.add_argument("--port", type=int, help="port (default BANDWRIGHT_PORT or 8000)")
     serve.set_defaults(run=_cmd_serve)
     for name, text in (("plan", "plan a request"), ("replan", "replan from a previous plan")):
-        cmd = sub.add_parser(name, help=text)
-        cmd.add_argument("request", type=Path, metavar="REQUEST.json", nargs="?")
-        if name == "replan":
-            cmd.add_argument("--previous", type=Path, metavar="PLAN.json")
-            cmd.add_argument(
-                "--batch",
-                type=Path,
-                metavar="DIR",
-                help="every *.json request in DIR as one batch on --server (a replan names its "
-                "previous_plan_id); exit code of the worst outcome",
-            )
-            cmd.add_argument(
-                "--output-dir", type=Path, metavar="DIR", help="batch plans (default DIR/plans)"
-            )
-        cmd.add_argument("--server", help="service URL; without it the plan is computed here")
-        cmd.add_argument("-o", "--output", type=Path, metavar="PLAN.json", help="write the plan")
-        cmd.add_argument("--svg", type=Path, metavar="FILE", help="write the spectrum picture")
-        cmd.set_defaults(run=_cmd_plan)
+        _add_plan_command(sub, name, text)
+    _add_keys_command(sub)
+    _add_worker_command(sub)
+    _add_db_command(sub)
+    _add_demo_command(sub)
+    return parser
+
+
+Commands = Any
+"""argparse's sub-parser action (its class is private to argparse)."""
+
+
+def _add_outputs(cmd: argparse.ArgumentParser, defaults: Outputs) -> None:
+    """``-o``, ``--svg``, ``--png``, ``--csv``: the files a plan is written to."""
+    cmd.add_argument(
+        "-o",
+        "--output",
+        type=Path,
+        metavar="PLAN.json",
+        default=defaults.plan_path,
+        help="write the plan (JSON, with its notices)",
+    )
+    cmd.add_argument(
+        "--svg",
+        type=Path,
+        metavar="FILE",
+        default=defaults.svg_path,
+        help="write the spectrum picture (SVG)",
+    )
+    cmd.add_argument(
+        "--png",
+        type=Path,
+        metavar="FILE",
+        default=defaults.png_path,
+        help="write the spectrum picture (PNG)",
+    )
+    cmd.add_argument(
+        "--csv",
+        type=Path,
+        metavar="FILE",
+        default=defaults.csv_path,
+        help="write the carriers as CSV (RFC 4180, units in the column names); the plan's "
+        "notices apply to it",
+    )
+
+
+def _add_plan_command(sub: Commands, name: str, text: str) -> None:
+    cmd = sub.add_parser(name, help=text)
+    cmd.add_argument(
+        "request", type=Path, metavar="REQUEST.json", nargs="?", help="the plan request (JSON)"
+    )
+    if name == "replan":
+        cmd.add_argument(
+            "--previous", type=Path, metavar="PLAN.json", help="the plan in force (JSON, from -o)"
+        )
+        cmd.add_argument(
+            "--batch",
+            type=Path,
+            metavar="DIR",
+            help="every *.json request in DIR as one batch on --server (a replan names its "
+            "previous_plan_id); exit code of the worst outcome",
+        )
+        cmd.add_argument(
+            "--output-dir", type=Path, metavar="DIR", help="batch plans (default DIR/plans)"
+        )
+    cmd.add_argument(
+        "--server",
+        default=os.environ.get(SERVER_ENV) or None,
+        metavar="URL",
+        help=f"service URL, e.g. http://127.0.0.1:8000 (default {SERVER_ENV}); without it the "
+        "plan is computed here and not stored",
+    )
+    _add_outputs(cmd, Outputs())
+    cmd.set_defaults(run=_cmd_plan)
+
+
+def _add_keys_command(sub: Commands) -> None:
     keys = sub.add_parser("keys", help="create, list and revoke API keys")
-    actions = keys.add_subparsers(dest="action", required=True)
+    actions = keys.add_subparsers(dest="action", required=True, help="what to do with keys")
     create = actions.add_parser("create", help="print a new key (shown only once)")
-    create.add_argument("--scope", choices=["read", "plan", "admin"], required=True)
+    create.add_argument(
+        "--scope", choices=["read", "plan", "admin"], required=True, help="what the key may do"
+    )
     create.add_argument("--name", default="", help="who or what the key is for")
     actions.add_parser("list", help="every key: id, scope, state, created, name")
     revoke = actions.add_parser("revoke", help="revoke a key by its id")
-    revoke.add_argument("id")
+    revoke.add_argument("id", help="the key's id (from `keys list`)")
     keys.set_defaults(run=_cmd_keys)
+
+
+def _add_worker_command(sub: Commands) -> None:
     worker = sub.add_parser("worker", help="run a worker for background jobs (needs a broker)")
     worker.add_argument(
         "--concurrency", type=int, default=1, help="jobs solved at once (processes; default 1)"
@@ -685,8 +574,11 @@ def _parser() -> argparse.ArgumentParser:
         "--check", action="store_true", help="exit 0 when a worker here beat in the last minute"
     )
     worker.set_defaults(run=_cmd_worker)
+
+
+def _add_db_command(sub: Commands) -> None:
     db = sub.add_parser("db", help="the store's schema: migrate it, or show its revision")
-    db_actions = db.add_subparsers(dest="action", required=True)
+    db_actions = db.add_subparsers(dest="action", required=True, help="what to do")
     for action, text in (
         ("upgrade", "migrate the database to this version's newest revision (once per release)"),
         ("current", "print the database's revision; exit 6 when it is behind this version"),
@@ -694,30 +586,37 @@ def _parser() -> argparse.ArgumentParser:
         command = db_actions.add_parser(action, help=text)
         command.add_argument("--url", help="SQLAlchemy URL (default BANDWRIGHT_DATABASE_URL)")
     db.set_defaults(run=_cmd_db)
-    demo = sub.add_parser("demo", help="start a local service and plan the demo request")
+
+
+def _add_demo_command(sub: Commands) -> None:
+    demo = sub.add_parser(
+        "demo", help="start a local service, plan the demo request, write plan, pictures, CSV"
+    )
     demo.add_argument("--request", type=Path, default=DEMO_REQUEST, help="request to plan")
-    demo.add_argument("--svg", type=Path, default=DEMO_SVG, help="where to write the picture")
+    _add_outputs(demo, DEMO_OUTPUTS)
     demo.set_defaults(run=_cmd_demo)
-    return parser
 
 
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``bandwright`` console script; returns the exit code."""
     logging.basicConfig(level=logging.WARNING, format="%(levelname)s %(name)s: %(message)s")
-    args = _parser().parse_args(argv)
+    try:
+        args = _parser().parse_args(argv)
+    except SystemExit as exc:  # --help, --version (0) or a refused argument (2: invalid input)
+        return ExitCode.SERVED if exc.code is None else int(exc.code)
     try:
         return int(args.run(args))
     except CliError as exc:
-        _err(str(exc))
+        err(str(exc))
         return int(exc.code)
     except SchemaNotReadyError as exc:
-        _err(str(exc))
+        err(str(exc))
         return int(ExitCode.OUTDATED)
     except StoreUnavailableError as exc:
-        _err(str(exc))
+        err(str(exc))
         return int(ExitCode.UNREACHABLE)
     except KeyboardInterrupt:
-        _err("interrupted")
+        err("interrupted")
         return int(ExitCode.FAILED)
 
 

@@ -2,20 +2,51 @@
 
 Exit codes are the project's contract (DESIGN.md, Command line): 0 every demand served,
 3 some unserved, 4 infeasible, 2 invalid input, 5 server unreachable.  Requests are invented.
+CSV checks follow RFC 4180 §2 (records end in CRLF, a header row); the PNG signature is from
+ISO/IEC 15948 §5.2.
 """
 
 from __future__ import annotations
 
+import argparse
 import copy
+import csv
+import io
 import json
+import re
 import socket
+import tomllib
 from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
 import pytest
 
-from service.cli import main
+from service.cli import _parser, main
+
+ROOT = Path(__file__).resolve().parents[1]
+PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # ISO/IEC 15948 §5.2
+CSV_HEADER = [  # the columns the project's issue asks for, in its order
+    "demand_id",
+    "profile",
+    "center_hz",
+    "lower_edge_hz",
+    "upper_edge_hz",
+    "symbol_rate_baud",
+    "rolloff",
+    "modulation",
+    "code_rate",
+    "output_backoff_db",
+    "evm_pct",
+    "throughput_bps",
+    "esn0_db",
+    "required_esn0_db",
+    "margin_db",
+    "margin_after_interference_db",
+    "guard_below_hz",
+    "guard_above_hz",
+    "retuned",
+]
 
 REQUEST: dict[str, Any] = {
     "name": "cli test: invented two-link block",
@@ -132,15 +163,22 @@ def test_unreachable_server_exits_5(tmp_path: Path, capsys: pytest.CaptureFixtur
     assert "unreachable" in capsys.readouterr().err
 
 
-def test_demo_serves_on_loopback_and_writes_the_picture(
+def test_demo_serves_on_loopback_and_writes_plan_pictures_and_csv(
     tmp_path: Path, monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]
 ) -> None:
-    monkeypatch.chdir(tmp_path)  # the demo's SQLite default ./bandwright.db lands here
-    svg = tmp_path / "out" / "demo-spectrum.svg"
-    code = main(["demo", "--request", str(_write(tmp_path, REQUEST)), "--svg", str(svg)])
+    monkeypatch.chdir(tmp_path)  # the demo's SQLite default ./bandwright.db and out/ land here
+    code = main(["demo", "--request", str(_write(tmp_path, REQUEST))])
     captured = capsys.readouterr()
     assert code == 0, captured.err
-    assert svg.read_bytes().lstrip().startswith((b"<?xml", b"<svg"))
+    out = tmp_path / "out"
+    written = {Path(line.removeprefix("wrote ")) for line in captured.out.splitlines()}
+    names = ["demo-plan.json", "demo-spectrum.svg", "demo-spectrum.png", "demo-carriers.csv"]
+    assert {Path("out") / name for name in names} <= written
+    plan = json.loads((out / "demo-plan.json").read_text(encoding="utf-8"))
+    assert plan["id"] is not None and plan["notices"]  # stored by the demo service, cautioned
+    assert (out / "demo-spectrum.svg").read_bytes().lstrip().startswith((b"<?xml", b"<svg"))
+    assert (out / "demo-spectrum.png").read_bytes().startswith(PNG_SIGNATURE)
+    _assert_csv_is_the_plan((out / "demo-carriers.csv").read_bytes(), plan)
     assert "plan " in captured.out and "(not stored)" not in captured.out
     assert (tmp_path / "bandwright.db").exists()
 
@@ -215,7 +253,7 @@ def test_a_batch_with_a_bad_file_exits_2_naming_it(
 def test_a_busy_or_rate_limited_answer_is_waited_out_then_sent_again() -> None:
     import httpx
 
-    from service.cli import _post_batch
+    from service.cli_remote import post_batch
 
     answers = iter(
         [
@@ -231,5 +269,133 @@ def test_a_busy_or_rate_limited_answer_is_waited_out_then_sent_again() -> None:
         return next(answers)
 
     with httpx.Client(transport=httpx.MockTransport(answer), base_url="http://bw") as client:
-        assert _post_batch(client, {"items": []}) == "/v1/batches/abc"
+        assert post_batch(client, {"items": []}) == "/v1/batches/abc"
     assert sent == ["/v1/batches"] * 3
+
+
+# ----------------------------------------------------------------------------- tidy CLI
+
+
+def test_version_is_the_packages(capsys: pytest.CaptureFixture[str]) -> None:
+    project = tomllib.loads((ROOT / "pyproject.toml").read_text(encoding="utf-8"))["project"]
+    assert main(["--version"]) == 0
+    assert capsys.readouterr().out.split() == ["bandwright", project["version"]]
+
+
+def _readme_exit_codes() -> dict[int, str]:
+    readme = (ROOT / "README.md").read_text(encoding="utf-8")
+    paragraph = readme[readme.index("Exit codes a nightly script") :].split("\n\n")[0]
+    pairs = re.findall(r"`(\d)` ([^`]+?)(?:,\s*|\.\s*(?=`)|\.\s*$)", " ".join(paragraph.split()))
+    return {int(code): meaning for code, meaning in pairs}
+
+
+def test_help_lists_every_exit_code_as_the_readme_does(capsys: pytest.CaptureFixture[str]) -> None:
+    assert main(["--help"]) == 0
+    text = capsys.readouterr().out
+    listed = dict(re.findall(r"^\s+(\d)\s+(.+)$", text.split("exit codes:")[1], re.MULTILINE))
+    readme = _readme_exit_codes()
+    assert sorted(readme) == [0, 1, 2, 3, 4, 5, 6]
+    assert sorted(int(code) for code in listed) == sorted(readme)
+    for code, meaning in readme.items():
+        assert listed[str(code)].startswith(meaning), code
+
+
+@pytest.mark.parametrize("server", ["127.0.0.1:8000", "localhost:8000", "ftp://host/", "http://"])
+def test_a_server_without_scheme_or_host_is_invalid_input(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], server: str
+) -> None:
+    assert main(["plan", str(_write(tmp_path, REQUEST)), "--server", server]) == 2
+    err = capsys.readouterr().err
+    assert "--server" in err and "unreachable" not in err
+
+
+def test_bandwright_server_is_the_default_server(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]
+) -> None:
+    with socket.socket() as sock:  # a port nobody listens on once this closes
+        sock.bind(("127.0.0.1", 0))
+        server = f"http://127.0.0.1:{sock.getsockname()[1]}"
+    monkeypatch.setenv("BANDWRIGHT_SERVER", server)
+    assert main(["plan", str(_write(tmp_path, REQUEST))]) == 5
+    assert server in capsys.readouterr().err
+    monkeypatch.setenv("BANDWRIGHT_SERVER", "127.0.0.1:8000")
+    assert main(["plan", str(_write(tmp_path, REQUEST))]) == 2
+    assert "BANDWRIGHT_SERVER" in capsys.readouterr().err
+
+
+def _parsers(parser: argparse.ArgumentParser) -> Iterator[argparse.ArgumentParser]:
+    yield parser
+    for action in parser._actions:
+        if isinstance(action, argparse._SubParsersAction):
+            for child in action.choices.values():
+                yield from _parsers(child)
+
+
+def test_every_option_of_every_command_has_help() -> None:
+    parsers = list(_parsers(_parser()))
+    assert len(parsers) > 10  # the walk reached the subcommands and their actions
+    missing = [
+        f"{p.prog}: {a.dest}"
+        for p in parsers
+        for a in p._actions
+        if not isinstance(a, argparse._HelpAction) and not (a.help or "").strip()
+    ]
+    assert missing == []
+
+
+def _assert_csv_is_the_plan(raw: bytes, plan: dict[str, Any]) -> None:
+    """The CSV holds the plan's carriers by centre, value for value (RFC 4180 §2)."""
+    text = raw.decode("utf-8")
+    assert text.endswith("\r\n") and "\n" not in text.replace("\r\n", "")  # §2 items 1-2
+    reader = csv.DictReader(io.StringIO(text, newline=""))
+    assert reader.fieldnames == CSV_HEADER  # §2 item 3: a header row
+    rows = list(reader)
+    carriers = sorted(plan["carriers"], key=lambda c: c["center_hz"])
+    assert [r["demand_id"] for r in rows] == [c["demand_id"] for c in carriers]
+    for row, carrier in zip(rows, carriers, strict=True):
+        for column in CSV_HEADER:
+            value, cell = carrier[column], row[column]
+            if value is None:
+                assert cell == "", column
+            elif isinstance(value, bool):
+                assert cell == str(value).lower(), column
+            elif isinstance(value, float):
+                assert float(cell) == value, column  # no rounding on the way
+            else:
+                assert cell == str(value), column
+
+
+def test_plan_writes_csv_and_png(tmp_path: Path) -> None:
+    plan_path, csv_path, png_path = (tmp_path / n for n in ("p.json", "c.csv", "s.png"))
+    request = str(_write(tmp_path, REQUEST))
+    argv = ["plan", request, "-o", str(plan_path), "--csv", str(csv_path), "--png", str(png_path)]
+    assert main(argv) == 0
+    plan = json.loads(plan_path.read_text(encoding="utf-8"))
+    assert len(plan["carriers"]) == 2
+    _assert_csv_is_the_plan(csv_path.read_bytes(), plan)
+    assert png_path.read_bytes().startswith(PNG_SIGNATURE)
+
+
+def test_replan_marks_retuned_carriers_and_says_which(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    previous = tmp_path / "previous.json"
+    assert main(["plan", str(_write(tmp_path, REQUEST)), "-o", str(previous)]) == 0
+    lowest = min(json.loads(previous.read_text())["carriers"], key=lambda c: c["center_hz"])
+    # A new exclusion over the lowest carrier's spot: that carrier has to move.
+    spot = {"start_hz": lowest["lower_edge_hz"], "stop_hz": lowest["upper_edge_hz"]}
+    request = _variant(block={**REQUEST["block"], "exclusions": [spot]})
+    replanned, csv_path = tmp_path / "replanned.json", tmp_path / "replanned.csv"
+    capsys.readouterr()
+    argv = ["replan", str(_write(tmp_path, request, "new.json")), "--previous", str(previous)]
+    assert main([*argv, "-o", str(replanned), "--csv", str(csv_path)]) == 0
+    out = capsys.readouterr().out
+    after = sorted(json.loads(replanned.read_text())["carriers"], key=lambda c: c["center_hz"])
+    moved = [c["demand_id"] for c in after if c["retuned"]]
+    assert lowest["demand_id"] in moved
+    for c in after:
+        row = next(line for line in out.splitlines() if f" {c['demand_id']} " in line)
+        assert row.startswith("*" if c["retuned"] else " "), row
+    last = out.splitlines()[-1]
+    assert last == f"retuned {len(moved)} of {len(after)} carriers: {', '.join(moved)}"
+    _assert_csv_is_the_plan(csv_path.read_bytes(), {"carriers": after})

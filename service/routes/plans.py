@@ -1,4 +1,4 @@
-"""Plans: solve and store (``POST /v1/plans``), read, list, picture, retunes."""
+"""Plans: solve and store (``POST /v1/plans``), read, list, picture, carriers CSV, retunes."""
 
 from __future__ import annotations
 
@@ -12,6 +12,7 @@ from fastapi import APIRouter, Depends, Path, Query, Request, Response
 
 from service.caching import entity_tag, immutable, not_modified
 from service.convert import setting_from_wire
+from service.csvout import CSV_MEDIA_TYPE, carriers_csv
 from service.errors import ClientGoneError, NotFoundError
 from service.idempotency import IdempotencyKey, remember, replayed
 from service.pictures import Picture, PictureKey, Pictures
@@ -303,6 +304,24 @@ async def get_spectrum_png(
 ) -> Response:
     """The plan's spectrum picture (PNG), drawn once and then served from memory."""
     return await _picture(runtime, pictures, (plan_id, "png"), request)
+
+
+@router.get(
+    "/{plan_id}/carriers.csv",
+    operation_id="get_plan_carriers_csv",
+    response_class=Response,
+    responses={200: {"content": {"text/csv": {}}}, **NOT_FOUND, **NOT_MODIFIED},
+    summary="The plan's carriers as CSV (RFC 4180); the plan's notices apply to every row",
+)
+def get_carriers_csv(
+    plan_id: PlanId, request: Request, runtime: Annotated[Runtime, Depends(get_runtime)]
+) -> Response:
+    """One row per carrier by centre frequency, units in the column names (Hz, baud, dB, %,
+    bit/s), an empty cell for null.  CSV has no place for the plan's cautions: read them in
+    the plan's ``notices`` (``GET /v1/plans/{plan_id}``); they apply to every row."""
+    body = carriers_csv(_stored(runtime, plan_id).plan).encode()
+    tag = entity_tag(body)
+    return not_modified(request, tag) or immutable(body, CSV_MEDIA_TYPE, tag)
 
 
 @router.get(

@@ -16,6 +16,7 @@ CONTRACT_PATHS = {
     "/v1/plans/{plan_id}": {"get"},
     "/v1/plans/{plan_id}/spectrum.svg": {"get"},
     "/v1/plans/{plan_id}/spectrum.png": {"get"},
+    "/v1/plans/{plan_id}/carriers.csv": {"get"},
     "/v1/plans/{plan_id}/retunes": {"get"},
     "/v1/carriers/evaluate": {"post"},
     "/v1/modcods": {"get"},

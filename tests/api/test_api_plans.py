@@ -2,12 +2,15 @@
 
 Checks against outside sources: RFC 9110 §15.3.2 (201 Created with Location naming the new
 resource), §10.2.2 (Location); PNG signature from the PNG specification (ISO/IEC 15948 §5.2:
-bytes 89 50 4E 47 0D 0A 1A 0A); SVG root element from the W3C SVG 1.1 specification (§5.1).
+bytes 89 50 4E 47 0D 0A 1A 0A); SVG root element from the W3C SVG 1.1 specification (§5.1);
+CSV from RFC 4180 (§2: CRLF record ends, header row; §3: the text/csv media type).
 """
 
 from __future__ import annotations
 
 import asyncio
+import csv
+import io
 import math
 from typing import Any
 
@@ -46,6 +49,35 @@ async def test_create_read_list_and_pictures(solving_app: FastAPI) -> None:
     assert b"<svg" in svg.content[:2000]
     assert png.headers["content-type"] == "image/png"
     assert png.content.startswith(PNG_SIGNATURE)
+
+
+async def test_carriers_csv_reads_back_to_the_plan(solving_app: FastAPI) -> None:
+    async with serving(solving_app) as client:
+        plan = (await client.post("/v1/plans", json=small_request())).json()
+        answer = await client.get(f"/v1/plans/{plan['id']}/carriers.csv")
+        again = await client.get(
+            f"/v1/plans/{plan['id']}/carriers.csv",
+            headers={"If-None-Match": answer.headers["etag"]},
+        )
+        missing = await client.get("/v1/plans/nope/carriers.csv")
+    assert answer.status_code == 200
+    assert answer.headers["content-type"] == "text/csv; charset=utf-8"  # RFC 4180 §3
+    assert again.status_code == 304  # RFC 9110 §13.1.2: the same representation
+    assert missing.status_code == 404
+    assert missing.headers["content-type"].startswith("application/problem+json")  # RFC 9457
+    text = answer.content.decode("utf-8")
+    assert text.endswith("\r\n") and "\n" not in text.replace("\r\n", "")  # RFC 4180 §2
+    rows = list(csv.DictReader(io.StringIO(text, newline="")))
+    carriers = sorted(plan["carriers"], key=lambda c: c["center_hz"])
+    assert rows and [r["demand_id"] for r in rows] == [c["demand_id"] for c in carriers]
+    for row, carrier in zip(rows, carriers, strict=True):
+        for column in ("center_hz", "lower_edge_hz", "symbol_rate_baud", "throughput_bps"):
+            assert float(row[column]) == carrier[column], column
+        assert row["modulation"] == carrier["modulation"]
+        assert row["code_rate"] == carrier["code_rate"]
+        assert row["retuned"] == str(carrier["retuned"]).lower()
+        backoff = carrier["output_backoff_db"]
+        assert row["output_backoff_db"] == ("" if backoff is None else str(backoff))
 
 
 async def test_plan_fields_follow_the_contract(solving_app: FastAPI) -> None:

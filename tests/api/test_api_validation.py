@@ -211,7 +211,8 @@ async def test_unknown_previous_plan_is_named(app: FastAPI) -> None:
 
 async def test_unknown_plan_and_job_are_404_problems(app: FastAPI) -> None:
     async with serving(app) as client:
-        for path in ("/v1/plans/nope", "/v1/plans/nope/retunes", "/v1/jobs/nope", "/nowhere"):
+        plans = ("/v1/plans/nope", "/v1/plans/nope/retunes", "/v1/plans/nope/carriers.csv")
+        for path in (*plans, "/v1/jobs/nope", "/nowhere"):
             assert_problem(await client.get(path), 404)
         assert_problem(await client.delete("/v1/plans"), 405)
 

@@ -1,0 +1,244 @@
+"""What the ``bandwright`` command reports: exit codes, errors and progress on stderr, the plan
+table and the retune line (returned as text), and the files it writes.
+
+Kept apart from :mod:`service.cli` (commands and arguments) and :mod:`service.cli_remote`
+(the service over HTTP) so that each reads at once.
+"""
+
+from __future__ import annotations
+
+import sys
+import time
+from collections.abc import Sequence
+from dataclasses import dataclass, fields
+from enum import IntEnum
+from pathlib import Path
+from typing import Literal
+
+from service.convert import finite_or_none
+from service.csvout import carriers_csv
+from service.errors import FieldIssue
+from service.schemas import PlanOut
+from solver import ProgressEvent, SolveStatus
+
+__all__ = [
+    "EXIT_MEANINGS",
+    "CliError",
+    "ExitCode",
+    "ImageFormat",
+    "Outputs",
+    "Pictures",
+    "ProgressLine",
+    "err",
+    "exit_code_for",
+    "invalid",
+    "retune_line",
+    "summary_table",
+    "write_outputs",
+]
+
+MHZ = 1e6
+KHZ = 1e3
+PERCENT = 100.0
+RETUNED_MARK = "*"
+"""Marks a retuned carrier (the wire's ``CarrierOut.retuned``) in the table's first column."""
+
+PROGRESS_AFTER_S = 1.0
+
+ImageFormat = Literal["svg", "png"]
+Pictures = dict[ImageFormat, bytes]
+"""Spectrum pictures by format."""
+
+
+class ExitCode(IntEnum):
+    """Process exit codes."""
+
+    SERVED = 0
+    FAILED = 1
+    INVALID = 2
+    UNSERVED = 3
+    INFEASIBLE = 4
+    UNREACHABLE = 5
+    OUTDATED = 6
+
+
+EXIT_MEANINGS: dict[ExitCode, str] = {
+    ExitCode.SERVED: "every demand served",
+    ExitCode.UNSERVED: "some unserved",
+    ExitCode.INFEASIBLE: "infeasible",
+    ExitCode.INVALID: "invalid input (the field and the problem on stderr)",
+    ExitCode.UNREACHABLE: "server (or database) unreachable",
+    ExitCode.OUTDATED: "the database's schema is behind this version (run `bandwright db upgrade`)",
+    ExitCode.FAILED: "any other failure",
+}
+"""What each exit code means, for ``--help`` (the README's "Exit codes" paragraph agrees)."""
+
+
+class CliError(Exception):
+    """Ends the command with ``code`` after writing ``message`` to stderr."""
+
+    def __init__(self, code: ExitCode, message: str) -> None:
+        super().__init__(message)
+        self.code = code
+
+
+def err(text: str) -> None:
+    """Write a line to stderr at once."""
+    sys.stderr.write(text + "\n")
+    sys.stderr.flush()
+
+
+def invalid(issues: Sequence[FieldIssue]) -> CliError:
+    """Exit 2, one ``invalid input: FIELD: MESSAGE`` line per issue."""
+    lines = [f"invalid input: {i.field}: {i.message}" for i in issues]
+    return CliError(ExitCode.INVALID, "\n".join(lines))
+
+
+class ProgressLine:
+    """Writes to stderr what the solve is computing, at once whenever that changes and at
+    most once a second otherwise; with each verified plan, its objective and gap (the
+    figures the plan reports)."""
+
+    def __init__(self) -> None:
+        self._started = time.monotonic()
+        self._last = -PROGRESS_AFTER_S
+        self._stage: str | None = None
+
+    def __call__(self, event: ProgressEvent) -> None:
+        self.show(
+            finite_or_none(event.objective_value), finite_or_none(event.optimality_gap), event.stage
+        )
+
+    def show(self, objective: float | None, gap: float | None, stage: str | None = None) -> None:
+        now = time.monotonic() - self._started
+        changed = stage != self._stage
+        if not changed and now - self._last < PROGRESS_AFTER_S:
+            return
+        self._last, self._stage = now, stage
+        best = "—" if objective is None else f"{objective:.6g}"
+        gap_text = "—" if gap is None else f"{gap * PERCENT:.2f} %"
+        # Wall time since the command started waiting (one clock for every stage).
+        what = f"{stage}: " if stage else ""
+        err(f"solving: elapsed {now:6.1f} s  {what}best objective {best}  gap {gap_text}")
+
+
+def exit_code_for(plan: PlanOut) -> ExitCode:
+    """0 every demand served, 3 some unserved, 4 infeasible."""
+    if plan.status is SolveStatus.INFEASIBLE:
+        return ExitCode.INFEASIBLE
+    return ExitCode.UNSERVED if plan.unserved else ExitCode.SERVED
+
+
+def summary_table(plan: PlanOut) -> str:
+    """A readable table of the plan: one line per carrier (``*``: retuned), then unserved
+    demands, totals and the plan's cautions.
+
+    Parameters
+    ----------
+    plan : PlanOut
+        A plan as on the wire.
+
+    Returns
+    -------
+    str
+        Lines ending in a newline; centres in MHz, symbol rates in Mbaud, throughput in
+        Mbit/s, margins and back-off in dB, guards in kHz, EVM in % rms.
+    """
+    width = max([len("demand"), *(len(c.demand_id) for c in plan.carriers)]) + 2
+    head = (
+        f"  {'demand':<{width}}{'centre MHz':>14}{'Rs Mbaud':>10}{'α':>6}  {'MODCOD':<16}"
+        f"{'Mbit/s':>9}{'margin dB':>10}{'guard kHz':>16}{'OBO dB':>8}{'EVM %':>7}"
+    )
+    lines = [f"plan {plan.id or '(not stored)'}  {plan.name!r}  status {plan.status.value}", head]
+    lines.append("-" * len(head))
+    for c in sorted(plan.carriers, key=lambda c: c.center_hz):
+        mark = RETUNED_MARK if c.retuned else " "
+        modcod = f"{c.modulation.value} {c.code_rate}"
+        guards = f"{c.guard_below_hz / KHZ:.1f}/{c.guard_above_hz / KHZ:.1f}"
+        backoff = "—" if c.output_backoff_db is None else f"{c.output_backoff_db:.1f}"
+        lines.append(
+            f"{mark} {c.demand_id:<{width}}{c.center_hz / MHZ:>14.4f}"
+            f"{c.symbol_rate_baud / MHZ:>10.4f}{c.rolloff:>6.2f}  {modcod:<16}"
+            f"{c.throughput_bps / MHZ:>9.3f}{c.margin_db:>10.2f}{guards:>16}{backoff:>8}"
+            f"{c.evm_pct:>7.2f}"
+        )
+    if any(c.retuned for c in plan.carriers):
+        lines.append(f"{RETUNED_MARK} retuned: moved or reconfigured from its current setting")
+    lines.extend(f"unserved {u.demand_id}: {u.reason.value} ({u.detail})" for u in plan.unserved)
+    lines.append(_totals(plan))
+    lines.extend(f"note: {n}" for n in plan.notices)
+    return "\n".join(lines) + "\n"
+
+
+def _totals(plan: PlanOut) -> str:
+    s = plan.summary
+    gap = "—" if s.optimality_gap is None else f"{s.optimality_gap * PERCENT:.2f} %"
+    return (
+        f"used {s.used_bandwidth_hz / MHZ:.4f} MHz, free {s.free_bandwidth_hz / MHZ:.4f} MHz "
+        f"(largest segment {s.largest_free_segment_hz / MHZ:.4f} MHz); throughput "
+        f"{s.total_throughput_bps / MHZ:.3f} Mbit/s, {s.spectral_efficiency_bps_per_hz:.3f} "
+        f"bit/s/Hz, {s.efficiency_vs_bound * PERCENT:.1f} % of the bound; gap {gap}; "
+        f"solved in {s.solve_time_s:.2f} s"
+    )
+
+
+def retune_line(plan: PlanOut) -> str:
+    """One line for a nightly notification: ``retuned K of N carriers: a, b`` (by centre).
+
+    Parameters
+    ----------
+    plan : PlanOut
+        A replanned plan as on the wire.
+
+    Returns
+    -------
+    str
+        The line, ending in a newline; without retunes it ends after ``carriers``.
+    """
+    carriers = sorted(plan.carriers, key=lambda c: c.center_hz)
+    moved = [c.demand_id for c in carriers if c.retuned]
+    text = f"retuned {len(moved)} of {len(carriers)} carriers"
+    return (f"{text}: {', '.join(moved)}" if moved else text) + "\n"
+
+
+@dataclass(frozen=True)
+class Outputs:
+    """Where to write the plan (JSON), its pictures and its carriers (CSV); None: nowhere."""
+
+    plan_path: Path | None = None
+    svg_path: Path | None = None
+    png_path: Path | None = None
+    csv_path: Path | None = None
+
+    def formats(self) -> tuple[ImageFormat, ...]:
+        """The picture formats asked for."""
+        asked: dict[ImageFormat, Path | None] = {"svg": self.svg_path, "png": self.png_path}
+        return tuple(fmt for fmt, path in asked.items() if path is not None)
+
+    def paths(self) -> list[Path]:
+        """Every path asked for, in the order of the fields."""
+        found = (getattr(self, f.name) for f in fields(self))
+        return [path for path in found if path is not None]
+
+
+def write_outputs(plan: PlanOut, pictures: dict[ImageFormat, bytes], outputs: Outputs) -> None:
+    """Write each asked-for file, making its directory.
+
+    Raises
+    ------
+    ValueError
+        When a picture is asked for that ``pictures`` does not hold.
+    """
+    missing = [fmt for fmt in outputs.formats() if fmt not in pictures]
+    if missing:
+        raise ValueError(f"no {' or '.join(missing)} picture was produced")
+    contents: list[tuple[Path | None, bytes]] = [
+        (outputs.plan_path, (plan.model_dump_json(indent=2) + "\n").encode()),
+        (outputs.svg_path, pictures.get("svg", b"")),
+        (outputs.png_path, pictures.get("png", b"")),
+        (outputs.csv_path, carriers_csv(plan).encode()),
+    ]
+    for path, content in contents:
+        if path is not None:
+            path.parent.mkdir(parents=True, exist_ok=True)
+            path.write_bytes(content)
