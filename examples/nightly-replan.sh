@@ -95,6 +95,9 @@ keep_candidate_as() {
     fi
 }
 
+# The summary's last line says which carriers move ("retuned K of N carriers: a, b").
+retunes="$(grep -m1 '^retuned ' "$plan_dir/new-plan.summary.txt" 2>/dev/null || true)"
+
 case "$status" in
     0)
         if [[ ! -f "$plan_dir/.candidate.json" ]]; then
@@ -106,11 +109,11 @@ case "$status" in
         keep_candidate_as "$new_plan"
         cp -p "$new_plan" "$plan_dir/.last-plan.tmp"
         mv -f "$plan_dir/.last-plan.tmp" "$last_plan"
-        notify "every demand served; new plan adopted (previous archived as plan-before-$stamp.json)"
+        notify "every demand served; new plan adopted (previous archived as plan-before-$stamp.json); ${retunes:-no retune line}"
         ;;
     3)
         keep_candidate_as "$new_plan"
-        notify "some demands unserved; last-plan.json kept, review $new_plan before adopting it"
+        notify "some demands unserved; last-plan.json kept, review $new_plan before adopting it; ${retunes:-no retune line}"
         ;;
     4)
         keep_candidate_as "$plan_dir/infeasible-$stamp.json"
