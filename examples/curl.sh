@@ -95,6 +95,11 @@ curl --fail --silent --show-error -o "$out_dir/demo-spectrum.png" \
     "$base_url/v1/plans/$plan_id/spectrum.png"
 echo "wrote $out_dir/demo-spectrum.svg and $out_dir/demo-spectrum.png"
 
+step "GET /v1/plans/$plan_id/carriers.csv"
+curl --fail --silent --show-error -o "$out_dir/demo-carriers.csv" \
+    "$base_url/v1/plans/$plan_id/carriers.csv"
+echo "wrote $out_dir/demo-carriers.csv"
+
 step "POST /v1/jobs (the next-day replan as a background job; 202 with Location)"
 # Fill the request's previous_plan_id placeholder (null in the file) with the stored plan's id.
 python3 - "$here/replan-request.json" "$plan_id" >"$out_dir/replan-request.filled.json" <<'PY'

@@ -152,7 +152,7 @@ def _solve_here(
     except ProblemError as exc:
         raise invalid([FieldIssue(exc.field, exc.message)]) from exc
     parent = None if previous is None else previous.id
-    out = plan_to_wire(plan, plan_id=None, created_at=utc_now(), parent_id=parent)
+    out = plan_to_wire(plan, plan_id=None, created_at=utc_now(), parent_id=parent, request=request)
     return out, _render_here(plan, problem, formats)
 
 

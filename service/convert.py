@@ -147,9 +147,15 @@ def carrier_from_wire(c: CarrierOut) -> Carrier:
 
 
 def plan_to_wire(
-    plan: Plan, *, plan_id: str | None, created_at: datetime, parent_id: str | None
+    plan: Plan,
+    *,
+    plan_id: str | None,
+    created_at: datetime,
+    parent_id: str | None,
+    request: PlanRequest | None = None,
 ) -> PlanOut:
-    """Convert a solved plan to its wire form, adding the identity the store gives it."""
+    """Convert a solved plan to its wire form, adding the identity the store gives it, and,
+    given its ``request``, an echo of it and each carrier's demand figures (rates, priority)."""
     s, st = plan.summary, plan.stats
     summary = SummaryOut(
         used_bandwidth_hz=s.used_bandwidth_hz,
@@ -177,7 +183,7 @@ def plan_to_wire(
         created_at=created_at,
         parent_id=parent_id,
         status=plan.status,
-        carriers=[carrier_to_wire(c) for c in plan.carriers],
+        carriers=_with_demands([carrier_to_wire(c) for c in plan.carriers], request),
         unserved=[
             UnservedOut(demand_id=u.demand_id, reason=u.reason, detail=u.detail)
             for u in plan.unserved
@@ -185,7 +191,27 @@ def plan_to_wire(
         summary=summary,
         solver=solver,
         notices=list(plan.notices),
+        request=request,
     )
+
+
+def _with_demands(carriers: list[CarrierOut], request: PlanRequest | None) -> list[CarrierOut]:
+    """Each carrier with its demand's minimum and target rates and priority (as they were)."""
+    if request is None:
+        return carriers
+    demands = {d.id: d for d in request.demands}
+    return [
+        c.model_copy(
+            update={
+                "min_rate_bps": demands[c.demand_id].min_rate_bps,
+                "target_rate_bps": demands[c.demand_id].target_rate_bps,
+                "priority": demands[c.demand_id].priority,
+            }
+        )
+        if c.demand_id in demands
+        else c
+        for c in carriers
+    ]
 
 
 def plan_from_wire(out: PlanOut) -> Plan:

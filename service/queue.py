@@ -194,7 +194,13 @@ def _solve_claimed(
     if plan is None:  # this process is stopping, or lost the lease: the job runs again
         store.release_job(job_id, owner)
         return "released"
-    out = plan_to_wire(plan, plan_id=new_id(), created_at=utc_now(), parent_id=prepared.parent_id)
+    out = plan_to_wire(
+        plan,
+        plan_id=new_id(),
+        created_at=utc_now(),
+        parent_id=prepared.parent_id,
+        request=prepared.request,
+    )
     kept = store.finish_job(job_id, out, request)
     if kept is None:
         return "cancelled"

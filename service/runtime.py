@@ -130,7 +130,13 @@ STORE_RETRIES_S = (0.25, 0.5, 1.0, 2.0)
 def store_plan(runtime: Runtime, prepared: PreparedSolve, plan: Plan) -> PlanOut:
     """Give the plan its id, time and parent, and store it with its request (retried for a
     few seconds while the store does not answer)."""
-    out = plan_to_wire(plan, plan_id=new_id(), created_at=utc_now(), parent_id=prepared.parent_id)
+    out = plan_to_wire(
+        plan,
+        plan_id=new_id(),
+        created_at=utc_now(),
+        parent_id=prepared.parent_id,
+        request=prepared.request,
+    )
     for pause_s in (*STORE_RETRIES_S, None):
         try:
             runtime.store.add_plan(out, prepared.request)

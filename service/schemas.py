@@ -462,6 +462,9 @@ class CarrierOut(BaseModel):
     leakage_ratio_db: LeakageOut
     c_over_i_db: float | None = Field(description="carrier to interference (dB); null: none")
     retuned: bool = Field(description="moved or reconfigured relative to its current setting")
+    min_rate_bps: float | None = Field(None, description="its demand's least useful rate (bit/s)")
+    target_rate_bps: float | None = Field(None, description="its demand's wanted rate (bit/s)")
+    priority: int | None = Field(None, description="its demand's priority (higher first)")
 
 
 class UnservedOut(BaseModel):
@@ -511,6 +514,9 @@ class PlanOut(BaseModel):
     summary: SummaryOut
     solver: SolverOut
     notices: list[str] = Field(description="cautions that come with every plan")
+    request: PlanRequest | None = Field(
+        None, description="the request this plan answers, as it was sent (a plan stands alone)"
+    )
 
 
 class PlanListItem(BaseModel):

@@ -159,3 +159,21 @@ async def test_twenty_parallel_plans_all_complete_and_are_stored(
     assert len(ids) == 20
     assert page["total"] == 21
     assert ids <= {item["id"] for item in page["items"]}
+
+
+async def test_a_plan_stands_alone(solving_app: FastAPI) -> None:
+    # A stored plan echoes the request it answers, and each carrier its demand's figures.
+    request = small_request()
+    async with serving(solving_app) as client:
+        created = await client.post("/v1/plans", json=request)
+        fetched = await client.get(created.headers["location"])
+    plan = fetched.json()
+    assert plan["request"]["block"]["start_hz"] == request["block"]["start_hz"]
+    assert [d["id"] for d in plan["request"]["demands"]] == [d["id"] for d in request["demands"]]
+    asked = {d["id"]: d for d in request["demands"]}
+    assert plan["carriers"]
+    for c in plan["carriers"]:
+        demand = asked[c["demand_id"]]
+        assert c["min_rate_bps"] == demand["min_rate_bps"]
+        assert c["target_rate_bps"] == demand["target_rate_bps"]
+        assert c["priority"] == demand.get("priority", 1)
