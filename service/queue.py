@@ -26,12 +26,12 @@ from collections.abc import Callable
 from concurrent.futures import ThreadPoolExecutor
 from typing import Any
 
-from service.convert import plan_to_wire, progress_to_wire
+from service.convert import progress_to_wire
 from service.errors import FieldIssue, InvalidInputError, SolverBusyError, problem_document
 from service.ratelimit import job_cap_refusal
-from service.runtime import Runtime, new_id, prepare, run_solve
+from service.runtime import Runtime, new_id, prepare, run_solve, wire_plan
 from service.schemas import JobOut, JobState, PlanRequest
-from service.store import JobCapError, StoreUnavailableError, utc_now
+from service.store import JobCapError, StoreUnavailableError
 from solver import ProblemError, ProgressEvent, SolveCancelledError, validate_problem
 
 __all__ = [
@@ -194,13 +194,7 @@ def _solve_claimed(
     if plan is None:  # this process is stopping, or lost the lease: the job runs again
         store.release_job(job_id, owner)
         return "released"
-    out = plan_to_wire(
-        plan,
-        plan_id=new_id(),
-        created_at=utc_now(),
-        parent_id=prepared.parent_id,
-        request=prepared.request,
-    )
+    out = wire_plan(prepared, plan)
     kept = store.finish_job(job_id, out, request)
     if kept is None:
         return "cancelled"

@@ -43,6 +43,7 @@ __all__ = [
     "prepare",
     "run_solve",
     "store_plan",
+    "wire_plan",
 ]
 
 logger = logging.getLogger(__name__)
@@ -127,16 +128,21 @@ STORE_RETRIES_S = (0.25, 0.5, 1.0, 2.0)
 :class:`~service.store.StoreUnavailableError`, a 503)."""
 
 
-def store_plan(runtime: Runtime, prepared: PreparedSolve, plan: Plan) -> PlanOut:
-    """Give the plan its id, time and parent, and store it with its request (retried for a
-    few seconds while the store does not answer)."""
-    out = plan_to_wire(
+def wire_plan(prepared: PreparedSolve, plan: Plan) -> PlanOut:
+    """The plan on the wire with a new id, the time, its parent and its request."""
+    return plan_to_wire(
         plan,
         plan_id=new_id(),
         created_at=utc_now(),
         parent_id=prepared.parent_id,
         request=prepared.request,
     )
+
+
+def store_plan(runtime: Runtime, prepared: PreparedSolve, plan: Plan) -> PlanOut:
+    """Give the plan its id, time and parent, and store it with its request (retried for a
+    few seconds while the store does not answer)."""
+    out = wire_plan(prepared, plan)
     for pause_s in (*STORE_RETRIES_S, None):
         try:
             runtime.store.add_plan(out, prepared.request)
