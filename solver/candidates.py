@@ -237,11 +237,15 @@ def _thermal_db(
     demand: Demand, combos: _Combos, idx: NDArray[np.int64], rate_baud: NDArray[np.float64]
 ) -> NDArray[np.float64]:
     """Es/N0 (dB) from thermal noise of combos ``idx`` at ``rate_baud``."""
-    offset = combos.esn0_offset_db[idx]
+    return _stated_esn0_db(demand, rate_baud) + combos.esn0_offset_db[idx]
+
+
+def _stated_esn0_db(demand: Demand, rate_baud: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Es/N0 (dB) the demand's link gives at ``rate_baud`` at its reference back-off."""
     if demand.cn0_dbhz is not None:
-        return np.asarray(demand.cn0_dbhz + offset - 10.0 * np.log10(rate_baud))
+        return np.asarray(demand.cn0_dbhz - 10.0 * np.log10(rate_baud))
     esn0 = demand.esn0_db if demand.esn0_db is not None else -math.inf
-    return np.asarray(np.full_like(rate_baud, esn0) + offset)
+    return np.asarray(np.full_like(rate_baud, esn0))
 
 
 def _esn0_db(
@@ -703,15 +707,10 @@ def family_for(
     table_entry = _entry(problem, profile, modulation, code_rate)
     entry = table_entry.required_esn0_db
     option = equipment.backoff_option(profile, output_backoff_db)
-    if not math.isfinite(entry):
-        return None
     throughput = symbol_rate_baud * table_entry.net_bits_per_symbol
-    thermal = _thermal_at(demand, option, symbol_rate_baud)
-    esn0 = thermal
-    if option.evm_pct > 0:
-        esn0 = float(distortion.effective_esn0_db(thermal, option.evm_pct))
+    thermal, esn0 = _link_at(demand, option, symbol_rate_baud)
     if throughput < demand.min_rate_bps * (1 - 1e-9) or esn0 - entry < demand.margin_db:
-        return None
+        return None  # an infinite threshold (the format never reaches the target) ends here too
     tx = equipment.transmitter_at(profile, option.output_backoff_db)
     key = emission.EmissionKey.for_carrier(tx, modulation, rolloff)
     spectrum = emission.get_profile(key)
@@ -730,7 +729,7 @@ def family_for(
         code_rate=code_rate,
         rolloff=rolloff,
         symbol_rate_baud=symbol_rate_baud,
-        bits_per_symbol=modcod.constellation(modulation).bits_per_symbol,
+        bits_per_symbol=table_entry.bits_per_symbol,
         allocated_bandwidth_hz=symbol_rate_baud * (1 + rolloff),
         occupied_bandwidth_hz=symbol_rate_baud * spectrum.occupied_bandwidth(),
         guard_hz=guard,
@@ -746,13 +745,14 @@ def family_for(
     return _single_family(problem, demand, config, key, immunity, leak_per_baud)
 
 
-def _thermal_at(demand: Demand, option: equipment.BackoffOption, rate_baud: float) -> float:
-    """Es/N0 (dB) from thermal noise of ``demand`` at ``rate_baud`` and back-off ``option``."""
-    if demand.cn0_dbhz is not None:
-        stated = demand.cn0_dbhz - 10.0 * math.log10(rate_baud)
-    else:
-        stated = demand.esn0_db if demand.esn0_db is not None else -math.inf
-    return stated + option.esn0_offset_db
+def _link_at(
+    demand: Demand, option: equipment.BackoffOption, rate_baud: float
+) -> tuple[float, float]:
+    """Thermal and effective Es/N0 (dB) of ``demand`` at ``rate_baud`` and back-off ``option``."""
+    thermal = float(_stated_esn0_db(demand, np.array([rate_baud]))[0]) + option.esn0_offset_db
+    if option.evm_pct <= 0:
+        return thermal, thermal
+    return thermal, float(distortion.effective_esn0_db(thermal, option.evm_pct))
 
 
 @functools.lru_cache(maxsize=256)
