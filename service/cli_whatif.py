@@ -86,15 +86,15 @@ def difference_text(answer: WhatIfOut) -> str:
     width = max([len("demand"), *(len(r.demand_id) for r in d.demands)]) + 2
     lines = [
         f"what-if on plan {plan.parent_id}: status {plan.status.value}, {stored}",
-        f"  {'demand':<{width}}{'change':<24}{'centre MHz':<24}{'width kHz':<22}"
-        f"{'MODCOD':<30}Mbit/s",
+        f"  {'demand':<{width}}{'change':<24}{'centre MHz':<25}{'width kHz':<22}"
+        f"{'MODCOD':<34}Mbit/s",
     ]
     for r in d.demands:
         old, new = _brief(r.before), _brief(r.after)
         pairs = [f"{a} → {b}" for a, b in zip(old, new, strict=True)]
         lines.append(
-            f"  {r.demand_id:<{width}}{r.change.value:<24}{pairs[0]:<24}{pairs[1]:<22}"
-            f"{pairs[2]:<30}{pairs[3]}" + (f"  ({r.note})" if r.note else "")
+            f"  {r.demand_id:<{width}}{r.change.value:<24}{pairs[0]:<24} {pairs[1]:<21} "
+            f"{pairs[2]:<33} {pairs[3]}" + (f"  ({r.note})" if r.note else "")
         )
     lines.append(
         f"throughput {d.total_throughput_before_bps / MHZ:.3f} → "

@@ -167,3 +167,13 @@ async def test_a_demand_with_no_configuration_is_warned_about(checking_app: Fast
         report = (await client.post("/v1/plans:validate", json=request)).json()
     assert report["per_demand"][1]["configurations"] == 0
     assert [w for w in report["warnings"] if w.startswith("demands[1]")]
+
+
+def test_the_openapi_document_lists_the_dry_run_and_the_what_if() -> None:
+    from service.openapi_export import openapi_document
+
+    paths = openapi_document()["paths"]
+    assert "post" in paths["/v1/plans:validate"]
+    assert "post" in paths["/v1/plans/{plan_id}/what-if"]
+    responses = paths["/v1/plans/{plan_id}/what-if"]["post"]["responses"]
+    assert {"200", "201", "404", "422"} <= responses.keys()

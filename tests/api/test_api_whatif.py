@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import copy
 import math
+from pathlib import Path
 from typing import Any
 
 import httpx
@@ -21,8 +22,12 @@ from api_support import serving
 from fastapi import FastAPI
 
 from service.app import create_app
+from service.dryrun import check_request
 from service.runtime import SolveFunction
+from service.schemas import PlanRequest
+from service.schemas_whatif import WhatIfRequest
 from service.settings import Settings
+from service.whatif import apply_changes
 
 pytestmark = pytest.mark.anyio
 
@@ -275,3 +280,21 @@ async def test_an_unknown_plan_is_a_404(solving_app: FastAPI) -> None:
         answer = await _what_if(client, "no-such-plan", {"drop_demands": ["x"]})
     assert answer.status_code == 404
     assert answer.json()["type"] == "urn:bandwright:problem:not-found"
+
+
+def test_the_example_changes_apply_to_the_demo_request_and_pass_every_check(
+    settings: Settings,
+) -> None:
+    """examples/what-if-changes.json on examples/demo-request.json, checked without a solve."""
+    examples = Path(__file__).resolve().parents[2] / "examples"
+    demo = PlanRequest.model_validate_json((examples / "demo-request.json").read_text("utf-8"))
+    body = WhatIfRequest.model_validate_json((examples / "what-if-changes.json").read_text("utf-8"))
+    changed = apply_changes(demo, "stored-plan", body).request
+    ids = [d.id for d in changed.demands]
+    assert "scada-marsh-rtu" not in ids and ids[-1] == "depot-access-cams" and len(ids) == 12
+    assert changed.block.exclusions == [] and changed.previous_plan_id == "stored-plan"
+    cctv = next(d for d in changed.demands if d.id == "cctv-yard-depot")
+    assert (cctv.min_rate_bps, cctv.target_rate_bps) == (3e6, 12e6)
+    assert all(d.current is None for d in changed.demands)  # the stored plan's carriers instead
+    report = check_request(changed, settings, None)
+    assert report.exclusions == 0 and report.usable_width_hz == pytest.approx(20e6, abs=1e-3)
