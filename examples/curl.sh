@@ -71,6 +71,12 @@ step "POST /v1/carriers/evaluate (one carrier configuration)"
 JSON
 echo
 
+step "POST /v1/plans:validate (dry run: the same checks, and the size; nothing solved or stored)"
+"${curl_json[@]}" -X POST "$base_url/v1/plans:validate" \
+    -H "Content-Type: application/json" \
+    --data-binary "@$here/demo-request.json"
+echo
+
 step "POST /v1/plans (solve and store; 201 with Location)"
 plan_json="$out_dir/demo-plan.json"
 "${curl_json[@]}" -X POST "$base_url/v1/plans" \
@@ -99,6 +105,11 @@ step "GET /v1/plans/$plan_id/carriers.csv"
 curl --fail --silent --show-error -o "$out_dir/demo-carriers.csv" \
     "$base_url/v1/plans/$plan_id/carriers.csv"
 echo "wrote $out_dir/demo-carriers.csv"
+
+step "POST /v1/plans/$plan_id/what-if (changes tried on the stored plan; not stored)"
+"${curl_json[@]}" -X POST "$base_url/v1/plans/$plan_id/what-if" \
+    -H "Content-Type: application/json" \
+    --data-binary "@$here/what-if-changes.json" | field difference
 
 step "POST /v1/jobs (the next-day replan as a background job; 202 with Location)"
 # Fill the request's previous_plan_id placeholder (null in the file) with the stored plan's id.

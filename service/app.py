@@ -35,7 +35,7 @@ from service.metrics import Metrics, MetricsMiddleware
 from service.pictures import DrawFunction, Pictures, draw_picture
 from service.queue import BrokerJobQueue, LocalJobQueue
 from service.ratelimit import RateLimits, limit_requests
-from service.routes import batches, carriers, health, jobs, modcods, plans
+from service.routes import batches, carriers, health, jobs, modcods, plans, validate, whatif
 from service.routes.plans import AUTH_RESPONSES, COMMON_RESPONSES, LIMIT_RESPONSES
 from service.runtime import Runtime, SolveFunction, SolveGate
 from service.settings import Settings, get_settings
@@ -162,7 +162,7 @@ def create_app(
     app.add_middleware(MetricsMiddleware, metrics=metrics)
     app.add_middleware(NoSniffMiddleware)
     add_cors(app, settings.cors_origins)  # outermost: refusals carry the CORS headers too
-    for module in (plans, jobs, batches, carriers, modcods):
+    for module in (validate, plans, whatif, jobs, batches, carriers, modcods):
         app.include_router(
             module.router,
             dependencies=[Depends(authorise), Depends(limit_requests)],

@@ -9,6 +9,8 @@
     bandwright --version
     bandwright keys create|list|revoke ...
     bandwright db upgrade|current [--url URL]
+    bandwright check REQUEST.json|- [--json]
+    bandwright what-if PLAN_ID CHANGES.json --server URL [--store] [-o PLAN.json] [--json]
 
 Without ``--server`` a plan is computed in this process and **nothing is stored**: the plan goes
 to ``-o`` (its ``id`` is null) and the summary to stdout.  With ``--server`` the request is sent
@@ -45,6 +47,7 @@ import httpx
 import pydantic
 import sqlalchemy as sa
 
+from service.cli_check import add_check_command
 from service.cli_remote import (
     SERVER_ENV,
     follow_batch,
@@ -69,6 +72,7 @@ from service.cli_report import (
     summary_table,
     write_outputs,
 )
+from service.cli_whatif import add_what_if_command
 from service.convert import plan_to_wire, to_problem
 from service.errors import (
     FieldIssue,
@@ -480,6 +484,8 @@ def _parser() -> argparse.ArgumentParser:
     _add_worker_command(sub)
     _add_db_command(sub)
     _add_demo_command(sub)
+    add_check_command(sub)
+    add_what_if_command(sub)
     return parser
 
 

@@ -504,7 +504,9 @@ class SolverOut(BaseModel):
 class PlanOut(BaseModel):
     """A stored, verified frequency plan."""
 
-    id: str | None = Field(description="null only for a plan computed offline by the CLI")
+    id: str | None = Field(
+        description="null only for a plan computed offline by the CLI, or a what-if not stored"
+    )
     name: str
     created_at: datetime
     parent_id: str | None
