@@ -159,13 +159,11 @@ def _earlier_style(
 
 def _change_line(changes: Sequence[CarrierChange]) -> str:
     """``since the earlier plan: 1 added, 1 moved, 1 dropped`` (or ``no changes``)."""
-    counts: dict[str, int] = {}
-    for change in changes:
-        word = _COUNT_WORDS[change.change]
-        counts[word] = counts.get(word, 0) + 1
-    if not counts:
+    counts = {kind: sum(c.change is kind for c in changes) for kind in _COUNT_WORDS}
+    said = [f"{n} {_COUNT_WORDS[kind]}" for kind, n in counts.items() if n]
+    if not said:
         return f"no changes since {_EARLIER}"
-    return f"since {_EARLIER}: " + ", ".join(f"{n} {word}" for word, n in counts.items())
+    return f"since {_EARLIER}: " + ", ".join(said)
 
 
 def draw_texts(

@@ -39,16 +39,28 @@ FREQUENCY_UNITS: Final[tuple[Unit, ...]] = (("GHz", 1e9), MHZ, KHZ, ("Hz", 1.0))
 RATE_UNITS: Final[tuple[Unit, ...]] = (("Gbit/s", 1e9), MBIT_S, ("kbit/s", 1e3), ("bit/s", 1.0))
 
 
-def _unit_for(value: float, units: tuple[Unit, ...], largest: str | None = None) -> Unit:
-    """The largest unit (not above ``largest``) that ``|value|`` reaches; the smallest unit
-    for values below every unit, zero and non-finite values."""
-    allowed = units if largest is None else units[[w for w, _ in units].index(largest) :]
+def _unit_for(value: float, units: tuple[Unit, ...]) -> Unit:
+    """The largest of ``units`` that ``|value|`` reaches; the smallest unit for values below
+    every unit, zero and non-finite values."""
     magnitude = abs(value)
     if math.isfinite(magnitude):
-        for unit in allowed:
+        for unit in units:
             if magnitude >= unit[1]:
                 return unit
-    return allowed[-1]
+    return units[-1]
+
+
+def _format(value: float, units: tuple[Unit, ...], digits: int) -> str:
+    """``value`` in the largest unit it reaches, to ``digits`` significant digits; a value that
+    rounds up to 1000 of one unit is written as 1 of the next (``1 Mbit/s``, not ``1e+03
+    kbit/s``)."""
+    word, size = _unit_for(value, units)
+    text = f"{value / size:.{digits}g}"
+    index = units.index((word, size))
+    if index > 0 and math.isfinite(value) and abs(float(text)) >= 1000:
+        word, size = units[index - 1]
+        text = f"{value / size:.{digits}g}"
+    return f"{text} {word}"
 
 
 def frequency_unit(width_hz: float) -> Unit:
@@ -75,8 +87,7 @@ def format_rate(rate_bps: float, digits: int = 3) -> str:
     >>> format_rate(2.004e6)
     '2 Mbit/s'
     """
-    word, size = rate_unit(rate_bps)
-    return f"{rate_bps / size:.{digits}g} {word}"
+    return _format(rate_bps, RATE_UNITS, digits)
 
 
 def format_frequency(value_hz: float, digits: int = 4, largest: str = "MHz") -> str:
@@ -87,8 +98,8 @@ def format_frequency(value_hz: float, digits: int = 4, largest: str = "MHz") -> 
     >>> format_frequency(18.4034e6)
     '18.4 MHz'
     """
-    word, size = _unit_for(value_hz, FREQUENCY_UNITS, largest)
-    return f"{value_hz / size:.{digits}g} {word}"
+    units = FREQUENCY_UNITS[[word for word, _ in FREQUENCY_UNITS].index(largest) :]
+    return _format(value_hz, units, digits)
 
 
 def format_shift(shift_hz: float, digits: int = 3) -> str:
