@@ -13,8 +13,9 @@ legend; and the cautions of every plan's notices (:data:`solver.CAUTIONS`).
 The leakage limits are ratios (a carrier's power over what it puts into the neighbouring band),
 so they appear as figures beside the gaps, never as levels on the PSD axis, where a carrier's
 skirt may rise above a "limit line" while its integrated leakage meets the limit with room to
-spare.  A replan's picture outlines where a moved or changed carrier was (dashed, in its
-colour, with an arrow to where it is) and where a dropped carrier was (dotted, hatched).
+spare.  A replan's picture draws the earlier plan's bars in a row over this plan's: an
+unchanged carrier's in grey, a moved or changed one's dashed in its colour (with a line to where
+it went), a dropped one's dotted and hatched; each label says what changed.
 
 Drawing uses matplotlib's object interface only (:class:`matplotlib.figure.Figure` on an Agg
 canvas): no pyplot, no global figure state.  matplotlib does not promise thread safety, so the
@@ -202,8 +203,9 @@ def build_spectrum_figure(
     gids a reader (or a test) can find: ``label-<id>`` (a carrier's label),
     ``carrier-<id>`` (its in-band curve), ``band-<id>``, ``guard-below-<id>`` and
     ``guard-above-<id>`` (its bar and guards), ``gap-<n>`` (the leakage figure of the n-th gap
-    by frequency), ``ghost-<id>`` and ``shift-<id>`` (a moved carrier's earlier place and the
-    arrow to the new one), ``dropped-<id>`` (a dropped carrier's earlier place).
+    by frequency); for a replan ``earlier-<id>``, ``ghost-<id>`` and ``dropped-<id>`` (the
+    earlier bar of an unchanged, a moved or changed, and a dropped carrier), ``shift-<id>``
+    (the line from a moved carrier's earlier bar to its new one) and ``label-dropped-<id>``.
     """
     block = problem.block
     if not block.stop_hz > block.start_hz:
@@ -449,15 +451,17 @@ def _spans(scene: _Scene) -> list[tuple[float, float, float, float]]:
     ]
 
 
-def _label_forms(carrier: Carrier, change: CarrierChange | None) -> tuple[str, str, str]:
-    """A carrier's label horizontal, upright and in brief: demand id, MODCOD, throughput,
-    and what changed since the earlier plan."""
+def _label_forms(carrier: Carrier, change: CarrierChange | None) -> tuple[str, str, str, str]:
+    """A carrier's label in each form (:data:`service.render_text.Form`): demand id, MODCOD,
+    throughput, and what changed since the earlier plan."""
     config = carrier.config
     modcod = f"{config.modulation.value} {format_code_rate(config.code_rate)}"
     rate = format_rate(config.throughput_bps)
     full, brief = ("", "") if change is None else change_words(change)
+    stacked = "\n".join(filter(None, (carrier.demand_id, modcod, rate, full)))
     return (
-        "\n".join(filter(None, (carrier.demand_id, modcod, rate, full))),
+        stacked,
+        stacked,
         carrier.demand_id + "\n" + " · ".join(filter(None, (modcod, rate, full))),
         "\n".join(filter(None, (carrier.demand_id, brief))),
     )
@@ -509,7 +513,7 @@ def _draw_gaps(ax: Axes, gaps: Sequence[LeakageGap], scale_hz: float) -> None:
     items = [
         TextItem(
             gap.centre_hz / scale_hz,
-            (text, text, text),
+            (text, text, text, text),
             f"gap-{index}",
             colour=_gap_colour(gap),
             bold=gap.verdict is Verdict.FAILS,

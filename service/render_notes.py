@@ -14,6 +14,7 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch, Rectangle
 
+from service.picture_layout import Footprint
 from service.picture_marks import CarrierChange
 from service.render_style import STYLE, Colour
 from service.render_text import TextItem, least_width_footprints
@@ -62,6 +63,7 @@ def dropped_items(changes: Sequence[CarrierChange], anchors: Mapping[str, float]
                 TextItem(
                     anchors[change.demand_id],
                     (
+                        f"{change.demand_id}\ndropped\n(was {modcod})",
                         f"{change.demand_id}\ndropped\n(was {modcod})",
                         f"{change.demand_id}\ndropped (was {modcod})",
                         f"{change.demand_id}\ndropped",
@@ -118,32 +120,41 @@ def draw_earlier_row(
         spans.append((lo, lo, hi, hi))
     drawn = least_width_footprints(ax, spans)
     kinds = {change.demand_id: change.change for change in changes}
-    bottom = STYLE.band_row + STYLE.earlier_gap
     for demand_id, footprint in zip(ids, drawn, strict=True):
-        kind = kinds.get(demand_id)
-        x0, x1 = footprint.band
-        edge, ls, hatch = _earlier_style(kind, now.get(demand_id, (0.0, _UNCHANGED_COLOUR))[1])
-        bar = Rectangle(
-            (x0, bottom), x1 - x0, STYLE.band_row, fill=False, lw=1.2, edgecolor=edge, ls=ls
-        )
-        if hatch is not None:
-            bar.set_hatch(hatch)
-        bar.set_gid(f"{_EARLIER_GIDS.get(kind, 'ghost')}-{demand_id}")
-        ax.add_patch(bar)
-        if kind in (RetuneChange.MOVED, RetuneChange.MOVED_AND_RECONFIGURED):
-            (line,) = ax.plot(
-                [footprint.centre, now[demand_id][0]],
-                [bottom, STYLE.band_row],
-                color=now[demand_id][1],
-                lw=1.2,
-            )
-            line.set_gid(f"shift-{demand_id}")
+        _draw_earlier_bar(ax, demand_id, footprint, kinds.get(demand_id), now)
+    bottom = STYLE.band_row + STYLE.earlier_gap
     for y, word in ((STYLE.band_row / 2, "now"), (bottom + STYLE.band_row / 2, "earlier")):
         ax.text(-0.004, y, word, transform=ax.transAxes, ha="right", va="center", fontsize=8)
     return {d: f.centre for d, f in zip(ids, drawn, strict=True)}
 
 
 _EARLIER_GIDS = {None: "earlier", RetuneChange.DROPPED: "dropped"}
+
+
+def _draw_earlier_bar(
+    ax: Axes,
+    demand_id: str,
+    footprint: Footprint,
+    kind: RetuneChange | None,
+    now: Mapping[str, tuple[float, Colour]],
+) -> None:
+    """One earlier bar, and the line to the new bar when the carrier moved."""
+    bottom = STYLE.band_row + STYLE.earlier_gap
+    x0, x1 = footprint.band
+    edge, ls, hatch = _earlier_style(kind, now.get(demand_id, (0.0, _UNCHANGED_COLOUR))[1])
+    bar = Rectangle(
+        (x0, bottom), x1 - x0, STYLE.band_row, fill=False, lw=1.2, edgecolor=edge, ls=ls
+    )
+    if hatch is not None:
+        bar.set_hatch(hatch)
+    bar.set_gid(f"{_EARLIER_GIDS.get(kind, 'ghost')}-{demand_id}")
+    ax.add_patch(bar)
+    if kind in (RetuneChange.MOVED, RetuneChange.MOVED_AND_RECONFIGURED):
+        centre, colour = now[demand_id]
+        (line,) = ax.plot(
+            [footprint.centre, centre], [bottom, STYLE.band_row], color=colour, lw=1.2
+        )
+        line.set_gid(f"shift-{demand_id}")
 
 
 def _earlier_style(

@@ -42,9 +42,9 @@ class Style:
     gap_label_gap_px: float = 4.0
     max_tiers: int = 3
     gap_max_tiers: int = 2
-    band_row: float = 0.07
+    band_row: float = 0.06
     """Height of the carrier bars at the bottom of the label strip (strip fraction)."""
-    earlier_gap: float = 0.09
+    earlier_gap: float = 0.07
     """Room between this plan's bars and the earlier plan's bars over them (strip fraction)."""
     tier_base: float = 0.05
     """Distance of the first row of labels from their anchor (strip fraction)."""

@@ -27,8 +27,9 @@ __all__ = ["Strip", "TextItem", "draw_bars", "least_width_footprints", "place_te
 
 logger = logging.getLogger(__name__)
 
-Form = Literal[0, 1, 2]
-"""0: horizontal, all lines; 1: upright, details on one line; 2: upright, name only."""
+Form = Literal[0, 1, 2, 3]
+"""0: horizontal; 1: upright, one line per detail; 2: upright, the details on one line;
+3: upright, in brief (the name, and what changed)."""
 
 
 @dataclass(frozen=True)
@@ -36,8 +37,8 @@ class TextItem:
     """One text and the place (axis data units) it belongs to."""
 
     anchor: float
-    forms: tuple[str, str, str]
-    """The text horizontal, upright, and upright in brief (see :data:`Form`)."""
+    forms: tuple[str, str, str, str]
+    """The text in each :data:`Form`."""
     gid: str
     colour: str = "black"
     edge: Colour | str | None = None
@@ -71,16 +72,17 @@ class _Attempt:
 
 def _attempts(strip: Strip) -> Iterator[_Attempt]:
     yield _Attempt(0, strip.font_pt, 0)
-    size = strip.font_pt
-    while size >= STYLE.min_font_pt:
-        yield _Attempt(1, size, 1)
-        size -= STYLE.font_step_pt
+    for form in (1, 2):
+        size = strip.font_pt
+        while size >= STYLE.min_font_pt:
+            yield _Attempt(form, size, 1)
+            size -= STYLE.font_step_pt
     size = strip.brief_font_pt
     while size >= STYLE.min_font_pt:
-        yield _Attempt(2, size, 1)
+        yield _Attempt(3, size, 1)
         size -= STYLE.font_step_pt
     for rows in (2, 3):
-        yield _Attempt(2, STYLE.min_font_pt, rows)
+        yield _Attempt(3, STYLE.min_font_pt, rows)
 
 
 def _new_text(strip: Strip, item: TextItem, attempt: _Attempt) -> Text:
