@@ -73,7 +73,7 @@ from service.cli_report import (
     write_outputs,
 )
 from service.cli_whatif import add_what_if_command
-from service.convert import plan_to_wire, to_problem
+from service.convert import plan_from_wire, plan_to_wire, to_problem
 from service.errors import (
     FieldIssue,
     InvalidInputError,
@@ -157,14 +157,18 @@ def _solve_here(
         raise invalid([FieldIssue(exc.field, exc.message)]) from exc
     parent = None if previous is None else previous.id
     out = plan_to_wire(plan, plan_id=None, created_at=utc_now(), parent_id=parent, request=request)
-    return out, _render_here(plan, problem, formats)
+    return out, _render_here(plan, problem, formats, previous)
 
 
-def _render_here(plan: Any, problem: Any, formats: Sequence[ImageFormat]) -> Pictures:
-    """The pictures asked for (none: no drawing at all)."""
+def _render_here(
+    plan: Any, problem: Any, formats: Sequence[ImageFormat], previous: PlanOut | None = None
+) -> Pictures:
+    """The pictures asked for (none: no drawing at all); a replan's mark what changed since
+    ``previous``."""
     from service.render import render_spectrum
 
-    return {fmt: render_spectrum(plan, problem, fmt) for fmt in formats}
+    parent = None if previous is None or not formats else plan_from_wire(previous)
+    return {fmt: render_spectrum(plan, problem, fmt, parent=parent) for fmt in formats}
 
 
 # ----------------------------------------------------------------------------- commands

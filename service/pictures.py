@@ -43,23 +43,30 @@ logger = logging.getLogger(__name__)
 ImageFormat = Literal["svg", "png"]
 PictureKey = tuple[str, ImageFormat]
 """A plan id and a format."""
-DrawFunction = Callable[[str, str, ImageFormat], bytes]
-"""(plan JSON, its request JSON, format) → image bytes; runs in a worker process, so it must be
-picklable (a module-level function, or a :func:`functools.partial` of one)."""
+DrawFunction = Callable[[str, str, ImageFormat, str | None], bytes]
+"""(plan JSON, its request JSON, format, its parent plan's JSON or None) → image bytes; runs in
+a worker process, so it must be picklable (a module-level function, or a
+:func:`functools.partial` of one)."""
 PRELOAD = ["service.render"]
 """Modules the forkserver imports once for every worker it forks."""
 SHUTDOWN_WAIT_S = 5.0
 
 
-def draw_picture(plan_json: str, request_json: str, fmt: ImageFormat) -> bytes:
-    """Draw a stored plan's spectrum picture (in a worker process)."""
+def draw_picture(
+    plan_json: str, request_json: str, fmt: ImageFormat, parent_json: str | None = None
+) -> bytes:
+    """Draw a stored plan's spectrum picture (in a worker process); with its parent plan, the
+    picture marks what changed since it."""
     from service.convert import plan_from_wire, to_problem
     from service.render import render_spectrum
     from service.schemas import PlanOut, PlanRequest
 
     plan = plan_from_wire(PlanOut.model_validate_json(plan_json))
     problem = to_problem(PlanRequest.model_validate_json(request_json))
-    return render_spectrum(plan, problem, fmt)
+    parent = (
+        None if parent_json is None else plan_from_wire(PlanOut.model_validate_json(parent_json))
+    )
+    return render_spectrum(plan, problem, fmt, parent=parent)
 
 
 class Picture(NamedTuple):
@@ -117,8 +124,16 @@ class Pictures:
             self._metrics.picture_hits.inc()
         return picture
 
-    async def draw(self, key: PictureKey, tag: str, plan_json: str, request_json: str) -> Picture:
-        """Draw (or wait for the drawing of) ``key``'s picture and keep it.
+    async def draw(
+        self,
+        key: PictureKey,
+        tag: str,
+        plan_json: str,
+        request_json: str,
+        parent_json: str | None = None,
+    ) -> Picture:
+        """Draw (or wait for the drawing of) ``key``'s picture and keep it (``parent_json``:
+        the plan it replans, whose changes it marks).
 
         Cancelling the caller leaves the drawing; the last caller to leave stops it.  Raises
         :class:`~service.errors.PicturesBusyError` when no drawing place is free, and whatever
@@ -128,7 +143,7 @@ class Pictures:
         if drawing is None:
             if len(self._drawing) >= self._capacity:
                 raise PicturesBusyError(self._retry_after_s)
-            drawing = self._start(key, tag, plan_json, request_json)
+            drawing = self._start(key, tag, (plan_json, request_json, key[1], parent_json))
         drawing.waiters += 1
         try:
             content = await asyncio.shield(drawing.result)
@@ -150,10 +165,10 @@ class Pictures:
             self._pool.join(timeout=SHUTDOWN_WAIT_S)
             self._pool = None
 
-    def _start(self, key: PictureKey, tag: str, plan_json: str, request_json: str) -> _Drawing:
-        future = self._worker_pool().schedule(
-            self._draw, args=(plan_json, request_json, key[1]), timeout=self._timeout_s
-        )
+    def _start(
+        self, key: PictureKey, tag: str, args: tuple[str, str, ImageFormat, str | None]
+    ) -> _Drawing:
+        future = self._worker_pool().schedule(self._draw, args=args, timeout=self._timeout_s)
         drawing = _Drawing(future, asyncio.wrap_future(future), tag)
         self._drawing[key] = drawing
         drawing.result.add_done_callback(lambda done: self._finished(key, drawing, done))

@@ -1,10 +1,21 @@
 """The spectrum picture of a plan, as SVG or PNG.
 
-The picture shows the licensed block on a frequency axis, the exclusions (hatched, with their
-note), the guard bands (shaded), every carrier's power spectral density in dB relative to the
-reference level, the leakage limits drawn below the in-band level, and one label per carrier
-(demand id, modulation and code rate, throughput).  The footer repeats the cautions of every
-plan's notices (:data:`solver.CAUTIONS`).
+From top to bottom the picture shows: the plan's name, status, throughput and use of the block
+(and, for a replan, what changed since the earlier plan); one label per carrier (demand id,
+MODCOD, throughput, and what changed), tied by a leader line to the carrier's bar, drawn at a
+least width so that a narrow carrier and its guards stay visible; the power spectral density of
+every carrier in dB relative to the reference level, with the licensed block, the exclusions
+(hatched, with their note) and the guard bands (shaded) at their true widths; under every gap
+between carriers, and between a carrier and a block edge or exclusion, the leakage ratio the
+plan achieves there and the least the request permits (:mod:`service.picture_marks`); the
+legend; and the cautions of every plan's notices (:data:`solver.CAUTIONS`).
+
+The leakage limits are ratios (a carrier's power over what it puts into the neighbouring band),
+so they appear as figures beside the gaps, never as levels on the PSD axis, where a carrier's
+skirt may rise above a "limit line" while its integrated leakage meets the limit with room to
+spare.  A replan's picture draws the earlier plan's bars in a row over this plan's: an
+unchanged carrier's in grey, a moved or changed one's dashed in its colour (with a line to where
+it went), a dropped one's dotted and hatched; each label says what changed.
 
 Drawing uses matplotlib's object interface only (:class:`matplotlib.figure.Figure` on an Agg
 canvas): no pyplot, no global figure state.  matplotlib does not promise thread safety, so the
@@ -14,18 +25,17 @@ whole build-and-save step runs under one module lock; a service may call
 Each carrier's shape comes from the solver's normalised emission profile (symbol rate 1): the
 carrier at symbol rate Rs and centre fc is drawn as ``psd_at((f - fc) / Rs)``, scaled so that its
 value at the centre equals the demand's ``relative_level_db`` (the carrier's PSD level relative
-to the others).
+to the others).  Units follow :mod:`service.units`, as the command's table does.
 """
 
 from __future__ import annotations
 
 import io
 import logging
-import math
 import threading
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from typing import Final, Literal
+from typing import Final, Literal, NamedTuple
 
 import matplotlib as mpl
 import numpy as np
@@ -33,13 +43,30 @@ import numpy.typing as npt
 from matplotlib.axes import Axes
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
-from matplotlib.patches import Patch
-from matplotlib.text import Text
 from matplotlib.ticker import ScalarFormatter
 
+from service.picture_marks import (
+    CarrierChange,
+    GapKind,
+    LeakageGap,
+    Verdict,
+    changes_since,
+    leakage_gaps,
+    settings_before,
+)
+from service.render_notes import (
+    change_words,
+    draw_earlier_row,
+    draw_legend,
+    draw_texts,
+    dropped_items,
+)
+from service.render_style import STYLE, Colour, carrier_colour
+from service.render_text import Strip, TextItem, draw_bars, place_texts
+from service.units import format_rate, frequency_unit
 from solver import (
-    CAUTIONS,
     Carrier,
+    CurrentSetting,
     Plan,
     Problem,
     carrier_emission_key,
@@ -48,6 +75,7 @@ from solver import (
 )
 
 __all__ = [
+    "STYLE",
     "DensityFn",
     "ImageFormat",
     "ProfileSource",
@@ -65,61 +93,32 @@ DensityFn = Callable[[FloatArray], FloatArray]
 ProfileSource = Callable[[Carrier, Problem], DensityFn]
 """Gives the normalised PSD for one carrier of a problem."""
 ImageFormat = Literal["svg", "png"]
-Colour = tuple[float, float, float, float]
 
 _LOCK: Final = threading.Lock()
-_MHZ: Final = 1e6
-_KHZ: Final = 1e3
-_MBPS: Final = 1e6
+
+
+class _Axes(NamedTuple):
+    """The label strip (top), the spectrum, and the gap strip with the frequency axis."""
+
+    strip: Axes
+    psd: Axes
+    gaps: Axes
 
 
 @dataclass(frozen=True)
-class _Style:
-    """Sizes and colours of the picture (figure fractions unless a unit is named)."""
+class _Scene:
+    """What one picture draws: the carriers by frequency, with their levels and colours."""
 
-    width_in: float = 13.0
-    height_in: float = 7.2
-    dpi: int = 100
-    left: float = 0.065
-    width: float = 0.915
-    psd_bottom: float = 0.20
-    psd_height: float = 0.45
-    strip_height: float = 0.21
-    view_margin: float = 0.02
-    headroom_db: float = 6.0
-    below_limit_db: float = 25.0
-    floor_db: float = -110.0
-    global_samples: int = 3000
-    carrier_samples: int = 801
-    carrier_view_rs: float = 3.0
-    label_font_pt: float = 8.5
-    max_title_chars: int = 110
-    min_rotated_font_pt: float = 6.0
-    font_step_pt: float = 0.5
-    label_gap_px: float = 6.0
-    max_tiers: int = 3
-    tier_base: float = 0.07
-    guard_colour: str = "#f4c04e"
-    exclusion_colour: str = "#d0d0d0"
-    outside_colour: str = "#9e9e9e"
-    limit_colour: str = "#c62828"
-    edge_limit_colour: str = "#6a1b9a"
-    sum_colour: str = "#37474f"
-    palette: str = "tab10"
-    detailed_carriers: int = 60
-    crowd_samples: int = 20000
-
-
-STYLE: Final = _Style()
-
-
-@dataclass(frozen=True)
-class _Label:
-    """One carrier label: where its carrier is, and where the text goes (display units)."""
-
-    centre: float
-    position: float
-    tier: int
+    plan: Plan
+    problem: Problem
+    carriers: list[Carrier]
+    levels: list[float]
+    colours: list[Colour]
+    before: dict[str, CurrentSetting] | None
+    """Each demand's earlier setting (None: no earlier plan to compare with)."""
+    changes: list[CarrierChange] | None
+    """What changed since (None: no earlier plan to compare with)."""
+    scale_hz: float
 
 
 def emission_profile_source(carrier: Carrier, problem: Problem) -> DensityFn:
@@ -165,13 +164,15 @@ def render_spectrum(
     problem: Problem,
     fmt: ImageFormat,
     *,
+    parent: Plan | None = None,
     profile_source: ProfileSource | None = None,
 ) -> bytes:
     """Draw the plan's spectrum and return the image bytes (SVG text or PNG).
 
-    ``profile_source`` gives each carrier's normalised PSD; by default the solver's emission
-    profiles (:func:`emission_profile_source`).  Raises ``ValueError`` for an unknown format or
-    a block without width.
+    ``parent`` is the plan this one replans (its changes are marked; without it, changes
+    from the request's ``current`` settings are).  ``profile_source`` gives each carrier's
+    normalised PSD; by default the solver's emission profiles (:func:`emission_profile_source`).
+    Raises ``ValueError`` for an unknown format or a block without width.
     """
     if fmt not in ("svg", "png"):
         raise ValueError(f"fmt={fmt!r} must be 'svg' or 'png'")
@@ -182,7 +183,7 @@ def render_spectrum(
             {"svg.fonttype": "none", "svg.hashsalt": "bandwright", "font.family": "DejaVu Sans"}
         ),
     ):
-        figure = build_spectrum_figure(plan, problem, profile_source=profile_source)
+        figure = build_spectrum_figure(plan, problem, parent=parent, profile_source=profile_source)
         metadata = {"Date": None} if fmt == "svg" else {"Software": None}
         figure.savefig(buffer, format=fmt, dpi=STYLE.dpi, metadata=metadata)
     logger.debug("rendered %s for plan %r: %d bytes", fmt, plan.name, buffer.tell())
@@ -190,12 +191,21 @@ def render_spectrum(
 
 
 def build_spectrum_figure(
-    plan: Plan, problem: Problem, *, profile_source: ProfileSource | None = None
+    plan: Plan,
+    problem: Problem,
+    *,
+    parent: Plan | None = None,
+    profile_source: ProfileSource | None = None,
 ) -> Figure:
     """Build the spectrum picture as a matplotlib Figure on an Agg canvas (not yet saved).
 
-    Carrier labels are Text artists with gid ``label-<demand id>``; carrier curves are lines
-    with gid ``carrier-<demand id>``.
+    The axes are labelled ``labels``, ``spectrum`` and ``gaps`` (top to bottom); artists carry
+    gids a reader (or a test) can find: ``label-<id>`` (a carrier's label),
+    ``carrier-<id>`` (its in-band curve), ``band-<id>``, ``guard-below-<id>`` and
+    ``guard-above-<id>`` (its bar and guards), ``gap-<n>`` (the leakage figure of the n-th gap
+    by frequency); for a replan ``earlier-<id>``, ``ghost-<id>`` and ``dropped-<id>`` (the
+    earlier bar of an unchanged, a moved or changed, and a dropped carrier), ``shift-<id>``
+    (the line from a moved carrier's earlier bar to its new one) and ``label-dropped-<id>``.
     """
     block = problem.block
     if not block.stop_hz > block.start_hz:
@@ -203,62 +213,73 @@ def build_spectrum_figure(
             f"block stop_hz={block.stop_hz} must be above start_hz={block.start_hz} to draw it"
         )
     source = emission_profile_source if profile_source is None else profile_source
-    scale_hz, unit = (_MHZ, "MHz") if block.width_hz >= _MHZ else (_KHZ, "kHz")
+    word, scale_hz = frequency_unit(block.width_hz)
     figure = Figure(figsize=(STYLE.width_in, STYLE.height_in), dpi=STYLE.dpi)
     FigureCanvasAgg(figure)
-    psd_ax, strip_ax = _make_axes(figure, problem, scale_hz, unit)
+    axes = _make_axes(figure, problem, scale_hz, word)
     carriers = sorted(plan.carriers, key=lambda c: c.center_hz)
-    levels = _levels_db(carriers, problem)
-    reference_db = max(levels, default=0.0)
-    bottom_db = _draw_limits(psd_ax, problem, reference_db)
-    psd_ax.set_ylim(bottom_db, max(levels, default=0.0) + STYLE.headroom_db)
-    _draw_exclusions(psd_ax, problem, scale_hz)
+    before = settings_before(problem, parent)
+    scene = _Scene(
+        plan,
+        problem,
+        carriers,
+        _levels_db(carriers, problem),
+        [carrier_colour(i) for i in range(len(carriers))],
+        before,
+        None if before is None else changes_since(carriers, before),
+        scale_hz,
+    )
+    top_db = max(scene.levels, default=0.0)
+    axes.psd.set_ylim(_bottom_db(problem, top_db), top_db + STYLE.headroom_db)
+    _draw_exclusions(axes.psd, problem, scale_hz)
+    gaps = leakage_gaps(problem, carriers)
     if len(carriers) > STYLE.detailed_carriers:
-        densities = [source(carrier, problem) for carrier in carriers]
-        _draw_crowd(psd_ax, strip_ax, carriers, levels, densities, scale_hz)
+        _draw_crowd(axes, scene, [source(c, problem) for c in carriers])
+        _draw_gap_summary(axes.gaps, gaps)
     elif carriers:
-        _draw_guards(psd_ax, carriers, scale_hz)
-        densities = [source(carrier, problem) for carrier in carriers]
-        _draw_carriers(psd_ax, carriers, levels, densities, scale_hz)
-        _draw_labels(figure, strip_ax, carriers, scale_hz)
+        _draw_guards(axes.psd, carriers, scale_hz)
+        _draw_carriers(axes.psd, scene, [source(c, problem) for c in carriers])
+        _draw_labels(axes.strip, scene)
+        _draw_gaps(axes.gaps, gaps, scale_hz)
     else:
-        strip_ax.text(
-            0.5,
-            0.3,
-            "No carriers in this plan",
-            transform=strip_ax.transAxes,
-            ha="center",
-            va="center",
-            fontsize=13,
-            color="#555555",
-        )
-    _draw_texts(figure, plan, problem, scale_hz, unit)
-    _draw_legend(figure, psd_ax)
+        _say(axes.strip, "No carriers in this plan")
+    draw_texts(figure, plan, problem, scene.changes, word, scale_hz)
+    draw_legend(figure, axes.psd, scene.changes)
     return figure
 
 
-def _make_axes(figure: Figure, problem: Problem, scale_hz: float, unit: str) -> tuple[Axes, Axes]:
-    """The PSD axes and, directly above it, the label strip (shared frequency axis)."""
+def _make_axes(figure: Figure, problem: Problem, scale_hz: float, word: str) -> _Axes:
+    """The gap strip (bottom, with the frequency axis), the PSD axes over it, and the label
+    strip over that, all sharing one frequency axis."""
     s = STYLE
-    psd_ax = figure.add_axes((s.left, s.psd_bottom, s.width, s.psd_height))
-    strip_ax = figure.add_axes(
-        (s.left, s.psd_bottom + s.psd_height, s.width, s.strip_height), sharex=psd_ax
+    gaps = figure.add_axes((s.left, s.gap_bottom, s.width, s.gap_height))
+    psd_bottom = s.gap_bottom + s.gap_height
+    psd = figure.add_axes((s.left, psd_bottom, s.width, s.psd_height), sharex=gaps)
+    strip = figure.add_axes(
+        (s.left, psd_bottom + s.psd_height, s.width, s.strip_height), sharex=gaps
     )
-    strip_ax.set_ylim(0.0, 1.0)
-    strip_ax.set_axis_off()
+    strip.set_ylim(0.0, 1.0)
+    strip.set_axis_off()
+    gaps.set_ylim(0.0, 1.0)
+    gaps.set_yticks([])
+    for side in ("left", "right", "top"):
+        gaps.spines[side].set_visible(False)
+    psd.tick_params(labelbottom=False)
+    for ax, name in ((gaps, "gaps"), (psd, "spectrum"), (strip, "labels")):
+        ax.set_label(name)
     block = problem.block
     margin_hz = s.view_margin * block.width_hz
     view = (block.start_hz - margin_hz, block.stop_hz + margin_hz)
-    psd_ax.set_xlim(view[0] / scale_hz, view[1] / scale_hz)
+    gaps.set_xlim(view[0] / scale_hz, view[1] / scale_hz)
     for lo, hi in ((view[0], block.start_hz), (block.stop_hz, view[1])):
-        psd_ax.axvspan(lo / scale_hz, hi / scale_hz, color=s.outside_colour, alpha=0.45, lw=0)
+        psd.axvspan(lo / scale_hz, hi / scale_hz, color=s.outside_colour, alpha=0.45, lw=0)
     formatter = ScalarFormatter(useOffset=False)
     formatter.set_scientific(False)
-    psd_ax.xaxis.set_major_formatter(formatter)
-    psd_ax.set_xlabel(f"Frequency ({unit})")
-    psd_ax.set_ylabel("PSD relative to reference level (dB)")
-    psd_ax.grid(alpha=0.3)
-    return psd_ax, strip_ax
+    gaps.xaxis.set_major_formatter(formatter)
+    gaps.set_xlabel(f"Frequency ({word})")
+    psd.set_ylabel("PSD relative to reference level (dB)")
+    psd.grid(alpha=0.3)
+    return _Axes(strip, psd, gaps)
 
 
 def _levels_db(carriers: Sequence[Carrier], problem: Problem) -> list[float]:
@@ -270,27 +291,23 @@ def _levels_db(carriers: Sequence[Carrier], problem: Problem) -> list[float]:
     return [by_id.get(c.demand_id, 0.0) for c in carriers]
 
 
-def _draw_limits(ax: Axes, problem: Problem, reference_db: float) -> float:
-    """Leakage limit lines below the in-band level; returns the bottom of the dB axis."""
-    limit_db = problem.leakage_limit_db
-    edge_db = problem.edge_limit_db
-    ax.axhline(
-        reference_db - limit_db,
-        color=STYLE.limit_colour,
-        ls="--",
-        lw=1.3,
-        label=f"leakage limit: {limit_db:g} dB below in-band level",
+def _bottom_db(problem: Problem, top_db: float) -> float:
+    """The bottom of the dB axis: deep enough to show the skirts down past the limits."""
+    deepest_db = top_db - max(problem.leakage_limit_db, problem.edge_limit_db)
+    return max(deepest_db - STYLE.below_limit_db, STYLE.floor_db)
+
+
+def _say(ax: Axes, message: str) -> None:
+    ax.text(
+        0.5,
+        0.3,
+        message,
+        transform=ax.transAxes,
+        ha="center",
+        va="center",
+        fontsize=13,
+        color="#555555",
     )
-    if not math.isclose(edge_db, limit_db):
-        ax.axhline(
-            reference_db - edge_db,
-            color=STYLE.edge_limit_colour,
-            ls="-.",
-            lw=1.3,
-            label=f"edge/exclusion limit: {edge_db:g} dB below",
-        )
-    deepest_db = reference_db - max(limit_db, edge_db) - STYLE.below_limit_db
-    return max(deepest_db, STYLE.floor_db)
 
 
 def _draw_exclusions(ax: Axes, problem: Problem, scale_hz: float) -> None:
@@ -346,24 +363,17 @@ def _draw_guards(ax: Axes, carriers: Sequence[Carrier], scale_hz: float) -> None
                 )
 
 
-def _draw_carriers(
-    ax: Axes,
-    carriers: Sequence[Carrier],
-    levels: Sequence[float],
-    densities: Sequence[DensityFn],
-    scale_hz: float,
-) -> None:
+def _draw_carriers(ax: Axes, scene: _Scene, densities: Sequence[DensityFn]) -> None:
     """Each carrier's PSD (in-band part filled, skirts thin) and the sum of all carriers."""
+    scale_hz = scene.scale_hz
     lo_hz, hi_hz = (x * scale_hz for x in ax.get_xlim())
-    grids = [_carrier_grid(c, lo_hz, hi_hz) for c in carriers]
+    grids = [_carrier_grid(c, lo_hz, hi_hz) for c in scene.carriers]
     union_hz = np.unique(np.concatenate([np.linspace(lo_hz, hi_hz, STYLE.global_samples), *grids]))
     total = np.zeros_like(union_hz)
     bottom_db = ax.get_ylim()[0]
-    colours = mpl.colormaps[STYLE.palette]
-    for index, (carrier, level, density, grid) in enumerate(
-        zip(carriers, levels, densities, grids, strict=True)
+    for carrier, level, density, grid, colour in zip(
+        scene.carriers, scene.levels, densities, grids, scene.colours, strict=True
     ):
-        colour = colours(index % colours.N)
         curve_db = carrier_psd_db(carrier, level, density, grid)
         band = (grid >= carrier.lower_edge_hz) & (grid <= carrier.upper_edge_hz)
         ax.plot(grid / scale_hz, curve_db, color=colour, lw=0.7, alpha=0.6, zorder=2)
@@ -381,25 +391,19 @@ def _draw_carriers(
     )
 
 
-def _draw_crowd(
-    ax: Axes,
-    strip: Axes,
-    carriers: Sequence[Carrier],
-    levels: Sequence[float],
-    densities: Sequence[DensityFn],
-    scale_hz: float,
-) -> None:
+def _draw_crowd(axes: _Axes, scene: _Scene, densities: Sequence[DensityFn]) -> None:
     """The simplified drawing of a plan with many carriers (seconds, not minutes): the sum of
     all carriers on one grid, each carrier's allocated band and guards as bars, no labels."""
-    lo_hz, hi_hz = (x * scale_hz for x in ax.get_xlim())
+    scale_hz = scene.scale_hz
+    lo_hz, hi_hz = (x * scale_hz for x in axes.psd.get_xlim())
     grid = np.linspace(lo_hz, hi_hz, STYLE.crowd_samples)
     total = np.zeros_like(grid)
-    for carrier, level, density in zip(carriers, levels, densities, strict=True):
+    for carrier, level, density in zip(scene.carriers, scene.levels, densities, strict=True):
         reach = STYLE.carrier_view_rs * carrier.config.symbol_rate_baud
         near = slice(*np.searchsorted(grid, (carrier.center_hz - reach, carrier.center_hz + reach)))
         total[near] += 10 ** (carrier_psd_db(carrier, level, density, grid[near]) / 10)
     floor = 10 ** (STYLE.floor_db / 10)
-    ax.plot(
+    axes.psd.plot(
         grid / scale_hz,
         10 * np.log10(np.maximum(total, floor)),
         color=STYLE.sum_colour,
@@ -407,29 +411,13 @@ def _draw_crowd(
         zorder=4,
         label="sum of all carriers",
     )
-    colours = mpl.colormaps[STYLE.palette]
-    bands = [
-        (c.lower_edge_hz / scale_hz, c.config.allocated_bandwidth_hz / scale_hz) for c in carriers
-    ]
-    strip.broken_barh(
-        bands, (0.05, 0.25), facecolors=[colours(i % colours.N) for i in range(len(carriers))]
-    )
-    guards = [
-        (lo / scale_hz, (hi - lo) / scale_hz)
-        for c in carriers
-        for lo, hi in (
-            (c.lower_edge_hz - c.guard_below_hz, c.lower_edge_hz),
-            (c.upper_edge_hz, c.upper_edge_hz + c.guard_above_hz),
-        )
-        if hi > lo
-    ]
-    strip.broken_barh(guards, (0.05, 0.25), facecolors=STYLE.guard_colour, alpha=0.6)
-    strip.text(
+    draw_bars(axes.strip, _spans(scene), scene.colours, [c.demand_id for c in scene.carriers])
+    axes.strip.text(
         0.5,
         0.6,
-        f"{len(carriers)} carriers: simplified drawing (bands and guards as bars, no labels, "
-        f"above {STYLE.detailed_carriers}); the plan's JSON lists every carrier",
-        transform=strip.transAxes,
+        f"{len(scene.carriers)} carriers: simplified drawing (bands and guards as bars, no "
+        f"labels, above {STYLE.detailed_carriers}); the plan's JSON lists every carrier",
+        transform=axes.strip.transAxes,
         ha="center",
         va="center",
         fontsize=10,
@@ -449,189 +437,114 @@ def _carrier_grid(carrier: Carrier, lo_hz: float, hi_hz: float) -> FloatArray:
     return np.linspace(start, stop, STYLE.carrier_samples)
 
 
-def _label_text(carrier: Carrier, rotated: bool) -> str:
-    """Demand id, modulation and code rate, throughput in Mb/s."""
+def _spans(scene: _Scene) -> list[tuple[float, float, float, float]]:
+    """Each carrier's guards and band (axis units), for its bar."""
+    scale = scene.scale_hz
+    return [
+        (
+            (c.lower_edge_hz - c.guard_below_hz) / scale,
+            c.lower_edge_hz / scale,
+            c.upper_edge_hz / scale,
+            (c.upper_edge_hz + c.guard_above_hz) / scale,
+        )
+        for c in scene.carriers
+    ]
+
+
+def _label_forms(carrier: Carrier, change: CarrierChange | None) -> tuple[str, str, str, str]:
+    """A carrier's label in each form (:data:`service.render_text.Form`): demand id, MODCOD,
+    throughput, and what changed since the earlier plan."""
     config = carrier.config
     modcod = f"{config.modulation.value} {format_code_rate(config.code_rate)}"
-    rate = f"{config.throughput_bps / _MBPS:.3g} Mb/s"
-    if rotated:
-        return f"{carrier.demand_id}\n{modcod} · {rate}"
-    return f"{carrier.demand_id}\n{modcod}\n{rate}"
+    rate = format_rate(config.throughput_bps)
+    full, brief = ("", "") if change is None else change_words(change)
+    stacked = "\n".join(filter(None, (carrier.demand_id, modcod, rate, full)))
+    return (
+        stacked,
+        stacked,
+        carrier.demand_id + "\n" + " · ".join(filter(None, (modcod, rate, full))),
+        "\n".join(filter(None, (carrier.demand_id, brief))),
+    )
 
 
-def _draw_labels(figure: Figure, ax: Axes, carriers: Sequence[Carrier], scale_hz: float) -> None:
-    """Carrier labels in the strip: horizontal in tiers, or rotated and spread when crowded."""
-    renderer = figure.canvas.get_renderer()  # type: ignore[attr-defined]
-    lo, hi = ax.get_xlim()
-    per_px = (hi - lo) / ax.get_window_extent(renderer).width
-    centres = [c.center_hz / scale_hz for c in carriers]
-    gap = STYLE.label_gap_px * per_px
-    colours = mpl.colormaps[STYLE.palette]
-    edges = [colours(index % colours.N) for index in range(len(carriers))]
-    texts = [
-        _new_label(ax, c, e, rotated=False, size=STYLE.label_font_pt)
-        for c, e in zip(carriers, edges, strict=True)
+def _draw_labels(ax: Axes, scene: _Scene) -> None:
+    """Every carrier's bar and label; for a replan, the earlier plan's bars over them and a
+    label where each dropped carrier was."""
+    ids = [c.demand_id for c in scene.carriers]
+    drawn = draw_bars(ax, _spans(scene), scene.colours, ids)
+    changes = {ch.demand_id: ch for ch in scene.changes or ()}
+    items = [
+        TextItem(
+            footprint.centre,
+            _label_forms(carrier, changes.get(carrier.demand_id)),
+            f"label-{carrier.demand_id}",
+            edge=colour,
+            bold=carrier.demand_id in changes,
+        )
+        for carrier, footprint, colour in zip(scene.carriers, drawn, scene.colours, strict=True)
     ]
-    widths = [t.get_window_extent(renderer).width * per_px for t in texts]
-    placed = _tiers(centres, widths, lo, hi, gap, STYLE.max_tiers)
-    rotated = placed is None
-    size = STYLE.label_font_pt
-    while placed is None:
-        for text in texts:
-            text.remove()
-        texts = [
-            _new_label(ax, c, e, rotated=True, size=size)
-            for c, e in zip(carriers, edges, strict=True)
-        ]
-        widths = [t.get_window_extent(renderer).width * per_px for t in texts]
-        placed = _spread_or_tiers(centres, widths, lo, hi, gap, size)
-        size -= STYLE.font_step_pt
-    tier_height = max(t.get_window_extent(renderer).height for t in texts) / (
-        ax.get_window_extent(renderer).height
+    start = STYLE.band_row
+    if scene.before is not None:
+        now = {d: (f.centre, c) for d, f, c in zip(ids, drawn, scene.colours, strict=True)}
+        earlier = draw_earlier_row(ax, scene.before, scene.changes or [], now, scene.scale_hz)
+        items += dropped_items(scene.changes or (), earlier)
+        start += STYLE.earlier_gap + STYLE.band_row
+    strip = Strip(
+        ax,
+        upward=True,
+        start=start,
+        max_tiers=STYLE.max_tiers,
+        gap_px=STYLE.label_gap_px,
+        font_pt=STYLE.label_font_pt,
+        brief_font_pt=STYLE.id_font_pt,
     )
-    for text, label in zip(texts, placed, strict=True):
-        y = STYLE.tier_base + label.tier * (tier_height + STYLE.tier_base / 2)
-        text.set_position((label.position, y))
-        ax.plot([label.centre, label.position], [0.0, y], color="#777777", lw=0.7)
-    logger.debug("labels: %d carriers, rotated=%s", len(carriers), rotated)
+    place_texts(strip, sorted(items, key=lambda item: item.anchor))
 
 
-def _new_label(ax: Axes, carrier: Carrier, edge: Colour, *, rotated: bool, size: float) -> Text:
-    text = ax.text(
-        carrier.center_hz,
-        0.0,
-        _label_text(carrier, rotated),
-        fontsize=size,
-        ha="center",
-        va="bottom",
-        rotation=90 if rotated else 0,
-        linespacing=1.15,
-        bbox={"boxstyle": "round,pad=0.25", "facecolor": "white", "edgecolor": edge, "lw": 1.2},
-    )
-    text.set_gid(f"label-{carrier.demand_id}")
-    return text
+def _gap_colour(gap: LeakageGap) -> str:
+    if gap.verdict is Verdict.FAILS:
+        return STYLE.fail_colour
+    return STYLE.edge_gap_colour if gap.kind is GapKind.EDGE else STYLE.gap_colour
 
 
-def _spread_or_tiers(
-    centres: Sequence[float], widths: Sequence[float], lo: float, hi: float, gap: float, size: float
-) -> list[_Label] | None:
-    """Rotated labels: one spread row; at the smallest font, two alternating spread rows."""
-    row = _spread(centres, widths, lo, hi, gap)
-    if row is not None:
-        return [_Label(c, p, 0) for c, p in zip(centres, row, strict=True)]
-    if size - STYLE.font_step_pt >= STYLE.min_rotated_font_pt:
-        return None
-    labels: list[_Label] = []
-    for tier in (0, 1):
-        picked = range(tier, len(centres), 2)
-        row = _spread([centres[i] for i in picked], [widths[i] for i in picked], lo, hi, gap)
-        positions = row if row is not None else [centres[i] for i in picked]
-        labels += [_Label(centres[i], p, tier) for i, p in zip(picked, positions, strict=True)]
-    if row is None:
-        logger.warning("%d carrier labels do not fit; some overlap", len(centres))
-    return sorted(labels, key=lambda label: label.centre)
-
-
-def _tiers(
-    centres: Sequence[float],
-    widths: Sequence[float],
-    lo: float,
-    hi: float,
-    gap: float,
-    max_tiers: int,
-) -> list[_Label] | None:
-    """Greedy stacking of labels over their carriers; ``None`` if more tiers would be needed."""
-    right_edges: list[float] = []
-    labels: list[_Label] = []
-    for centre, width in zip(centres, widths, strict=True):
-        position = min(max(centre, lo + width / 2), hi - width / 2)
-        free = [t for t, edge in enumerate(right_edges) if position - width / 2 >= edge + gap]
-        if free:
-            tier = free[0]
-        elif len(right_edges) < max_tiers:
-            tier = len(right_edges)
-            right_edges.append(-math.inf)
-        else:
-            return None
-        right_edges[tier] = position + width / 2
-        labels.append(_Label(centre, position, tier))
-    return labels
-
-
-def _spread(
-    centres: Sequence[float], widths: Sequence[float], lo: float, hi: float, gap: float
-) -> list[float] | None:
-    """Positions near ``centres`` (ascending) so that intervals of ``widths`` do not overlap.
-
-    A forward pass pushes labels right, a backward pass pulls them back inside ``hi``; returns
-    ``None`` when the labels cannot fit between ``lo`` and ``hi``.
-    """
-    positions: list[float] = []
-    for index, (centre, width) in enumerate(zip(centres, widths, strict=True)):
-        least = lo + width / 2
-        if index:
-            least = max(least, positions[-1] + (widths[index - 1] + width) / 2 + gap)
-        positions.append(max(centre, least))
-    for index in range(len(positions) - 1, -1, -1):
-        most = hi - widths[index] / 2
-        if index < len(positions) - 1:
-            most = min(most, positions[index + 1] - (widths[index + 1] + widths[index]) / 2 - gap)
-        positions[index] = min(positions[index], most)
-    if positions and positions[0] - widths[0] / 2 < lo - gap / 2:
-        return None
-    return positions
-
-
-def _draw_texts(figure: Figure, plan: Plan, problem: Problem, scale_hz: float, unit: str) -> None:
-    """Title (name), headline (status, throughput, efficiency), block and usage line, footer."""
-    summary = plan.summary
-    efficiency = summary.efficiency_vs_bound
-    bound = f"{efficiency:.0%} of the physical bound" if math.isfinite(efficiency) else "no bound"
-    name = (
-        plan.name
-        if len(plan.name) <= STYLE.max_title_chars
-        else plan.name[: STYLE.max_title_chars - 1] + "…"
-    )
-    figure.text(STYLE.left, 0.967, name, fontsize=14, fontweight="bold", va="center")
-    headline = (
-        f"Status: {plan.status.value}   ·   "
-        f"{summary.total_throughput_bps / _MBPS:.4g} Mb/s total   ·   {bound}   ·   "
-        f"{len(plan.carriers)} carriers"
-    )
-    figure.text(STYLE.left, 0.93, headline, fontsize=11.5, va="center")
-    block = problem.block
-    parts = [
-        f"Block {block.start_hz / scale_hz:.6g}–{block.stop_hz / scale_hz:.6g} {unit}",
-        f"used {summary.used_bandwidth_hz / scale_hz:.4g} {unit}",
-        f"largest free segment {summary.largest_free_segment_hz / scale_hz:.4g} {unit}",
+def _draw_gaps(ax: Axes, gaps: Sequence[LeakageGap], scale_hz: float) -> None:
+    """Under every gap, the leakage ratio achieved there and the least permitted (dB)."""
+    texts = [gap.text() for gap in gaps]
+    items = [
+        TextItem(
+            gap.centre_hz / scale_hz,
+            (text, text, text, text),
+            f"gap-{index}",
+            colour=_gap_colour(gap),
+            bold=gap.verdict is Verdict.FAILS,
+        )
+        for index, (gap, text) in enumerate(zip(gaps, texts, strict=True))
     ]
-    if plan.unserved:
-        names = ", ".join(f"{u.demand_id} ({u.reason.value})" for u in plan.unserved[:4])
-        more = f" and {len(plan.unserved) - 4} more" if len(plan.unserved) > 4 else ""
-        parts.append(f"unserved: {names}{more}")
-    figure.text(STYLE.left, 0.897, "   ·   ".join(parts), fontsize=9.5, va="center")
-    figure.text(
-        STYLE.left,
-        0.012,
-        "\n".join(CAUTIONS),
-        fontsize=8.5,
-        style="italic",
-        color="#444444",
-        linespacing=1.3,
+    strip = Strip(
+        ax,
+        upward=False,
+        start=1.0,
+        max_tiers=STYLE.gap_max_tiers,
+        gap_px=STYLE.gap_label_gap_px,
+        font_pt=STYLE.gap_font_pt,
+        brief_font_pt=STYLE.gap_font_pt,
     )
+    place_texts(strip, items)
 
 
-def _draw_legend(figure: Figure, ax: Axes) -> None:
-    """One legend row between the frequency axis and the footer."""
-    handles, labels = ax.get_legend_handles_labels()
-    handles.append(Patch(facecolor=STYLE.outside_colour, alpha=0.45, label="outside the block"))
-    labels.append("outside the block")
-    figure.legend(
-        handles,
-        labels,
-        loc="lower center",
-        bbox_to_anchor=(0.5, 0.06),
-        ncol=len(labels),
-        fontsize=8.5,
-        frameon=False,
-    )
+def _draw_gap_summary(ax: Axes, gaps: Sequence[LeakageGap]) -> None:
+    """For the simplified drawing: one line on the gaps' leakage instead of one per gap."""
+    failing = [g for g in gaps if g.verdict is Verdict.FAILS]
+    known = [g for g in gaps if g.verdict is not Verdict.UNKNOWN]
+    if not known:
+        text = f"{len(gaps)} gaps; no verified leakage ratios in this plan"
+    else:
+        worst = min(known, key=lambda g: g.achieved_db - g.limit_db)
+        what = "below their least" if failing else "at or above their least"
+        count = len(failing) if failing else len(known)
+        text = (
+            f"leakage ratio: {count} of {len(gaps)} gaps {what} permitted; tightest "
+            f"{worst.text()} ({' / '.join(worst.leakers)})"
+        )
+    colour = STYLE.fail_colour if failing else STYLE.gap_colour
+    ax.text(0.5, 0.5, text, transform=ax.transAxes, ha="center", va="center", color=colour)

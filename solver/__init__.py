@@ -43,12 +43,13 @@ from solver.planner import solve
 from solver.rules import rule_of_thumb_plan
 from solver.summary import CAUTIONS, SettingChange, setting_change
 from solver.validation import validate_problem
-from solver.verify import Verification, Violation, verify_plan
+from solver.verify import LEAKAGE_TOLERANCE_DB, Verification, Violation, verify_plan
 from solver.worksize import ConfigurationBound, configuration_bound
 
 __all__ = [
     "CAUTIONS",
     "DEFAULT_SET",
+    "LEAKAGE_TOLERANCE_DB",
     "MODCOD_SET_NAMES",
     "Amplifier",
     "AmplifierModel",

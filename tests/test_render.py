@@ -11,21 +11,39 @@ from __future__ import annotations
 import io
 import itertools
 import threading
-import xml.etree.ElementTree as ET
 from collections.abc import Sequence
-from fractions import Fraction
 
 import numpy as np
 import pytest
 from commpy.filters import rrcosfilter
 from hypothesis import assume, given, settings
 from hypothesis import strategies as st
-from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
+from matplotlib.patches import Rectangle
 from matplotlib.text import Text
 from PIL import Image
+from render_support import (
+    BLOCK_START_HZ,
+    BLOCK_STOP_HZ,
+    EXCLUSION,
+    LINEAR_SPAN_SYMBOLS,
+    PNG_MAGIC,
+    axes_named,
+    default_block,
+    label_boxes,
+    make_carrier,
+    make_plan,
+    make_problem,
+    overlapping,
+    svg_texts,
+    texts_by_gid,
+    tile,
+    try_tile,
+    verified,
+)
 
+from service.picture_layout import Footprint, footprints
 from service.render import (
     STYLE,
     build_spectrum_figure,
@@ -33,146 +51,17 @@ from service.render import (
     emission_profile_source,
     render_spectrum,
 )
-from solver import CAUTIONS
+from solver import CAUTIONS, verify_plan
 from solver.model import (
     Block,
     Carrier,
-    CarrierConfig,
-    Demand,
     Exclusion,
-    Modulation,
     Plan,
-    PlanSummary,
     Problem,
-    SolveStats,
-    SolveStatus,
     Transmitter,
     Unserved,
     UnservedReason,
 )
-
-BLOCK_START_HZ = 7_125e6
-BLOCK_STOP_HZ = 7_145e6
-EXCLUSION = Exclusion(7_133.0e6, 7_134.5e6, "Neighbour link, keep clear")
-SVG_NS = "{http://www.w3.org/2000/svg}"
-PNG_MAGIC = b"\x89PNG\r\n\x1a\n"  # PNG signature: ISO/IEC 15948:2004 §5.2 (W3C PNG spec)
-GUARD_FRACTION = 0.12  # invented test data: guard as a fraction of the allocated width
-LINEAR_SPAN_SYMBOLS = 32  # long filter: truncation effects well below the tolerances used
-
-
-def make_carrier(
-    demand_id: str,
-    center_hz: float,
-    symbol_rate_baud: float,
-    rolloff: float = 0.2,
-    modulation: Modulation = Modulation.QPSK,
-) -> Carrier:
-    """A placed carrier with invented but self-consistent figures."""
-    allocated_hz = symbol_rate_baud * (1 + rolloff)
-    guard_hz = GUARD_FRACTION * allocated_hz
-    config = CarrierConfig(
-        demand_id=demand_id,
-        modulation=modulation,
-        code_rate=Fraction(3, 4),
-        rolloff=rolloff,
-        symbol_rate_baud=symbol_rate_baud,
-        bits_per_symbol=2,
-        allocated_bandwidth_hz=allocated_hz,
-        occupied_bandwidth_hz=0.95 * allocated_hz,
-        guard_hz=guard_hz,
-        edge_guard_hz=guard_hz,
-        throughput_bps=symbol_rate_baud * 2 * 0.75 * 0.98,
-        esn0_db=12.0,
-        required_esn0_db=7.0,
-    )
-    return Carrier(config, center_hz, guard_hz, guard_hz)
-
-
-def try_tile(rates_baud: Sequence[float], block: Block, prefix: str) -> list[Carrier] | None:
-    """Carriers packed from the block start, hopping over exclusions, each with its guard;
-    ``None`` when they do not fit the block."""
-    carriers: list[Carrier] = []
-    cursor_hz = block.start_hz
-    for index, rate in enumerate(rates_baud):
-        allocated_hz = rate * 1.2
-        guard_hz = GUARD_FRACTION * allocated_hz
-        low_hz = cursor_hz + guard_hz
-        for exclusion in block.exclusions:
-            top_hz = low_hz + allocated_hz + guard_hz
-            if low_hz < exclusion.stop_hz + guard_hz and top_hz > exclusion.start_hz:
-                low_hz = exclusion.stop_hz + guard_hz
-        carriers.append(make_carrier(f"{prefix}-{index}", low_hz + allocated_hz / 2, rate))
-        cursor_hz = low_hz + allocated_hz + guard_hz
-    return carriers if cursor_hz <= block.stop_hz else None
-
-
-def tile(rates_baud: Sequence[float], block: Block, prefix: str = "link") -> list[Carrier]:
-    carriers = try_tile(rates_baud, block, prefix)
-    if carriers is None:
-        raise ValueError(f"test data {rates_baud} does not fit the block")
-    return carriers
-
-
-def make_plan(carriers: Sequence[Carrier], unserved: Sequence[Unserved] = ()) -> Plan:
-    total_bps = sum(c.config.throughput_bps for c in carriers)
-    used_hz = sum(c.config.allocated_bandwidth_hz for c in carriers)
-    summary = PlanSummary(used_hz, 2e7 - used_hz, 1e6, total_bps, 1.5, 9e7, 0.61, 0)
-    stats = SolveStats(SolveStatus.OPTIMAL, total_bps, total_bps, 0.0, 0.4, 2, 1, "test")
-    return Plan(
-        "east-grid-test", SolveStatus.OPTIMAL, tuple(carriers), tuple(unserved), summary, stats, ()
-    )
-
-
-def make_problem(
-    carriers: Sequence[Carrier],
-    block: Block,
-    levels_db: Sequence[float] | None = None,
-    leakage_limit_db: float = 30.0,
-) -> Problem:
-    levels = [0.0] * len(carriers) if levels_db is None else list(levels_db)
-    demands = tuple(
-        Demand(c.demand_id, 1e3, 1e6, esn0_db=15.0, relative_level_db=level)
-        for c, level in zip(carriers, levels, strict=True)
-    )
-    transmitter = Transmitter(filter_span_symbols=12)
-    return Problem(block, demands, leakage_limit_db=leakage_limit_db, transmitter=transmitter)
-
-
-def default_block(edge_limit_db: float | None = 40.0) -> Block:
-    return Block(BLOCK_START_HZ, BLOCK_STOP_HZ, 5e3, (EXCLUSION,), edge_limit_db)
-
-
-def svg_texts(svg: bytes) -> list[str]:
-    root = ET.fromstring(svg)  # raises ParseError on malformed XML
-    assert root.tag == f"{SVG_NS}svg"
-    return ["".join(node.itertext()) for node in root.iter(f"{SVG_NS}text")]
-
-
-def label_boxes(figure: Figure) -> dict[str, tuple[float, float, float, float]]:
-    canvas = figure.canvas
-    assert isinstance(canvas, FigureCanvasAgg)
-    renderer = canvas.get_renderer()  # type: ignore[no-untyped-call]
-    boxes = {}
-    for text in figure.findobj(Text):
-        gid = text.get_gid()
-        if gid and gid.startswith("label-"):
-            box = text.get_window_extent(renderer)
-            boxes[gid.removeprefix("label-")] = (box.x0, box.y0, box.x1, box.y1)
-    return boxes
-
-
-def overlapping(boxes: dict[str, tuple[float, float, float, float]]) -> list[tuple[str, str]]:
-    tolerance_px = 0.5  # anti-aliasing slack; a real overlap is several pixels
-    pairs = []
-    for (a, (ax0, ay0, ax1, ay1)), (b, (bx0, by0, bx1, by1)) in itertools.combinations(
-        boxes.items(), 2
-    ):
-        x_overlap = min(ax1, bx1) - max(ax0, bx0)
-        y_overlap = min(ay1, by1) - max(ay0, by0)
-        if x_overlap > tolerance_px and y_overlap > tolerance_px:
-            pairs.append((a, b))
-    return pairs
-
 
 TEN_RATES_BAUD = [32e3, 1.2e6, 2.5e6, 64e3, 2.5e6, 500e3, 32e3, 2e6, 250e3, 1e6]
 
@@ -183,7 +72,8 @@ def ten() -> tuple[Plan, Problem]:
     carriers = tile(TEN_RATES_BAUD, block)
     levels = [0.0, -3.0] * 5
     unserved = [Unserved("late-link", UnservedReason.NO_SPECTRUM, "no room")]
-    return make_plan(carriers, unserved), make_problem(carriers, block, levels)
+    problem = make_problem(carriers, block, levels)
+    return make_plan(verified(carriers, problem), unserved), problem
 
 
 # --- the drawn carrier shape against published raised-cosine facts -------------------------
@@ -245,24 +135,6 @@ def test_drawn_shape_matches_commpy_rrc(rolloff: float) -> None:
     assert np.max(np.abs(drawn_db[upper] - reference_db[upper])) < 0.1
 
 
-def test_limit_lines_sit_below_the_in_band_level() -> None:
-    # A leakage (ACLR-type) limit is a ratio to the carrier's own power (3GPP TS 36.104 §6.6.2,
-    # check-values.md §4), so it is drawn that many dB below the in-band level (common
-    # practice on spectrum plots).  Reference level = highest carrier level, here +3 dB.
-    block = default_block(edge_limit_db=45.0)
-    carriers = tile([1e6, 2e6], block)
-    problem = make_problem(carriers, block, levels_db=[3.0, -2.0], leakage_limit_db=33.0)
-    figure = build_spectrum_figure(make_plan(carriers), problem)
-    limit_lines = {
-        str(line.get_label()).split(":")[0]: line.get_ydata()
-        for line in figure.axes[0].get_lines()
-        if "limit" in str(line.get_label())
-    }
-    assert set(limit_lines) == {"leakage limit", "edge/exclusion limit"}
-    assert np.allclose(np.asarray(limit_lines["leakage limit"], dtype=float), 3.0 - 33.0)
-    assert np.allclose(np.asarray(limit_lines["edge/exclusion limit"], dtype=float), 3.0 - 45.0)
-
-
 # --- image formats ----------------------------------------------------------------------------
 
 
@@ -279,9 +151,9 @@ def test_svg_is_valid_and_names_every_carrier(ten: tuple[Plan, Problem]) -> None
     for caution in CAUTIONS:  # the footer says what every plan's notices say
         assert caution in texts
     assert "Frequency (MHz)" in joined
-    # the title names total throughput (Mb/s) and the efficiency against the bound
+    # the title names total throughput (Mbit/s, the command's word) and the efficiency
     total_mbps = plan.summary.total_throughput_bps / 1e6
-    assert f"{total_mbps:.4g} Mb/s total" in joined
+    assert f"{total_mbps:.4g} Mbit/s total" in joined
     assert "61% of the physical bound" in joined
 
 
@@ -310,7 +182,7 @@ def test_empty_plan_renders_both_formats() -> None:
     png = render_spectrum(plan, problem, "png")
     assert png.startswith(PNG_MAGIC)
     with Image.open(io.BytesIO(png)) as image:
-        assert image.size == (1300, 720)
+        assert image.size == (1300, 800)  # 13 x 8 inches at 100 dpi
 
 
 def test_crowded_plan_of_thirty_carriers() -> None:
@@ -332,8 +204,8 @@ def test_narrow_block_uses_khz() -> None:
     carriers = tile([9.6e3, 19.2e3, 4.8e3], block, prefix="tlm")
     plan, problem = make_plan(carriers), make_problem(carriers, block)
     figure = build_spectrum_figure(plan, problem)
-    assert figure.axes[0].get_xlabel() == "Frequency (kHz)"
-    left, right = figure.axes[0].get_xlim()
+    assert axes_named(figure, "gaps").get_xlabel() == "Frequency (kHz)"
+    left, right = axes_named(figure, "spectrum").get_xlim()
     assert left < 450_000.0 < 450_200.0 < right
 
 
@@ -397,7 +269,7 @@ def test_property_every_carrier_labelled_without_overlap(rates: list[float]) -> 
     assert overlapping(boxes) == []
     drawn = {
         str(line.get_gid()).removeprefix("carrier-")
-        for line in figure.axes[0].get_lines()
+        for line in axes_named(figure, "spectrum").get_lines()
         if isinstance(line, Line2D) and str(line.get_gid()).startswith("carrier-")
     }
     assert drawn == {c.demand_id for c in carriers}
@@ -416,3 +288,177 @@ def test_a_plan_of_hundreds_of_carriers_gets_the_simplified_drawing() -> None:
     svg = render_spectrum(plan, problem, "svg")
     assert any("simplified drawing" in t for t in svg_texts(svg))
     assert len(svg) < 2_000_000
+
+
+# --- leakage: figures beside the gaps, not lines on the PSD axis -----------------------------
+
+GAP_RATES_BAUD = [1e6, 2e6, 500e3, 1e6, 250e3, 2e6, 1e6]
+
+
+def expected_gap_texts(carriers: Sequence[Carrier], problem: Problem) -> list[str]:
+    """What the picture must write under each gap, worked out here from the verified carriers:
+    the block edges and the exclusion (which lies between two of the tiled carriers) are held
+    to the edge limit, every other pair of neighbours to the leakage limit, and a pair shows
+    the worse (smaller) of its two carriers' ratios."""
+    edge, limit = problem.edge_limit_db, problem.leakage_limit_db
+    ordered = sorted(carriers, key=lambda c: c.center_hz)
+    texts = [f"{ordered[0].leakage_ratio_below_db:.1f} ≥ {edge:g} dB"]
+    for a, b in itertools.pairwise(ordered):
+        if a.upper_edge_hz <= EXCLUSION.start_hz and b.lower_edge_hz >= EXCLUSION.stop_hz:
+            texts += [
+                f"{a.leakage_ratio_above_db:.1f} ≥ {edge:g} dB",
+                f"{b.leakage_ratio_below_db:.1f} ≥ {edge:g} dB",
+            ]
+        else:
+            worse = min(a.leakage_ratio_above_db, b.leakage_ratio_below_db)
+            texts.append(f"{worse:.1f} ≥ {limit:g} dB")
+    return [*texts, f"{ordered[-1].leakage_ratio_above_db:.1f} ≥ {edge:g} dB"]
+
+
+def test_every_gap_shows_the_verifiers_ratio_beside_the_least_permitted() -> None:
+    # A leakage limit is a ratio of powers (ACLR-type, 3GPP TS 36.104 §6.6.2), so the picture
+    # writes it under each gap with the ratio the verifier measured there; a plan the
+    # verifier passes shows "≥" everywhere and nothing red.
+    block = default_block(edge_limit_db=40.0)
+    carriers = tile(GAP_RATES_BAUD, block)
+    problem = make_problem(carriers, block, leakage_limit_db=30.0)
+    checked = verified(carriers, problem)
+    figure = build_spectrum_figure(make_plan(checked), problem)
+    gaps = texts_by_gid(figure, "gap-")
+    drawn = [gaps[f"gap-{i}"] for i in range(len(gaps))]
+    assert drawn == expected_gap_texts(checked, problem)
+    assert len(drawn) == len(checked) + 2  # one pair split by the exclusion: 2 more edges
+    for text in drawn:  # achieved ≥ permitted, as the verifier said
+        achieved, sign, permitted, _ = text.split()
+        assert sign == "≥" and float(achieved) >= float(permitted)
+    colours = {t.get_color() for t in figure.findobj(Text) if str(t.get_gid()).startswith("gap")}
+    assert STYLE.fail_colour not in colours
+    spectrum = axes_named(figure, "spectrum")
+    flat = [line for line in spectrum.get_lines() if np.ptp(line.get_ydata()) == 0]
+    assert flat == []  # no level line drawn as if it were the limit
+    svg = svg_texts(render_spectrum(make_plan(checked), problem, "svg"))
+    assert all(text in svg for text in drawn)
+
+
+def test_a_gap_figure_agrees_with_aclr_from_commpy_taps() -> None:
+    # Independent check of the figure shown: the adjacent-channel leakage ratio (own nominal
+    # band over an adjacent band of the same width, 3GPP TS 38.104 §6.6.3) of a 12-symbol RRC
+    # carrier, α = 0.2, 0.1 Rs beyond its edge, integrated from |FFT|² of scikit-commpy's
+    # rrcosfilter taps: 48.99 dB.  Tolerance 0.5 dB: the two truncate the filter one tap apart
+    # (measured difference 0.20 dB at this gap).
+    rate_baud, rolloff, gap_rs, sps = 1e6, 0.2, 0.1, 32
+    _, taps = rrcosfilter(12 * sps, rolloff, 1.0, sps)
+    n_fft = 1 << 18
+    psd = np.fft.fftshift(np.abs(np.fft.fft(taps, n_fft)) ** 2)
+    f_rs = np.fft.fftshift(np.fft.fftfreq(n_fft, 1.0 / sps))
+    width = 1 + rolloff
+    own = psd[np.abs(f_rs) <= width / 2].sum()
+    adjacent = psd[(f_rs >= width / 2 + gap_rs) & (f_rs <= width / 2 + gap_rs + width)].sum()
+    reference_db = 10 * np.log10(own / adjacent)
+    low_centre = 7_134.0e6
+    high_centre = low_centre + width * rate_baud + gap_rs * rate_baud
+    pair = [
+        make_carrier("low", low_centre, rate_baud),
+        make_carrier("high", high_centre, rate_baud),
+    ]
+    block = Block(BLOCK_START_HZ, BLOCK_STOP_HZ, 5e3, (), 40.0)
+    problem = make_problem(pair, block)
+    figure = build_spectrum_figure(make_plan(verified(pair, problem)), problem)
+    between = texts_by_gid(figure, "gap-")["gap-1"]  # gap-0: lower block edge
+    assert between.endswith("≥ 30 dB")
+    assert float(between.split()[0]) == pytest.approx(reference_db, abs=0.5)
+
+
+def test_a_failing_gap_is_shown_failing() -> None:
+    # Two carriers edge to edge under a 60 dB limit: the verifier rejects the plan, and the
+    # picture must say so under that gap (a "<", in the failure colour), not hide it.
+    block = Block(BLOCK_START_HZ, BLOCK_STOP_HZ, 5e3, (), 40.0)
+    pair = [make_carrier("low", 7_134e6, 1e6), make_carrier("high", 7_134e6 + 1.2e6, 1e6)]
+    problem = make_problem(pair, block, leakage_limit_db=60.0)
+    check = verify_plan(problem, pair)
+    assert not check.passed
+    figure = build_spectrum_figure(make_plan(check.carriers), problem)
+    (text,) = [t for t in figure.findobj(Text) if t.get_gid() == "gap-1"]
+    assert " < 60 dB" in text.get_text()
+    assert text.get_color() == STYLE.fail_colour
+
+
+# --- fifty carriers, each named -----------------------------------------------------------
+
+FIFTY_BLOCK = Block(7_100e6, 7_150e6, 5e3, (Exclusion(7_130e6, 7_131e6, "radar"),), 40.0)
+
+
+def test_fifty_carriers_are_each_named_in_the_svg_without_overlap() -> None:
+    # Colours repeat after twenty; the names must not.  Every demand id is an SVG text of its
+    # own (the first line of its label), no two labels overlap, and every label stays inside
+    # the picture.
+    carriers = tile([30e3, 150e3, 400e3, 1e6, 1.5e6] * 10, FIFTY_BLOCK, prefix="site")
+    assert len(carriers) == 50
+    problem = make_problem(carriers, FIFTY_BLOCK)
+    plan = make_plan(carriers)
+    texts = svg_texts(render_spectrum(plan, problem, "svg"))
+    missing = [c.demand_id for c in carriers if c.demand_id not in texts]
+    assert missing == []
+    figure = build_spectrum_figure(plan, problem)
+    boxes = label_boxes(figure)
+    assert set(boxes) == {c.demand_id for c in carriers}
+    assert overlapping(boxes) == []
+    height_px = STYLE.height_in * STYLE.dpi
+    assert all(y0 >= 0 and y1 <= height_px for _, y0, _, y1 in boxes.values())
+
+
+# --- narrow carriers keep a visible bar and guards -------------------------------------------
+
+
+VISIBLE_BAND_PX = 3.0  # what "visible" means here: a bar and guards a reader can see
+VISIBLE_GUARD_PX = 1.5
+
+
+def patch_px(figure: Figure, gid: str) -> tuple[float, float]:
+    """Left and right edge (pixels) of the patch with ``gid``."""
+    (patch,) = [p for p in figure.findobj(Rectangle) if p.get_gid() == gid]
+    box = patch.get_window_extent()
+    return box.x0, box.x1
+
+
+def test_a_narrow_carrier_gets_a_least_width_with_its_guards_beside_it() -> None:
+    # 40 kbaud × 1.2 = 48 kHz allocated and 5.8 kHz guards in a 50 MHz block: about 1.1 px
+    # and 0.13 px at true scale (1 px ≈ 43 kHz here), so the bar and guards take their least
+    # widths; the 8 MHz carrier keeps its true width and place.
+    narrow = make_carrier("telemetry", 7_115e6, 40e3)
+    wide = make_carrier("backhaul", 7_140e6, 8e6 / 1.2)
+    carriers = [narrow, wide]
+    problem = make_problem(carriers, FIFTY_BLOCK)
+    figure = build_spectrum_figure(make_plan(carriers), problem)
+    below, band, above = (
+        patch_px(figure, f"{part}-telemetry") for part in ("guard-below", "band", "guard-above")
+    )
+    assert band[1] - band[0] >= VISIBLE_BAND_PX
+    assert below[1] - below[0] >= VISIBLE_GUARD_PX
+    assert above[1] - above[0] >= VISIBLE_GUARD_PX
+    assert below[1] == pytest.approx(band[0]) and band[1] == pytest.approx(above[0])
+    strip = axes_named(figure, "labels")
+    centre_px = strip.transData.transform((narrow.center_hz / 1e6, 0))[0]
+    assert (band[0] + band[1]) / 2 == pytest.approx(centre_px, abs=0.5)  # where it is
+    wide_band = patch_px(figure, "band-backhaul")
+    true_px = [
+        strip.transData.transform((f / 1e6, 0))[0] for f in (wide.lower_edge_hz, wide.upper_edge_hz)
+    ]
+    assert wide_band == pytest.approx(tuple(true_px), abs=0.5)
+    svg = render_spectrum(make_plan(carriers), problem, "svg").decode()
+    for part in ("guard-below", "band", "guard-above"):
+        assert f'id="{part}-telemetry"' in svg
+
+
+def test_footprints_by_hand() -> None:
+    # Worked by hand: a band 1 wide (1…2) with guards of 1 each side, least widths band 4 and
+    # guard 2: the band grows to 4 about its centre 1.5 → (−0.5, 3.5), guards (−2.5, −0.5) and
+    # (3.5, 5.5).  A guard of zero stays zero.
+    (one,) = footprints([(0.0, 1.0, 2.0, 3.0)], 4.0, 2.0, -100.0, 100.0)
+    assert one == Footprint((-2.5, -0.5), (-0.5, 3.5), (3.5, 5.5))
+    (bare,) = footprints([(10.0, 10.0, 11.0, 11.0)], 4.0, 2.0, -100.0, 100.0)
+    assert bare == Footprint((8.5, 8.5), (8.5, 12.5), (12.5, 12.5))
+    # Two touching narrow spans (0…1, 1…2, no guards): widened to 4 each, the second is
+    # pushed right so that they touch again: (−1.5, 2.5) and (2.5, 6.5).
+    first, second = footprints([(0, 0, 1, 1), (1, 1, 2, 2)], 4.0, 2.0, -100.0, 100.0)
+    assert first.band == (-1.5, 2.5) and second.band == (2.5, 6.5)

@@ -215,7 +215,7 @@ def get_plan(
     return not_modified(request, tag) or immutable(body, "application/json", tag)
 
 
-RENDERING = b"spectrum picture 1"
+RENDERING = b"spectrum picture 2"
 """Part of every picture's ETag: change it when the drawing changes."""
 MEDIA_TYPES = {"svg": "image/svg+xml", "png": "image/png"}
 
@@ -230,20 +230,30 @@ async def _picture(
     runtime: Runtime, pictures: Pictures, key: PictureKey, request: Request
 ) -> Response:
     """A picture kept in memory, else drawn (once for every client asking meanwhile) in a
-    worker process that stops when its last client leaves."""
+    worker process that stops when its last client leaves.  A replan's picture marks what
+    changed since its parent plan (when the parent is still stored)."""
     plan_id, fmt = key
     picture = pictures.kept(key)
     if picture is None:
         stored = await anyio.to_thread.run_sync(_stored, runtime, plan_id)
         plan_json = stored.plan.model_dump_json()
-        tag = entity_tag(plan_json.encode(), fmt.encode(), RENDERING)
+        parent_json = await anyio.to_thread.run_sync(_parent_json, runtime, stored)
+        parent_part = b"" if parent_json is None else parent_json.encode()
+        tag = entity_tag(plan_json.encode(), fmt.encode(), RENDERING, parent_part)
         unchanged = not_modified(request, tag)
         if unchanged is not None:
             return unchanged
-        args = (key, tag, plan_json, stored.request.model_dump_json())
+        args = (key, tag, plan_json, stored.request.model_dump_json(), parent_json)
         picture = await _unless_client_leaves(request, pictures.draw(*args))
     unchanged = not_modified(request, picture.tag)
     return unchanged or immutable(picture.content, MEDIA_TYPES[fmt], picture.tag)
+
+
+def _parent_json(runtime: Runtime, stored: StoredPlan) -> str | None:
+    """The stored plan's parent plan as JSON; None without a parent or when it is gone."""
+    parent_id = stored.plan.parent_id
+    parent = None if parent_id is None else runtime.store.get_plan(parent_id)
+    return None if parent is None else parent.plan.model_dump_json()
 
 
 async def _unless_client_leaves(request: Request, drawn: Awaitable[Picture]) -> Picture:

@@ -115,7 +115,9 @@ def on_postgres(settings: Settings, *, migrated: bool = True) -> Settings:
 # bound to their arguments with functools.partial.
 
 
-def sized_picture(size: int, plan_json: str, request_json: str, fmt: str) -> bytes:
+def sized_picture(
+    size: int, plan_json: str, request_json: str, fmt: str, parent_json: str | None = None
+) -> bytes:
     """A drawing double: a picture of ``size`` bytes, drawn at once (no matplotlib)."""
     return b"<svg/>".ljust(size)
 
@@ -123,7 +125,9 @@ def sized_picture(size: int, plan_json: str, request_json: str, fmt: str) -> byt
 HELD_PICTURE = b"<svg>held</svg>"
 
 
-def held_picture(folder: str, plan_json: str, request_json: str, fmt: str) -> bytes:
+def held_picture(
+    folder: str, plan_json: str, request_json: str, fmt: str, parent_json: str | None = None
+) -> bytes:
     """A drawing double that keeps working until released: it writes ``pid-<its pid>`` into
     ``folder``, then works until a file ``release`` appears there."""
     here = Path(folder)
