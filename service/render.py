@@ -585,8 +585,15 @@ def _spread(
 def _draw_texts(figure: Figure, plan: Plan, problem: Problem, scale_hz: float, unit: str) -> None:
     """Title (name), headline (status, throughput, efficiency), block and usage line, footer."""
     summary = plan.summary
-    efficiency = summary.efficiency_vs_bound
-    bound = f"{efficiency:.0%} of the physical bound" if math.isfinite(efficiency) else "no bound"
+    capped, capacity = (
+        summary.efficiency_vs_target_capped_bound,
+        summary.efficiency_vs_capacity_bound,
+    )
+    bound = (
+        f"{capped:.0%} of the target-capped bound, {capacity:.0%} of capacity"
+        if math.isfinite(capped) and math.isfinite(capacity)
+        else "no bound"
+    )
     name = (
         plan.name
         if len(plan.name) <= STYLE.max_title_chars

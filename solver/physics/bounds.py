@@ -13,11 +13,12 @@ The bound is max Σ min(rᵢ(Bᵢ), Tᵢ) subject to Σ Bᵢ ≤ W: a separable 
 allocation.  It is solved exactly from its optimality conditions (water-filling on a common
 marginal rate λ, bit/s per Hz): every demand takes the width at which its marginal rate falls
 to λ, up to the width that reaches its target; λ is the value at which the widths fill W.
-Without a cap a power-limited demand still carries at most Pᵢ·log2 e however wide it is, while
-a fixed demand's rate grows without limit, so uncapped fixed demands of the best slope share
-whatever width the power-limited demands leave at that slope.  Linear demands enter at full cap above their slope and not at all below it, so the total
+Linear demands enter at full cap above their slope and not at all below it, so the total
 width is a decreasing step-and-slope function of λ; :func:`shannon_nyquist_bound` walks the
 steps in order of slope and solves each continuous piece with ``scipy.optimize.brentq``.
+Without a cap a power-limited demand still carries at most Pᵢ·log2 e however wide it is, while
+a fixed demand's rate grows without limit, so uncapped fixed demands of the best slope share
+whatever width the power-limited demands leave at that slope: the bound stays finite.
 """
 
 from __future__ import annotations
