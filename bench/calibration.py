@@ -44,8 +44,8 @@ def _run(
         "wall_s": wall,
         "gap": plan.stats.optimality_gap,
         "ratio": ours.total_throughput_bps / max(theirs.total_throughput_bps, 1.0),
-        "eff": ours.efficiency_vs_bound,
-        "hand_eff": theirs.efficiency_vs_bound,
+        "eff": ours.efficiency_vs_target_capped_bound,
+        "hand_eff": theirs.efficiency_vs_target_capped_bound,
     }
 
 

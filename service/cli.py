@@ -81,6 +81,7 @@ from service.errors import (
     StoreUnavailableError,
     field_path,
 )
+from service.legacy import LegacyPlanError, upgrade_plan_document
 from service.schemas import PlanOut, PlanRequest
 from service.settings import Settings
 from service.store import Store, utc_now
@@ -133,8 +134,8 @@ def _load_request(path: Path) -> PlanRequest:
 
 def _load_plan(path: Path) -> PlanOut:
     try:
-        return PlanOut.model_validate(_read_json(path, "--previous"))
-    except pydantic.ValidationError as exc:
+        return PlanOut.model_validate(upgrade_plan_document(_read_json(path, "--previous")))
+    except (pydantic.ValidationError, LegacyPlanError) as exc:
         raise CliError(ExitCode.INVALID, f"invalid input: --previous: {path}: {exc}") from exc
 
 

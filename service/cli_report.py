@@ -142,12 +142,13 @@ def summary_table(plan: PlanOut) -> str:
     -------
     str
         Lines ending in a newline; centres in MHz, symbol rates in Mbaud, throughput in
-        Mbit/s, margins and back-off in dB, guards in kHz, EVM in % rms.
+        Mbit/s, headroom (Es/N0 over the MODCOD's threshold) and back-off in dB, guards in
+        kHz, EVM in % rms.
     """
     width = max([len("demand"), *(len(c.demand_id) for c in plan.carriers)]) + 2
     head = (
         f"  {'demand':<{width}}{'centre MHz':>14}{'Rs Mbaud':>10}{'α':>6}  {'MODCOD':<16}"
-        f"{'Mbit/s':>9}{'margin dB':>10}{'guard kHz':>16}{'OBO dB':>8}{'EVM %':>7}"
+        f"{'Mbit/s':>9}{'headroom dB':>12}{'guard kHz':>16}{'OBO dB':>8}{'EVM %':>7}"
     )
     lines = [f"plan {plan.id or '(not stored)'}  {plan.name!r}  status {plan.status.value}", head]
     lines.append("-" * len(head))
@@ -159,27 +160,44 @@ def summary_table(plan: PlanOut) -> str:
         lines.append(
             f"{mark} {c.demand_id:<{width}}{c.center_hz / MHZ:>14.4f}"
             f"{c.symbol_rate_baud / MHZ:>10.4f}{c.rolloff:>6.2f}  {modcod:<16}"
-            f"{c.throughput_bps / MHZ:>9.3f}{c.margin_db:>10.2f}{guards:>16}{backoff:>8}"
+            f"{c.throughput_bps / MHZ:>9.3f}{c.headroom_db:>12.2f}{guards:>16}{backoff:>8}"
             f"{c.evm_pct:>7.2f}"
         )
     if any(c.retuned for c in plan.carriers):
         lines.append(f"{RETUNED_MARK} retuned: moved or reconfigured from its current setting")
     lines.extend(f"unserved {u.demand_id}: {u.reason.value} ({u.detail})" for u in plan.unserved)
-    lines.append(_totals(plan))
+    lines.extend(_totals(plan))
     lines.extend(f"note: {n}" for n in plan.notices)
     return "\n".join(lines) + "\n"
 
 
-def _totals(plan: PlanOut) -> str:
+def _totals(plan: PlanOut) -> list[str]:
+    """Use of the block; throughput against the bounds and the requested rates; the hand
+    method on the same request."""
     s = plan.summary
     gap = "—" if s.optimality_gap is None else f"{s.optimality_gap * PERCENT:.2f} %"
-    return (
+    lines = [
         f"used {s.used_bandwidth_hz / MHZ:.4f} MHz, free {s.free_bandwidth_hz / MHZ:.4f} MHz "
         f"(largest segment {s.largest_free_segment_hz / MHZ:.4f} MHz); throughput "
         f"{s.total_throughput_bps / MHZ:.3f} Mbit/s, {s.spectral_efficiency_bps_per_hz:.3f} "
-        f"bit/s/Hz, {s.efficiency_vs_bound * PERCENT:.1f} % of the bound; gap {gap}; "
-        f"solved in {s.solve_time_s:.2f} s"
-    )
+        f"bit/s/Hz; gap {gap}; solved in {s.solve_time_s:.2f} s",
+        f"throughput is {s.efficiency_vs_capacity_bound * PERCENT:.1f} % of the block's capacity "
+        f"bound ({s.capacity_bound_bps / MHZ:.3f} Mbit/s), "
+        f"{s.efficiency_vs_target_capped_bound * PERCENT:.1f} % of the target-capped bound "
+        f"({s.target_capped_bound_bps / MHZ:.3f} Mbit/s) and "
+        f"{s.fraction_of_requested * PERCENT:.1f} % of the requested "
+        f"{s.requested_rate_bps / MHZ:.3f} Mbit/s",
+    ]
+    hand = s.hand_method
+    if hand is not None:
+        demands = len(plan.carriers) + len(plan.unserved)
+        ratio = "—" if hand.plan_to_hand_ratio is None else f"{hand.plan_to_hand_ratio:.2f}×"
+        lines.append(
+            f"hand method on the same request, verified: serves "
+            f"{hand.served_demands} of {demands} demands, {hand.throughput_bps / MHZ:.3f} Mbit/s "
+            f"in {hand.used_bandwidth_hz / MHZ:.4f} MHz; this plan carries {ratio} as much"
+        )
+    return lines
 
 
 def retune_line(plan: PlanOut) -> str:

@@ -9,6 +9,7 @@ give the solver the same thing.
 from __future__ import annotations
 
 import math
+from dataclasses import asdict
 from datetime import datetime
 from typing import Protocol
 
@@ -19,6 +20,7 @@ from service.schemas import (
     CodingIn,
     DemandIn,
     EquipmentProfileIn,
+    HandMethodOut,
     JobProgress,
     LeakageOut,
     PlanOut,
@@ -37,6 +39,7 @@ from solver import (
     Demand,
     EquipmentProfile,
     Exclusion,
+    HandComparison,
     ModcodRow,
     Modulation,
     Plan,
@@ -95,12 +98,12 @@ def carrier_to_wire(carrier: Carrier) -> CarrierOut:
         throughput_bps=cfg.throughput_bps,
         esn0_db=cfg.esn0_db,
         required_esn0_db=cfg.required_esn0_db,
-        margin_db=cfg.margin_db,
+        headroom_db=cfg.margin_db,
         profile=cfg.profile,
         output_backoff_db=cfg.output_backoff_db,
         evm_pct=cfg.evm_pct,
         thermal_esn0_db=cfg.thermal_esn0_db,
-        margin_after_interference_db=finite_or_none(carrier.margin_after_interference_db),
+        headroom_after_interference_db=finite_or_none(carrier.margin_after_interference_db),
         leakage_ratio_db=LeakageOut(
             below=finite_or_none(carrier.leakage_ratio_below_db),
             above=finite_or_none(carrier.leakage_ratio_above_db),
@@ -132,7 +135,7 @@ def carrier_from_wire(c: CarrierOut) -> Carrier:
         thermal_esn0_db=c.thermal_esn0_db,
     )
     nan = math.nan
-    after = c.margin_after_interference_db
+    after = c.headroom_after_interference_db
     return Carrier(
         config=config,
         center_hz=c.center_hz,
@@ -163,8 +166,13 @@ def plan_to_wire(
         largest_free_segment_hz=s.largest_free_segment_hz,
         total_throughput_bps=s.total_throughput_bps,
         spectral_efficiency_bps_per_hz=s.spectral_efficiency_bps_per_hz,
-        shannon_bound_bps=s.shannon_bound_bps,
-        efficiency_vs_bound=s.efficiency_vs_bound,
+        capacity_bound_bps=s.capacity_bound_bps,
+        target_capped_bound_bps=s.target_capped_bound_bps,
+        requested_rate_bps=s.requested_rate_bps,
+        efficiency_vs_capacity_bound=s.efficiency_vs_capacity_bound,
+        efficiency_vs_target_capped_bound=s.efficiency_vs_target_capped_bound,
+        fraction_of_requested=s.fraction_of_requested,
+        hand_method=None if s.hand_method is None else HandMethodOut(**asdict(s.hand_method)),
         objective_value=finite_or_none(st.objective_value),
         best_bound=finite_or_none(st.best_bound),
         optimality_gap=finite_or_none(st.optimality_gap),
@@ -223,9 +231,14 @@ def plan_from_wire(out: PlanOut) -> Plan:
         largest_free_segment_hz=s.largest_free_segment_hz,
         total_throughput_bps=s.total_throughput_bps,
         spectral_efficiency_bps_per_hz=s.spectral_efficiency_bps_per_hz,
-        shannon_bound_bps=s.shannon_bound_bps,
-        efficiency_vs_bound=s.efficiency_vs_bound,
+        capacity_bound_bps=s.capacity_bound_bps,
+        target_capped_bound_bps=s.target_capped_bound_bps,
+        requested_rate_bps=s.requested_rate_bps,
+        efficiency_vs_capacity_bound=s.efficiency_vs_capacity_bound,
+        efficiency_vs_target_capped_bound=s.efficiency_vs_target_capped_bound,
+        fraction_of_requested=s.fraction_of_requested,
         retune_count=s.retune_count,
+        hand_method=None if s.hand_method is None else HandComparison(**s.hand_method.model_dump()),
     )
     stats = SolveStats(
         status=out.status,

@@ -188,8 +188,15 @@ def draw_texts(
     """Title (name), headline (status, throughput, efficiency), block and usage line (and what
     changed since the earlier plan), footer (the cautions)."""
     summary = plan.summary
-    efficiency = summary.efficiency_vs_bound
-    bound = f"{efficiency:.0%} of the physical bound" if math.isfinite(efficiency) else "no bound"
+    capped, capacity = (
+        summary.efficiency_vs_target_capped_bound,
+        summary.efficiency_vs_capacity_bound,
+    )
+    bound = (
+        f"{capped:.0%} of the target-capped bound, {capacity:.0%} of capacity"
+        if math.isfinite(capped) and math.isfinite(capacity)
+        else "no bound"
+    )
     name = (
         plan.name
         if len(plan.name) <= STYLE.max_title_chars

@@ -447,7 +447,10 @@ class CarrierOut(BaseModel):
     throughput_bps: float
     esn0_db: float = Field(description="effective Es/N0: thermal noise and EVM floor (dB)")
     required_esn0_db: float
-    margin_db: float = Field(description="Es/N0 − required Es/N0 (dB)")
+    headroom_db: float = Field(
+        description="headroom: Es/N0 − required Es/N0 of its MODCOD (dB), at least its demand's "
+        "margin_db (the margin to keep)"
+    )
     profile: str = Field("", description="equipment profile; empty: the transmitter's")
     output_backoff_db: float | None = Field(
         None, description="amplifier back-off it runs at (dB); null: linear"
@@ -458,7 +461,10 @@ class CarrierOut(BaseModel):
     thermal_esn0_db: float | None = Field(
         None, description="Es/N0 from thermal noise alone (dB); `esn0_db` adds the EVM floor"
     )
-    margin_after_interference_db: float | None = Field(description="null: not computed")
+    headroom_after_interference_db: float | None = Field(
+        description="headroom with the other carriers' interference added to the noise (dB); "
+        "null: not computed"
+    )
     leakage_ratio_db: LeakageOut
     c_over_i_db: float | None = Field(description="carrier to interference (dB); null: none")
     retuned: bool = Field(description="moved or reconfigured relative to its current setting")
@@ -475,16 +481,53 @@ class UnservedOut(BaseModel):
     detail: str
 
 
+class HandMethodOut(BaseModel):
+    """The hand method (roll-off 0.35, 10 % guards, highest MODCOD that closes, first fit by
+    priority) run on the same request and checked by the same verifier as the plan."""
+
+    served_demands: int = Field(description="demands the verified hand plan serves")
+    throughput_bps: float = Field(description="its total throughput (bit/s)")
+    used_bandwidth_hz: float = Field(
+        description="its used spectrum, counted as the plan's used_bandwidth_hz (Hz)"
+    )
+    plan_to_hand_ratio: float | None = Field(
+        description="the plan's total_throughput_bps over the hand plan's; null when the hand "
+        "plan carries nothing"
+    )
+
+
 class SummaryOut(BaseModel):
-    """Totals over the plan and the optimiser's figures."""
+    """Totals over the plan, how they compare with the bounds, the requested rates and the
+    hand method, and the optimiser's figures."""
 
     used_bandwidth_hz: float
     free_bandwidth_hz: float
     largest_free_segment_hz: float
     total_throughput_bps: float
     spectral_efficiency_bps_per_hz: float
-    shannon_bound_bps: float
-    efficiency_vs_bound: float
+    capacity_bound_bps: float = Field(
+        description="what the block could carry: Shannon–Nyquist bound of the usable block for "
+        "these links with their margins, no demand capped (bit/s)"
+    )
+    target_capped_bound_bps: float = Field(
+        description="the most any plan of this request can carry, counting each demand up to "
+        "its target: the same bound with each demand capped at its target_rate_bps (bit/s)"
+    )
+    requested_rate_bps: float = Field(description="Σ of the demands' target_rate_bps (bit/s)")
+    efficiency_vs_capacity_bound: float = Field(
+        description="total_throughput_bps / capacity_bound_bps (0 when the bound is 0)"
+    )
+    efficiency_vs_target_capped_bound: float = Field(
+        description="total_throughput_bps / target_capped_bound_bps (0 when the bound is 0)"
+    )
+    fraction_of_requested: float = Field(
+        description="total_throughput_bps / requested_rate_bps (0 when nothing is requested)"
+    )
+    hand_method: HandMethodOut | None = Field(
+        None,
+        description="the hand method on the same request, verified like the plan; null for a "
+        "plan stored before it was reported",
+    )
     objective_value: float | None
     best_bound: float | None
     optimality_gap: float | None
@@ -637,10 +680,10 @@ class EvaluateResponse(BaseModel):
         description="(dB); null: this MODCOD cannot reach the target error rate at any Es/N0"
     )
     label: str = Field("", description="the set's own name of the entry (e.g. 'MCS 17')")
-    margin_db: float | None = Field(
-        description="Es/N0 − required Es/N0 (dB); null when required_esn0_db is null"
+    headroom_db: float | None = Field(
+        description="headroom: Es/N0 − required Es/N0 (dB); null when required_esn0_db is null"
     )
-    link_closes: bool = Field(description="margin_db ≥ the requested margin")
+    link_closes: bool = Field(description="headroom_db ≥ the requested margin_db")
     bits_per_symbol: int
     throughput_bps: float = Field(
         description="Rs·log2(M)·r·(1 − framing overhead) (bit/s) when the link closes; "

@@ -25,6 +25,7 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from service import migrations
 from service.errors import SchemaNotReadyError, StoreUnavailableError
+from service.legacy import upgrade_plan_document
 from service.schemas import JobOut, JobProgress, JobState, PlanListItem, PlanOut, PlanRequest
 from service.tables import BatchRow, JobRow, KeyRow, PlanRow, ReplayRow
 
@@ -233,15 +234,15 @@ class Store:
             session.add(_plan_row(plan, request, None))
 
     def get_plan(self, plan_id: str) -> StoredPlan | None:
-        """The stored plan with this id, or ``None``."""
+        """The stored plan with this id, or ``None``; a plan stored by an earlier version is
+        read with today's field names (:func:`~service.legacy.upgrade_plan_document`)."""
         with self._session() as session:
             row = session.get(PlanRow, plan_id)
             if row is None:
                 return None
-            return StoredPlan(
-                plan=PlanOut.model_validate_json(row.plan_json),
-                request=PlanRequest.model_validate_json(row.request_json),
-            )
+            request = PlanRequest.model_validate_json(row.request_json)
+            document = upgrade_plan_document(json.loads(row.plan_json), request)
+            return StoredPlan(plan=PlanOut.model_validate(document), request=request)
 
     def list_plans(self, offset: int, limit: int) -> tuple[list[PlanListItem], int]:
         """A page of plans, newest first, and the total count."""

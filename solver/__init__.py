@@ -18,6 +18,7 @@ from solver.model import (
     Demand,
     EquipmentProfile,
     Exclusion,
+    HandComparison,
     ModcodRow,
     Modulation,
     Objective,
@@ -36,11 +37,12 @@ from solver.model import (
     format_code_rate,
     parse_code_rate,
 )
+from solver.physics.bounds import capacity_bound, shannon_nyquist_bound
 from solver.physics.emission import EmissionKey, SpectrumProfile, get_profile
 from solver.physics.modcod import ModcodEntry, catalogue
 from solver.physics.modcodsets import MODCOD_SET_NAMES
 from solver.planner import solve
-from solver.rules import rule_of_thumb_plan
+from solver.rules import hand_comparison, rule_of_thumb_plan
 from solver.summary import CAUTIONS, SettingChange, setting_change
 from solver.validation import validate_problem
 from solver.verify import LEAKAGE_TOLERANCE_DB, Verification, Violation, verify_plan
@@ -64,6 +66,7 @@ __all__ = [
     "EmissionKey",
     "EquipmentProfile",
     "Exclusion",
+    "HandComparison",
     "LeakageAtGap",
     "ModcodEntry",
     "ModcodRow",
@@ -85,16 +88,19 @@ __all__ = [
     "Verification",
     "Violation",
     "Window",
+    "capacity_bound",
     "carrier_emission_key",
     "catalogue",
     "configuration_bound",
     "evaluate_carrier",
     "format_code_rate",
     "get_profile",
+    "hand_comparison",
     "modcod_table",
     "parse_code_rate",
     "rule_of_thumb_plan",
     "setting_change",
+    "shannon_nyquist_bound",
     "solve",
     "validate_problem",
     "verify_plan",

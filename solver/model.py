@@ -444,17 +444,48 @@ class SolveStats:
 
 
 @dataclass(frozen=True)
+class HandComparison:
+    """The hand method (:func:`solver.rules.rule_of_thumb_plan`) run on the plan's own request
+    and checked by the same verifier: what it serves and carries, for comparison."""
+
+    served_demands: int
+    """Demands the hand plan serves after verification."""
+    throughput_bps: float
+    """Its total throughput, bit/s."""
+    used_bandwidth_hz: float
+    """Its used spectrum, Hz, counted as :attr:`PlanSummary.used_bandwidth_hz` counts it."""
+    plan_to_hand_ratio: float | None
+    """The plan's total throughput over the hand plan's; None when the hand plan carries
+    nothing."""
+
+
+@dataclass(frozen=True)
 class PlanSummary:
-    """Totals over a plan."""
+    """Totals over a plan, and how they compare with the bounds and the hand method."""
 
     used_bandwidth_hz: float
     free_bandwidth_hz: float
     largest_free_segment_hz: float
     total_throughput_bps: float
     spectral_efficiency_bps_per_hz: float
-    shannon_bound_bps: float
-    efficiency_vs_bound: float
+    capacity_bound_bps: float
+    """Shannon–Nyquist bound of the usable block with the demands' margins, no caps (bit/s):
+    what the block could carry for these links."""
+    target_capped_bound_bps: float
+    """The same with each demand capped at its target (bit/s): the most any plan of this
+    request can carry, counting each demand up to its target (a carrier may carry a little more
+    than its target, so efficiency_vs_target_capped_bound may pass 1 slightly)."""
+    requested_rate_bps: float
+    """Σ of the demands' target rates (bit/s)."""
+    efficiency_vs_capacity_bound: float
+    """total_throughput_bps / capacity_bound_bps (0 when the bound is 0)."""
+    efficiency_vs_target_capped_bound: float
+    """total_throughput_bps / target_capped_bound_bps (0 when the bound is 0)."""
+    fraction_of_requested: float
+    """total_throughput_bps / requested_rate_bps (0 when nothing is requested)."""
     retune_count: int
+    hand_method: HandComparison | None = None
+    """The hand method on the same request; None for the hand plan itself."""
 
 
 @dataclass(frozen=True)

@@ -67,6 +67,7 @@ from solver.packing.arrangement import (
     to_carriers,
 )
 from solver.repair import drop_until_passing, dropped_notice
+from solver.rules import hand_comparison
 from solver.squeeze import Rechoice, rechoose, squeeze, undo_rechoices
 from solver.summary import (
     CAUTIONS,
@@ -945,12 +946,13 @@ def _finish(problem: Problem, outcome: _Outcome, verdict: Judgement, elapsed_s: 
     if status is SolveStatus.FEASIBLE:
         notices.extend(_not_proven(problem, verdict))
     notices.extend(_below_target(problem, carriers))
+    throughput = sum(c.config.throughput_bps for c in carriers)
     return Plan(
         name=problem.name,
         status=status,
         carriers=tuple(carriers),
         unserved=outcome.unserved,
-        summary=summarise(problem, carriers, retunes),
+        summary=summarise(problem, carriers, retunes, hand_comparison(problem, throughput)),
         stats=stats,
         notices=tuple(notices),
     )

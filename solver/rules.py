@@ -12,6 +12,7 @@ Common practice, as done in a spreadsheet:
 
 The result goes through the same independent verification as an optimised plan: carriers that
 fail it are left out, so the peer is never credited with a plan that breaks the limits.
+:func:`hand_comparison` condenses it into the figures every plan's summary reports.
 """
 
 from __future__ import annotations
@@ -27,6 +28,7 @@ from solver.model import (
     Carrier,
     CarrierConfig,
     Demand,
+    HandComparison,
     Plan,
     Problem,
     SolveStats,
@@ -39,7 +41,7 @@ from solver.summary import CAUTIONS, summarise, with_guards
 from solver.validation import validate_problem
 from solver.verify import verify_plan
 
-__all__ = ["HAND_GUARD_FRACTION", "HAND_ROLLOFF", "rule_of_thumb_plan"]
+__all__ = ["HAND_GUARD_FRACTION", "HAND_ROLLOFF", "hand_comparison", "rule_of_thumb_plan"]
 
 HAND_ROLLOFF = 0.35
 """Roll-off used for every carrier (common practice; the DVB-S default, EN 300 421)."""
@@ -151,4 +153,32 @@ def rule_of_thumb_plan(problem: Problem) -> Plan:
         summary=summarise(problem, final, 0),
         stats=stats,
         notices=(*CAUTIONS, dropped_notice(dropped)) if dropped else CAUTIONS,
+    )
+
+
+def hand_comparison(problem: Problem, plan_throughput_bps: float) -> HandComparison:
+    """The hand method on ``problem``, verified, beside a plan that carries
+    ``plan_throughput_bps``.
+
+    Parameters
+    ----------
+    problem : Problem
+        The request the plan answers.
+    plan_throughput_bps : float
+        The plan's total throughput, bit/s.
+
+    Returns
+    -------
+    HandComparison
+        Demands the verified hand plan serves, its throughput (bit/s) and used spectrum (Hz,
+        as a plan's summary counts it), and the plan's throughput over the hand plan's (None
+        when the hand plan carries nothing).
+    """
+    hand = rule_of_thumb_plan(problem)
+    carried = hand.summary.total_throughput_bps
+    return HandComparison(
+        served_demands=len(hand.carriers),
+        throughput_bps=carried,
+        used_bandwidth_hz=hand.summary.used_bandwidth_hz,
+        plan_to_hand_ratio=plan_throughput_bps / carried if carried > 0 else None,
     )

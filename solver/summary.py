@@ -1,4 +1,4 @@
-"""What a plan says about itself: guards per side, free spectrum, totals, the bound, retunes,
+"""What a plan says about itself: guards per side, free spectrum, totals, the bounds, retunes,
 words for every demand left out, and the cautions every plan carries."""
 
 from __future__ import annotations
@@ -14,6 +14,7 @@ from solver.model import (
     Carrier,
     CurrentSetting,
     Demand,
+    HandComparison,
     PlanSummary,
     Problem,
     Unserved,
@@ -192,21 +193,39 @@ def _pair_guard(problem: Problem, c: Carrier, other: Carrier | None, side: str) 
     return min(pair, max(gap, 0.0))
 
 
-def summarise(problem: Problem, carriers: Sequence[Carrier], retunes: int) -> PlanSummary:
+def summarise(
+    problem: Problem,
+    carriers: Sequence[Carrier],
+    retunes: int,
+    hand: HandComparison | None = None,
+) -> PlanSummary:
+    """Totals of a plan, its throughput against the two Shannon–Nyquist bounds (uncapped and
+    capped at the targets) and the requested rates, and the hand method's figures if given."""
     free = free_segments_hz(problem, carriers)
     usable = problem.block.usable_width_hz
     total = sum(c.config.throughput_bps for c in carriers)
-    bound = bounds.shannon_nyquist_bound(usable, problem.demands).total_bps
+    capacity = bounds.capacity_bound(usable, problem.demands).total_bps
+    capped = bounds.shannon_nyquist_bound(usable, problem.demands).total_bps
+    requested = sum(d.target_rate_bps for d in problem.demands)
     return PlanSummary(
         used_bandwidth_hz=usable - sum(free),
         free_bandwidth_hz=sum(free),
         largest_free_segment_hz=max(free, default=0.0),
         total_throughput_bps=total,
         spectral_efficiency_bps_per_hz=total / usable if usable > 0 else 0.0,
-        shannon_bound_bps=bound,
-        efficiency_vs_bound=total / bound if bound > 0 else 0.0,
+        capacity_bound_bps=capacity,
+        target_capped_bound_bps=capped,
+        requested_rate_bps=requested,
+        efficiency_vs_capacity_bound=_ratio(total, capacity),
+        efficiency_vs_target_capped_bound=_ratio(total, capped),
+        fraction_of_requested=_ratio(total, requested),
         retune_count=retunes,
+        hand_method=hand,
     )
+
+
+def _ratio(part: float, whole: float) -> float:
+    return part / whole if whole > 0 else 0.0
 
 
 @dataclass(frozen=True)

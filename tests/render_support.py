@@ -98,7 +98,20 @@ def tile(rates_baud: Sequence[float], block: Block, prefix: str = "link") -> lis
 def make_plan(carriers: Sequence[Carrier], unserved: Sequence[Unserved] = ()) -> Plan:
     total_bps = sum(c.config.throughput_bps for c in carriers)
     used_hz = sum(c.config.allocated_bandwidth_hz for c in carriers)
-    summary = PlanSummary(used_hz, 2e7 - used_hz, 1e6, total_bps, 1.5, 9e7, 0.61, 0)
+    summary = PlanSummary(
+        used_bandwidth_hz=used_hz,
+        free_bandwidth_hz=2e7 - used_hz,
+        largest_free_segment_hz=1e6,
+        total_throughput_bps=total_bps,
+        spectral_efficiency_bps_per_hz=1.5,
+        capacity_bound_bps=2e8,
+        target_capped_bound_bps=9e7,
+        requested_rate_bps=1e8,
+        efficiency_vs_capacity_bound=0.27,
+        efficiency_vs_target_capped_bound=0.61,
+        fraction_of_requested=0.55,
+        retune_count=0,
+    )
     stats = SolveStats(SolveStatus.OPTIMAL, total_bps, total_bps, 0.0, 0.4, 2, 1, "test")
     return Plan(
         "east-grid-test", SolveStatus.OPTIMAL, tuple(carriers), tuple(unserved), summary, stats, ()

@@ -11,7 +11,7 @@ from hypothesis import strategies as st
 from scipy import optimize
 
 from solver.model import Demand
-from solver.physics.bounds import shannon_capacity_bps, shannon_nyquist_bound
+from solver.physics.bounds import capacity_bound, shannon_capacity_bps, shannon_nyquist_bound
 
 UNCAPPED = 1e15
 
@@ -73,6 +73,59 @@ def test_invalid_input_is_named() -> None:
         shannon_nyquist_bound(1e6, [Demand("x", 0.0, 1e6)])
 
 
+def test_capacity_of_one_fixed_demand_by_hand() -> None:
+    # Shannon 1948, C = B·log2(1 + SNR): 1 MHz at Es/N0 = 10 dB (SNR 10) → 1e6·log2(11)
+    # = 3,459,431.6 bit/s.  Uncapped it takes the whole block; capped at 1e5 bit/s it carries
+    # 1e5 in 1e5/log2(11) = 28,906.5 Hz.  1e-12 relative (floating point only).
+    demand = _fixed(0, 10.0, target=1e5)
+    uncapped = capacity_bound(1e6, [demand])
+    assert uncapped.total_bps == pytest.approx(1e6 * math.log2(11.0), rel=1e-12)
+    assert uncapped.widths_hz == pytest.approx((1e6,), rel=1e-12)
+    capped = shannon_nyquist_bound(1e6, [demand])
+    assert capped.total_bps == pytest.approx(1e5, rel=1e-12)
+    assert capped.widths_hz[0] == pytest.approx(1e5 / math.log2(11.0), rel=1e-12)
+
+
+def test_capacity_of_a_power_limited_demand_tends_to_p_log2_e() -> None:
+    # C/N0 = 60 dBHz → P/N0 = 1e6 Hz.  In 1 MHz the SNR is 1: C = 1e6·log2 2 = 1e6 bit/s.
+    # As B → ∞, B·log2(1 + P/B) → P·log2 e = 1,442,695.04 bit/s (the wideband limit, any
+    # comms textbook, e.g. Proakis & Salehi, Digital Communications, 5th ed., §6.5); at
+    # B = 1e12 Hz the shortfall is about P·log2 e·P/(2B) = 0.72 bit/s (series of ln(1 + x)).
+    demand = _power(0, 60.0, target=1e5)
+    assert capacity_bound(1e6, [demand]).total_bps == pytest.approx(1e6, rel=1e-12)
+    wide = capacity_bound(1e12, [demand]).total_bps
+    assert wide == pytest.approx(1e6 * math.log2(math.e) * (1 - 0.5e-6), rel=1e-9)
+    assert wide < 1e6 * math.log2(math.e)
+
+
+def test_uncapped_fixed_demands_of_the_best_slope_take_all_width() -> None:
+    # Two fixed demands at 20 dB tie on the best slope log2(101); one at 5 dB gets nothing.
+    # By hand: C = W·log2(101) = 2e6 × 6.65821 = 13,316,422 bit/s, half the block each.
+    demands = [_fixed(0, 5.0), _fixed(1, 20.0), _fixed(2, 20.0)]
+    result = capacity_bound(2e6, demands)
+    assert result.total_bps == pytest.approx(2e6 * math.log2(101.0), rel=1e-12)
+    assert result.widths_hz == pytest.approx((0.0, 1e6, 1e6), rel=1e-12)
+
+
+def test_capacity_with_power_limited_and_fixed_demands_meets_kkt() -> None:
+    # One fixed demand at 10 dB (slope s = log2 11) and one power-limited demand with
+    # P/N0 = 1e6 Hz share 1 MHz uncapped.  KKT: the power-limited width B is where its marginal
+    # rate d/dB[B·log2(1 + P/B)] = log2(1 + x) − x/((1 + x)·ln 2), x = P/B, equals s; the
+    # fixed demand takes the rest.  Solved here independently with scipy's brentq on x.
+    slope = math.log2(11.0)
+    x = optimize.brentq(lambda v: math.log2(1 + v) - v / ((1 + v) * math.log(2)) - slope, 1, 1e3)
+    width_p = 1e6 / x
+    expected = (1e6 - width_p) * slope + width_p * math.log2(1 + x)
+    result = capacity_bound(1e6, [_fixed(0, 10.0, target=1.0), _power(1, 60.0, target=1.0)])
+    assert result.widths_hz[1] == pytest.approx(width_p, rel=1e-9)
+    assert result.total_bps == pytest.approx(expected, rel=1e-12)
+
+
+def test_capacity_of_nothing_is_zero() -> None:
+    assert capacity_bound(0.0, [_fixed(0, 10.0), _power(1, 70.0)]).total_bps == 0.0
+    assert capacity_bound(1e6, []).total_bps == 0.0
+
+
 demand_strategy = st.one_of(
     st.builds(
         _power,
@@ -106,9 +159,15 @@ def test_bound_properties(demands: list[Demand], width_hz: float) -> None:
     pooled = width_hz * math.log2(1 + sum(powers) / width_hz) if powers else 0.0
     fixed = width_hz * math.log2(1 + max(snrs)) if snrs else 0.0
     assert result.total_bps <= (pooled + fixed) * (1 + 1e-9)
+    # Capacity (uncapped) ≥ target-capped ≥ 0, and target-capped ≤ requested (Σ targets).
+    capacity = capacity_bound(width_hz, demands)
+    assert sum(capacity.widths_hz) <= width_hz * (1 + 1e-9)
+    assert math.isfinite(capacity.total_bps)
+    assert capacity.total_bps >= result.total_bps * (1 - 1e-12) >= 0.0
+    assert capacity.total_bps <= (pooled + fixed) * (1 + 1e-9)
 
 
-def _objective(widths: np.ndarray, demands: list[Demand]) -> float:
+def _objective(widths: np.ndarray, demands: list[Demand], capped: bool = True) -> float:
     total = 0.0
     for demand, width in zip(demands, np.maximum(widths, 1e-12), strict=True):
         if demand.cn0_dbhz is not None:
@@ -117,7 +176,7 @@ def _objective(widths: np.ndarray, demands: list[Demand]) -> float:
         else:
             esn0_db = 0.0 if demand.esn0_db is None else demand.esn0_db
             rate = width * math.log2(1 + 10 ** ((esn0_db - demand.margin_db) / 10))
-        total += min(rate, demand.target_rate_bps)
+        total += min(rate, demand.target_rate_bps) if capped else rate
     return total
 
 
@@ -148,3 +207,30 @@ def test_independent_optimiser_never_does_better() -> None:
             if found.x.sum() <= width * (1 + 1e-9):
                 assert _objective(found.x, demands) <= ours * (1 + 1e-7)
         assert ours >= _objective(np.full(count, width / count), demands) * (1 - 1e-12)
+
+
+def test_independent_optimiser_never_beats_the_capacity_bound() -> None:
+    # The same cross-check without caps (scipy SLSQP from seeded random starts).
+    rng = np.random.default_rng(12)
+    for _ in range(8):
+        count = int(rng.integers(2, 5))
+        demands = [
+            _power(i, float(rng.uniform(60, 80)))
+            if rng.random() < 0.5
+            else _fixed(i, float(rng.uniform(-3, 20)))
+            for i in range(count)
+        ]
+        width = float(rng.uniform(1e5, 1e7))
+        ours = capacity_bound(width, demands).total_bps
+        for _ in range(4):
+            start = rng.dirichlet(np.ones(count)) * width
+            found = optimize.minimize(
+                lambda b, ds=demands: -_objective(b, ds, capped=False) / 1e6,
+                start,
+                bounds=[(0.0, width)] * count,
+                constraints=[{"type": "ineq", "fun": lambda b, w=width: (w - b.sum()) / w}],
+                method="SLSQP",
+                options={"ftol": 1e-12, "maxiter": 500},
+            )
+            if found.x.sum() <= width * (1 + 1e-9):
+                assert _objective(found.x, demands, capped=False) <= ours * (1 + 1e-7)

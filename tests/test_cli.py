@@ -41,8 +41,8 @@ CSV_HEADER = [  # the columns the project's issue asks for, in its order
     "throughput_bps",
     "esn0_db",
     "required_esn0_db",
-    "margin_db",
-    "margin_after_interference_db",
+    "headroom_db",
+    "headroom_after_interference_db",
     "guard_below_hz",
     "guard_above_hz",
     "retuned",
@@ -86,6 +86,14 @@ def test_all_served_exits_0_and_writes_plan_and_picture(
     assert {c["demand_id"] for c in plan["carriers"]} == {"north", "south"}
     assert b"<svg" in svg_path.read_bytes()[:2000]
     assert "north" in out and "south" in out and "note:" in out
+    # The totals name the three figures the plan is measured against, and the hand method.
+    s, hand = plan["summary"], plan["summary"]["hand_method"]
+    assert "headroom dB" in out
+    assert f"capacity bound ({s['capacity_bound_bps'] / 1e6:.3f} Mbit/s)" in out
+    assert f"target-capped bound ({s['target_capped_bound_bps'] / 1e6:.3f} Mbit/s)" in out
+    assert f"requested {s['requested_rate_bps'] / 1e6:.3f} Mbit/s" in out
+    assert f"serves {hand['served_demands']} of 2 demands" in out
+    assert f"{hand['throughput_bps'] / 1e6:.3f} Mbit/s" in out
 
 
 def test_replan_from_a_previous_plan_file(tmp_path: Path) -> None:

@@ -46,12 +46,12 @@ def test_a_field_with_a_comma_or_quote_is_quoted_and_reads_back(plan: PlanOut) -
 
 def test_null_is_an_empty_cell_and_records_end_in_crlf(plan: PlanOut) -> None:
     bare = plan.carriers[0].model_copy(
-        update={"output_backoff_db": None, "margin_after_interference_db": None}
+        update={"output_backoff_db": None, "headroom_after_interference_db": None}
     )
     text = carriers_csv(plan.model_copy(update={"carriers": [bare]}))
     assert text.count("\r\n") == 2 and text.endswith("\r\n")  # RFC 4180 §2 items 1-2
     (row,) = csv.DictReader(io.StringIO(text, newline=""))
-    assert row["output_backoff_db"] == "" and row["margin_after_interference_db"] == ""
+    assert row["output_backoff_db"] == "" and row["headroom_after_interference_db"] == ""
     assert float(row["center_hz"]) == bare.center_hz
 
 

@@ -8,6 +8,7 @@ from dataclasses import replace
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
+from referee import used_bandwidth_hz
 
 from solver import (
     Block,
@@ -97,6 +98,62 @@ def test_random_plans_hold_every_promise(demands: list[Demand]) -> None:
     assert ours[0] >= theirs[0]
     if ours[0] == theirs[0]:
         assert ours[1] >= theirs[1] * (1 - 0.02)  # throughput grid: 1 % width steps, 40 kept
+    _check_summary_figures(problem, plan, hand)
+
+
+def _check_summary_figures(problem: Problem, plan: Plan, hand: Plan) -> None:
+    """The summary's bounds, requested rate and hand-method figures against their definitions
+    and an independent run of the hand method checked again by the verifier."""
+    s = plan.summary
+    total = s.total_throughput_bps
+    requested = sum(d.target_rate_bps for d in problem.demands)
+    assert s.requested_rate_bps == pytest.approx(requested, rel=1e-12)
+    # Each carrier carries at most Shannon in its own width with the margin kept, and the
+    # carriers share the usable block: no plan beats the uncapped bound.
+    assert total <= s.capacity_bound_bps * (1 + 1e-9)
+    assert s.capacity_bound_bps >= s.target_capped_bound_bps * (1 - 1e-12) >= 0.0
+    assert s.target_capped_bound_bps <= requested * (1 + 1e-12)
+    by_id = {d.id: d for d in problem.demands}
+    capped = sum(
+        min(c.config.throughput_bps, by_id[c.demand_id].target_rate_bps) for c in plan.carriers
+    )
+    assert capped <= s.target_capped_bound_bps * (1 + 1e-9)
+    assert s.efficiency_vs_capacity_bound == pytest.approx(total / s.capacity_bound_bps)
+    assert s.efficiency_vs_target_capped_bound == pytest.approx(total / s.target_capped_bound_bps)
+    assert s.fraction_of_requested == pytest.approx(total / requested)
+    # The hand method, run here on its own and verified again, gives the summary's figures.
+    assert verify_plan(problem, hand.carriers).passed
+    hand_total = sum(c.config.throughput_bps for c in hand.carriers)
+    assert s.hand_method is not None
+    assert s.hand_method.served_demands == len(hand.carriers)
+    assert s.hand_method.throughput_bps == pytest.approx(hand_total, rel=1e-12)
+    assert s.hand_method.used_bandwidth_hz == pytest.approx(
+        used_bandwidth_hz(problem, list(hand.carriers)), rel=1e-12
+    )
+    if hand_total > 0:
+        assert s.hand_method.plan_to_hand_ratio == pytest.approx(total / hand_total, rel=1e-12)
+    else:
+        assert s.hand_method.plan_to_hand_ratio is None
+    assert hand.summary.hand_method is None  # the hand plan does not compare with itself
+
+
+def test_summary_bounds_of_one_fixed_link_by_hand() -> None:
+    # One fixed link, Es/N0 13 dB with a 3 dB margin: SNR 10 dB = 10 in a 20 MHz block.
+    # Shannon (1948), C = B·log2(1 + SNR): capacity 20e6·log2(11) = 69,188,632 bit/s.
+    # Capped at its 4 Mbit/s target (which needs only 4e6/log2(11) = 1.16 MHz): 4e6 bit/s.
+    problem = _problem([Demand("link", 1e6, 4e6, esn0_db=13.0, margin_db=3.0)])
+    plan = solve(problem)
+    s = plan.summary
+    assert s.capacity_bound_bps == pytest.approx(20e6 * math.log2(11.0), rel=1e-12)
+    assert s.target_capped_bound_bps == pytest.approx(4e6, rel=1e-12)
+    assert s.requested_rate_bps == 4e6
+    total = s.total_throughput_bps
+    assert total > 0
+    assert s.fraction_of_requested == pytest.approx(total / 4e6, rel=1e-12)
+    assert s.efficiency_vs_capacity_bound == pytest.approx(
+        total / (20e6 * math.log2(11.0)), rel=1e-12
+    )
+    _check_summary_figures(problem, plan, rule_of_thumb_plan(problem))
 
 
 def test_same_input_gives_the_same_plan() -> None:

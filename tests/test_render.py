@@ -154,7 +154,7 @@ def test_svg_is_valid_and_names_every_carrier(ten: tuple[Plan, Problem]) -> None
     # the title names total throughput (Mbit/s, the command's word) and the efficiency
     total_mbps = plan.summary.total_throughput_bps / 1e6
     assert f"{total_mbps:.4g} Mbit/s total" in joined
-    assert "61% of the physical bound" in joined
+    assert "61% of the target-capped bound, 27% of capacity" in joined
 
 
 def test_png_is_valid_with_expected_size(ten: tuple[Plan, Problem]) -> None:

@@ -71,7 +71,7 @@ def _evaluate(body: EvaluateRequest) -> EvaluateResponse:
         guard_needed_hz=finite_or_none(result.guard_needed_hz),  # None: no limit, or none met
         esn0_db=result.esn0_db,
         required_esn0_db=finite_or_none(result.required_esn0_db),
-        margin_db=finite_or_none(result.margin_db),
+        headroom_db=finite_or_none(result.margin_db),
         link_closes=result.link_closes,
         bits_per_symbol=result.bits_per_symbol,
         throughput_bps=result.throughput_bps,

@@ -1,7 +1,8 @@
 """The physical bound of a plan: the Shannon–Nyquist split of the usable block.
 
 Each demand i gets a width Bᵢ of ideal (brick-wall) spectrum with no guard bands and carries
-at most the Shannon rate of that width, capped at its target rate:
+at most the Shannon rate of that width, capped at its target rate (or, for the block's
+capacity, not capped at all: ``capped=False``, an infinite target):
 
 * a power-limited demand (C/N0 given) has SNR Pᵢ/Bᵢ with Pᵢ = C/N0 (Hz) after its margin, so
   rᵢ(B) = B·log2(1 + Pᵢ/B) — concave, rising to Pᵢ·log2 e as B → ∞;
@@ -15,6 +16,9 @@ to λ, up to the width that reaches its target; λ is the value at which the wid
 Linear demands enter at full cap above their slope and not at all below it, so the total
 width is a decreasing step-and-slope function of λ; :func:`shannon_nyquist_bound` walks the
 steps in order of slope and solves each continuous piece with ``scipy.optimize.brentq``.
+Without a cap a power-limited demand still carries at most Pᵢ·log2 e however wide it is, while
+a fixed demand's rate grows without limit, so uncapped fixed demands of the best slope share
+whatever width the power-limited demands leave at that slope: the bound stays finite.
 """
 
 from __future__ import annotations
@@ -28,7 +32,7 @@ from scipy import optimize
 
 from solver.model import Demand
 
-__all__ = ["BoundResult", "shannon_capacity_bps", "shannon_nyquist_bound"]
+__all__ = ["BoundResult", "capacity_bound", "shannon_capacity_bps", "shannon_nyquist_bound"]
 
 LOG2E = math.log2(math.e)
 _RELATIVE_TOL = 1e-12
@@ -139,9 +143,11 @@ def _power_limited(power_hz: float, target_bps: float, usable_hz: float) -> _Sha
 
 
 def _fixed(snr_linear: float, target_bps: float) -> _Share:
-    """Demand with rate B·log2(1 + γ) (SNR independent of width), capped at the target."""
+    """Demand with rate B·log2(1 + γ) (SNR independent of width), capped at the target
+    (``math.inf``: no cap, any width is used).  A slope that underflows to 0 carries nothing
+    and takes no width."""
     slope = math.log2(1.0 + snr_linear)
-    cap_hz = target_bps / slope
+    cap_hz = target_bps / slope if slope > 0 and target_bps > 0 else 0.0
 
     def width_at(level: float) -> float:
         return cap_hz if slope > level else 0.0
@@ -155,12 +161,14 @@ def _finite_field(demand: Demand, name: str, value: float) -> float:
     return value
 
 
-def _share_of(demand: Demand, usable_hz: float) -> _Share:
+def _share_of(demand: Demand, usable_hz: float, capped: bool) -> _Share:
     if (demand.cn0_dbhz is None) == (demand.esn0_db is None):
         raise ValueError(f"demand {demand.id!r} must give exactly one of cn0_dbhz and esn0_db")
     target = _finite_field(demand, "target_rate_bps", demand.target_rate_bps)
     if target < 0:
         raise ValueError(f"demand {demand.id!r}: {demand.target_rate_bps=} must be >= 0")
+    if not capped:
+        target = math.inf
     margin = _finite_field(demand, "margin_db", demand.margin_db)
     if demand.cn0_dbhz is not None:
         cn0 = _finite_field(demand, "cn0_dbhz", demand.cn0_dbhz)
@@ -219,24 +227,41 @@ def _allocate(shares: Sequence[_Share], usable_hz: float) -> list[float]:
             s.width_at(found) if s.slope is None else (s.cap_hz if s.slope >= upper else 0.0)
             for s in shares
         ]
-    fraction = (usable_hz - at_level) / tied[lo]  # λ* equals this slope: the tied share
-    return [_width_at_tie(s, level, upper, fraction) for s in shares]
+    return [_width_at_tie(s, level, upper, usable_hz - at_level, tied[lo], shares) for s in shares]
 
 
-def _width_at_tie(share: _Share, level: float, upper: float, fraction: float) -> float:
+def _width_at_tie(
+    share: _Share,
+    level: float,
+    upper: float,
+    rest_hz: float,
+    tied_hz: float,
+    shares: Sequence[_Share],
+) -> float:
+    """Width of one demand when λ* equals the slope ``level``: the fixed demands tied there
+    share ``rest_hz`` in proportion to their caps, or, when some have no cap (``tied_hz``
+    infinite), in equal parts among those without one (any split of a tie is optimal)."""
     if share.slope is None:
         return share.width_at(level)
-    if share.slope == level:
-        return share.cap_hz * fraction
-    return share.cap_hz if share.slope >= upper else 0.0
+    if share.slope != level:
+        return share.cap_hz if share.slope >= upper else 0.0
+    if math.isfinite(tied_hz):
+        return share.cap_hz * (rest_hz / tied_hz)
+    if math.isfinite(share.cap_hz):
+        return 0.0
+    uncapped = sum(1 for s in shares if s.slope == level and math.isinf(s.cap_hz))
+    return rest_hz / uncapped
 
 
-def shannon_nyquist_bound(usable_width_hz: float, demands: Sequence[Demand]) -> BoundResult:
+def shannon_nyquist_bound(
+    usable_width_hz: float, demands: Sequence[Demand], *, capped: bool = True
+) -> BoundResult:
     """Largest total rate of ideal carriers sharing the block, each capped at its target.
 
     Maximises Σᵢ min(Bᵢ·log2(1 + SNRᵢ(Bᵢ)), Tᵢ) over Σᵢ Bᵢ ≤ W (no guards, ideal pulses),
     where SNRᵢ = (C/N0)ᵢ/Bᵢ for a power-limited demand and the fixed Es/N0 otherwise, each
-    reduced by the demand's margin_db.
+    reduced by the demand's margin_db.  With ``capped=False`` every Tᵢ is infinite: what the
+    block could carry for these links, whatever was asked.
 
     Parameters
     ----------
@@ -245,6 +270,8 @@ def shannon_nyquist_bound(usable_width_hz: float, demands: Sequence[Demand]) -> 
     demands : sequence of Demand
         Each with exactly one of ``cn0_dbhz`` / ``esn0_db``, a ``target_rate_bps`` and
         ``margin_db``; ``min_rate_bps`` plays no part in the bound.
+    capped : bool, optional
+        Cap each demand at its ``target_rate_bps`` (default); ``False``: no cap.
 
     Returns
     -------
@@ -256,6 +283,8 @@ def shannon_nyquist_bound(usable_width_hz: float, demands: Sequence[Demand]) -> 
     Exact solution of the concave allocation by its Karush–Kuhn–Tucker conditions: all
     demands below their cap share one marginal rate λ (bit/s/Hz), found by ``brentq``; see
     the module docstring.  Width is left unused only when every demand reaches its target.
+    Uncapped, the bound stays finite: a power-limited demand tends to Pᵢ·log2 e and the
+    width is finite.
 
     References
     ----------
@@ -271,8 +300,8 @@ def shannon_nyquist_bound(usable_width_hz: float, demands: Sequence[Demand]) -> 
     """
     if not (math.isfinite(usable_width_hz) and usable_width_hz >= 0):
         raise ValueError(f"{usable_width_hz=} must be finite and non-negative")
-    shares = [_share_of(demand, usable_width_hz) for demand in demands]
-    widths = _allocate(shares, usable_width_hz) if shares else []
+    shares = [_share_of(demand, usable_width_hz, capped) for demand in demands]
+    widths = _allocate(shares, usable_width_hz) if usable_width_hz > 0 else [0.0] * len(shares)
     rates = [share.rate_at(width) for share, width in zip(shares, widths, strict=True)]
     return BoundResult(
         total_bps=float(sum(rates)),
@@ -280,3 +309,15 @@ def shannon_nyquist_bound(usable_width_hz: float, demands: Sequence[Demand]) -> 
         widths_hz=tuple(float(w) for w in widths),
         rates_bps=tuple(float(r) for r in rates),
     )
+
+
+def capacity_bound(usable_width_hz: float, demands: Sequence[Demand]) -> BoundResult:
+    """What the block could carry for these links: :func:`shannon_nyquist_bound` uncapped.
+
+    Examples
+    --------
+    >>> a = Demand("a", min_rate_bps=0.0, target_rate_bps=1e5, esn0_db=10.0, margin_db=0.0)
+    >>> round(capacity_bound(1e6, [a]).total_bps)  # 1 MHz at 10 dB: 1e6·log2(11)
+    3459432
+    """
+    return shannon_nyquist_bound(usable_width_hz, demands, capped=False)

@@ -85,7 +85,7 @@ async def test_evaluate_against_textbook_values(app: FastAPI) -> None:
     # Es/N0 = C/N0 − 10·log10(Rs) (definition Es = C·Ts; e.g. Sklar, Digital Communications
     # 2nd ed. §5.x, from memory): 80 dB-Hz at 772 kbaud → 80 − 58.8762 dB; float tolerance.
     assert qpsk["esn0_db"] == pytest.approx(80 - 10 * math.log10(772e3), abs=1e-9)
-    assert qpsk["margin_db"] == pytest.approx(qpsk["esn0_db"] - qpsk["required_esn0_db"])
+    assert qpsk["headroom_db"] == pytest.approx(qpsk["esn0_db"] - qpsk["required_esn0_db"])
     # Throughput Rs·log2(M)·r·(1 − overhead) (DESIGN.md physics; DVB-S2 style framing).
     assert qpsk["throughput_bps"] == pytest.approx(772e3 * 2 * 0.75 * 0.98, rel=1e-12)
 
@@ -229,7 +229,7 @@ async def test_a_link_that_cannot_close_carries_nothing(
     assert body["required_esn0_db"] > SHANNON_QPSK_3_4_ESN0_DB
     assert body["link_closes"] is False
     assert body["throughput_bps"] == 0.0
-    assert body["margin_db"] < changes.get("margin_db", 3.0)  # the margin asked for
+    assert body["headroom_db"] < changes.get("margin_db", 3.0)  # the margin asked for
 
 
 # EN 302 307-1 (DVB-S2) Table 13 ideal Es/N0, normal FECFRAME 64 800 bits, PER 1e-7 (via

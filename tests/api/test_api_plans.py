@@ -93,7 +93,7 @@ async def test_plan_fields_follow_the_contract(solving_app: FastAPI) -> None:
             c["allocated_bandwidth_hz"], c["symbol_rate_baud"] * (1 + c["rolloff"]), rel_tol=1e-9
         )
         assert math.isclose(c["upper_edge_hz"] - c["lower_edge_hz"], c["allocated_bandwidth_hz"])
-        assert c["margin_db"] == pytest.approx(c["esn0_db"] - c["required_esn0_db"], abs=1e-9)
+        assert c["headroom_db"] == pytest.approx(c["esn0_db"] - c["required_esn0_db"], abs=1e-9)
         assert c["code_rate"] == "uncoded" or "/" in c["code_rate"]
 
 
