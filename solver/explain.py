@@ -76,6 +76,7 @@ import math
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
 from enum import StrEnum
+from typing import NamedTuple
 
 import numpy as np
 from numpy.typing import NDArray
@@ -151,6 +152,10 @@ class Shortfall:
         Symbol rate (baud) the target needs, above the profile's maximum.
     detail : str
         One line in words.
+    widened : Carrier or None
+        The carrier at its target, placed in its room enlarged by ``spectrum_to_target_hz``
+        inserted directly above it (every frequency above its current upper edge moved up by
+        that much), as verified; None with no ``spectrum_to_target_hz``.
     """
 
     demand_id: str
@@ -160,6 +165,7 @@ class Shortfall:
     esn0_to_target_db: float | None
     symbol_rate_needed_baud: float | None
     detail: str
+    widened: Carrier | None = None
 
 
 def meets_target(demand: Demand, throughput_bps: float) -> bool:
@@ -388,22 +394,31 @@ REFINE_STEPS = 4
 """Halvings between the last extra that failed verification and the first that passed."""
 
 
+class _Widening(NamedTuple):
+    extra_hz: float | None
+    carrier: Carrier | None
+    first_violation: Violation | None
+
+
 def _extra_passing(
     problem: Problem, ordered: Sequence[Carrier], i: int, target: _Target, start_hz: float
-) -> tuple[float | None, Violation | None]:
+) -> _Widening:
     """The least extra spectrum found with which the plan holding ``target`` passes
-    verification, from ``start_hz`` up by doubling steps then halving back, and the first
-    violation seen (None: it passed at once)."""
+    verification, from ``start_hz`` up by doubling steps then halving back, the carrier placed
+    there, and the first violation seen (None: it passed at once)."""
 
     def passes(extra_hz: float) -> Violation | None:
         check = verify_plan(*_placed(problem, ordered, i, target, extra_hz))
         return None if check.passed else check.violations[0]
 
+    def found(extra_hz: float, first: Violation | None) -> _Widening:
+        return _Widening(extra_hz, _placed(problem, ordered, i, target, extra_hz)[1][i], first)
+
     step = max(2.0 * problem.block.raster_hz, 0.01 * target.config.allocated_bandwidth_hz)
     base = max(start_hz, 0.0)
     first = passes(base)
     if first is None:
-        return base, None
+        return found(base, None)
     low = base
     for k in range(VERIFY_TRIES):
         high = base + step * 2**k
@@ -411,14 +426,14 @@ def _extra_passing(
             break
         low = high
     else:
-        return None, first
+        return _Widening(None, None, first)
     for _ in range(REFINE_STEPS):
         middle = (low + high) / 2
         if passes(middle) is None:
             high = middle
         else:
             low = middle
-    return high, first
+    return found(high, first)
 
 
 # ----------------------------------------------------------------------------- the tests
@@ -483,13 +498,14 @@ def _settings(config: CarrierConfig) -> str:
     )
 
 
-def _room_limits(case: _Case, targets: Sequence[_Target]) -> tuple[Found, float | None]:
+def _room_limits(case: _Case, targets: Sequence[_Target]) -> tuple[Found, _Widening]:
     """Spectrum, neighbour or unused room, for a demand that some configuration serves at
     target; and the extra spectrum with which it passes verification."""
     sides, room = case.sides, _room(case.sides)
     best = min(targets, key=lambda t: _own_footprint(t, sides))
     need = _own_footprint(best, sides)
-    extra, violation = _extra_passing(case.problem, case.ordered, case.index, best, need - room)
+    widening = _extra_passing(case.problem, case.ordered, case.index, best, need - room)
+    violation = widening.first_violation
     where = f"the {room:,.0f} Hz between {sides[0].name} and {sides[1].name}"
     needs = (
         f"{_settings(best.config)} carries the target in {need:,.0f} Hz with the guards its "
@@ -512,7 +528,7 @@ def _room_limits(case: _Case, targets: Sequence[_Target]) -> tuple[Found, float 
         found[LimitedBy.NEIGHBOUR] = (
             f"{needs}, which fits {where}, but there verification fails: {violation.detail}"
         )
-    return found, extra
+    return found, widening
 
 
 def _listed(values: Sequence[float]) -> str:
@@ -662,9 +678,9 @@ def _most_at_any_width(case: _Case) -> float:
 
 def _explain(case: _Case) -> Shortfall:
     configs = _targets(case, case.profile.rolloffs)
-    spectrum_hz = rate_needed = None
+    widening, rate_needed = _Widening(None, None, None), None
     if configs:
-        found, spectrum_hz = _room_limits(case, configs)
+        found, widening = _room_limits(case, configs)
     else:
         found, rate_needed = _intrinsic_limits(case)
     in_width = _table_in_width(case)
@@ -678,10 +694,11 @@ def _explain(case: _Case) -> Shortfall:
         demand_id=case.demand.id,
         limited_by=held[0],
         also=tuple(held[1:]),
-        spectrum_to_target_hz=spectrum_hz,
+        spectrum_to_target_hz=widening.extra_hz,
         esn0_to_target_db=None if esn0 is None else esn0.needed_db,
         symbol_rate_needed_baud=rate_needed,
         detail=found[held[0]],
+        widened=widening.carrier,
     )
 
 
