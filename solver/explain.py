@@ -59,9 +59,10 @@ What lifts it:
   least own footprint reaches the target: from its own footprint less the room, that much
   spectrum is inserted directly above the carrier (everything above moved up), the
   configuration placed and the whole plan verified; while verification fails the extra grows
-  by doubling steps (the larger of two raster steps and 1 % of its width, :data:`VERIFY_TRIES`
-  tries) and is then halved back towards the last failure (:data:`REFINE_STEPS`); None when no
-  try passes.  Zero for ``unused-room``; None when no configuration carries the target.
+  by doubling steps (the larger of two raster steps and 1 % of its width,
+  :data:`~solver.explain_room.VERIFY_TRIES` tries) and is then halved back towards the last
+  failure (:data:`~solver.explain_room.REFINE_STEPS` times); None when no try passes.  Zero
+  for ``unused-room``; None when no configuration carries the target.
 * ``esn0_to_target_db`` — the demand's stated Es/N0 (at its profile's reference back-off; for
   a C/N0 link, at the carrier's current symbol rate, so C/N0 = it + 10·log10(Rs)) at which a
   configuration of its profile carries the target in the carrier's current allocated width
@@ -74,27 +75,24 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from enum import StrEnum
-from typing import NamedTuple
 
 import numpy as np
-from numpy.typing import NDArray
 
 from solver import equipment
+from solver import explain_link as lk
+from solver import explain_room as rm
 from solver.candidates import family_for
 from solver.model import (
     Carrier,
     CarrierConfig,
     Demand,
     EquipmentProfile,
-    Exclusion,
     Problem,
     Transmitter,
     format_code_rate,
 )
-from solver.physics import distortion
-from solver.verify import Violation, verify_plan
 
 __all__ = [
     "CATALOGUE_ROLLOFFS",
@@ -122,12 +120,6 @@ ORDER: tuple[LimitedBy, ...] = tuple(LimitedBy)
 
 CATALOGUE_ROLLOFFS: tuple[float, ...] = Transmitter().rolloffs
 """Roll-offs a transmitter may offer (the request's default list), for the equipment test."""
-
-BACKOFF_REACH_DB = 6
-"""Whole dB beyond the profile's largest back-off the equipment test tries."""
-
-VERIFY_TRIES = 9
-"""Placements verified while looking for the extra spectrum that passes."""
 
 TARGET_TOLERANCE = 1e-6
 """A carrier within this relative distance of its target meets it (as the plan's notices)."""
@@ -173,269 +165,6 @@ def meets_target(demand: Demand, throughput_bps: float) -> bool:
     return throughput_bps >= demand.target_rate_bps * (1 - TARGET_TOLERANCE)
 
 
-# ----------------------------------------------------------------------------- link only
-
-
-@dataclass(frozen=True)
-class _Links:
-    """MODCOD entries × back-off options as parallel arrays (no spectra: the link only)."""
-
-    names: tuple[str, ...]
-    backoff_db: tuple[float | None, ...]
-    net: NDArray[np.float64]
-    needed_db: NDArray[np.float64]
-    """Threshold plus the demand's margin (dB effective Es/N0)."""
-    offset_db: NDArray[np.float64]
-    evm_pct: NDArray[np.float64]
-
-
-def _links(
-    demand: Demand,
-    entries: Sequence[equipment.TableEntry],
-    options: Sequence[equipment.BackoffOption],
-) -> _Links:
-    pairs = [(e, o) for e in entries for o in options]
-    return _Links(
-        names=tuple(_name(e) for e, _ in pairs),
-        backoff_db=tuple(o.output_backoff_db for _, o in pairs),
-        net=np.array([e.net_bits_per_symbol for e, _ in pairs], dtype=np.float64),
-        needed_db=np.array([e.required_esn0_db + demand.margin_db for e, _ in pairs]),
-        offset_db=np.array([o.esn0_offset_db for _, o in pairs], dtype=np.float64),
-        evm_pct=np.array([o.evm_pct for _, o in pairs], dtype=np.float64),
-    )
-
-
-def _name(entry: equipment.TableEntry) -> str:
-    return f"{entry.modulation.value} {format_code_rate(entry.code_rate)}"
-
-
-def _stated_db(demand: Demand, rate_baud: NDArray[np.float64]) -> NDArray[np.float64]:
-    """The demand's Es/N0 (dB) at ``rate_baud``, at its profile's reference back-off."""
-    if demand.cn0_dbhz is not None:
-        with np.errstate(divide="ignore"):
-            return np.asarray(demand.cn0_dbhz - 10.0 * np.log10(rate_baud))
-    esn0 = -math.inf if demand.esn0_db is None else demand.esn0_db
-    return np.full(np.shape(rate_baud), esn0)
-
-
-def _closes(demand: Demand, links: _Links, rate_baud: NDArray[np.float64]) -> NDArray[np.bool_]:
-    """Whether each (entry, back-off) closes with the demand's margin at ``rate_baud``."""
-    thermal = _stated_db(demand, rate_baud) + links.offset_db
-    effective = np.asarray(distortion.effective_esn0_db(thermal, links.evm_pct))
-    return np.asarray(effective >= links.needed_db - 1e-9)
-
-
-def _target_rate(demand: Demand, profile: EquipmentProfile, links: _Links) -> NDArray[np.float64]:
-    """R_T of each entry: the least rate on the profile's grid that carries the target."""
-    wanted = np.maximum(demand.target_rate_bps / links.net, profile.symbol_rate_min_baud)
-    return equipment.grid_ceil(wanted, profile.symbol_rate_step_baud)
-
-
-def _reach(demand: Demand, profile: EquipmentProfile, links: _Links) -> NDArray[np.bool_]:
-    """Which (entry, back-off) carry the target at some width, within the rate maximum."""
-    rate = _target_rate(demand, profile, links)
-    return np.asarray(_closes(demand, links, rate) & (rate <= profile.symbol_rate_max_baud))
-
-
-def _table(
-    problem: Problem, profile: EquipmentProfile, demand: Demand
-) -> list[equipment.TableEntry]:
-    return list(equipment.modcod_table(profile, problem.coding, tuple(demand.modulations)))
-
-
-def _outside_table(
-    problem: Problem, profile: EquipmentProfile, demand: Demand
-) -> list[equipment.TableEntry]:
-    """Catalogue entries (``"full"``, the profile's implementation loss) not in its table."""
-    own = {(e.modulation, e.code_rate) for e in _table(problem, profile, demand)}
-    full = replace(profile, modcods=(), modcod_set="full")
-    return [e for e in _table(problem, full, demand) if (e.modulation, e.code_rate) not in own]
-
-
-def _relaxed_backoffs(profile: EquipmentProfile) -> list[equipment.BackoffOption]:
-    """The profile's back-offs and every whole dB from 1 to :data:`BACKOFF_REACH_DB` beyond its
-    largest (its own only, for a linear transmitter)."""
-    own = list(equipment.backoff_options(profile))
-    if profile.amplifier is None:
-        return own
-    top = max(o.output_backoff_db or 0.0 for o in own)
-    extra = [float(b) for b in range(1, int(top) + BACKOFF_REACH_DB + 1)]
-    return own + [equipment.backoff_option(profile, b) for b in extra]
-
-
-def _thermal_needed(links: _Links) -> NDArray[np.float64]:
-    """Thermal Es/N0 (dB) each (entry, back-off) needs: inf where the EVM floor caps it."""
-    values = [
-        distortion.thermal_esn0_needed_db(float(n), float(e))
-        for n, e in zip(links.needed_db, links.evm_pct, strict=True)
-    ]
-    return np.array(values, dtype=np.float64)
-
-
-def _width_rate(profile: EquipmentProfile, width_hz: float, rolloff: float) -> float:
-    """The highest symbol rate on the profile's grid that fits ``width_hz`` at ``rolloff``
-    (0 when below the profile's minimum)."""
-    top = min(width_hz / (1 + rolloff), profile.symbol_rate_max_baud)
-    rate = float(equipment.grid_floor(np.array([top]), profile.symbol_rate_step_baud)[0])
-    return rate if rate >= profile.symbol_rate_min_baud and rate > 0 else 0.0
-
-
-# ----------------------------------------------------------------------------- room
-
-
-@dataclass(frozen=True)
-class _Side:
-    """What one side of a carrier faces: the facing edge (Hz), and the carrier there (None for
-    a block edge or an exclusion)."""
-
-    wall_hz: float
-    neighbour: Carrier | None
-    name: str
-
-
-_TOLERANCE_HZ = 1e-6
-
-
-def _exclusion_name(x: Exclusion) -> str:
-    return f"the exclusion ({x.note})" if x.note else "the exclusion"
-
-
-def _sides(problem: Problem, ordered: Sequence[Carrier], i: int) -> tuple[_Side, _Side]:
-    """The sides below and above carrier ``i`` of ``ordered`` (sorted by centre)."""
-    c, block = ordered[i], problem.block
-    below = [_Side(block.start_hz, None, "the lower block edge")]
-    below += [
-        _Side(x.stop_hz, None, _exclusion_name(x))
-        for x in block.exclusions
-        if x.stop_hz <= c.lower_edge_hz + _TOLERANCE_HZ
-    ]
-    above = [_Side(block.stop_hz, None, "the upper block edge")]
-    above += [
-        _Side(x.start_hz, None, _exclusion_name(x))
-        for x in block.exclusions
-        if x.start_hz >= c.upper_edge_hz - _TOLERANCE_HZ
-    ]
-    if i > 0:
-        below.append(_Side(ordered[i - 1].upper_edge_hz, ordered[i - 1], ordered[i - 1].demand_id))
-    if i + 1 < len(ordered):
-        above.append(_Side(ordered[i + 1].lower_edge_hz, ordered[i + 1], ordered[i + 1].demand_id))
-    return max(below, key=lambda s: s.wall_hz), min(above, key=lambda s: s.wall_hz)
-
-
-@dataclass(frozen=True)
-class _Target:
-    """A configuration that carries the target, with the guard its own leakage limit asks
-    towards a carrier (Hz, no sensitivity allowance)."""
-
-    config: CarrierConfig
-    leakage_guard_hz: float
-
-
-def _own_guard(target: _Target, side: _Side) -> float:
-    """The least gap its own limits ask on ``side``: its leakage guard towards a carrier, its
-    edge guard towards a block edge or exclusion."""
-    return target.config.edge_guard_hz if side.neighbour is None else target.leakage_guard_hz
-
-
-def _rule_guard(config: CarrierConfig, side: _Side) -> float:
-    """The planner's spacing on ``side``: the larger of the two guards, or the edge guard."""
-    if side.neighbour is None:
-        return config.edge_guard_hz
-    return max(config.guard_hz, side.neighbour.config.guard_hz)
-
-
-def _own_footprint(target: _Target, sides: tuple[_Side, _Side]) -> float:
-    """Allocated width plus its own guard on each side (Hz)."""
-    low, high = sides
-    return _own_guard(target, low) + target.config.allocated_bandwidth_hz + _own_guard(target, high)
-
-
-def _room(sides: tuple[_Side, _Side]) -> float:
-    return sides[1].wall_hz - sides[0].wall_hz
-
-
-def _lower_gap(target: _Target, sides: tuple[_Side, _Side], room_hz: float) -> float:
-    """Where ``target`` sits in a room of ``room_hz``: each side gets its own guard, and the
-    rest is shared in proportion to how much more the planner's spacing asks there (evenly
-    when it asks no more on either side)."""
-    own = [_own_guard(target, s) for s in sides]
-    more = [max(_rule_guard(target.config, s) - g, 0.0) for s, g in zip(sides, own, strict=True)]
-    rest = max(room_hz - target.config.allocated_bandwidth_hz - sum(own), 0.0)
-    share = 0.5 if sum(more) <= 0 else more[0] / sum(more)
-    return own[0] + rest * share
-
-
-def _placed(
-    problem: Problem, ordered: Sequence[Carrier], i: int, target: _Target, extra_hz: float
-) -> tuple[Problem, list[Carrier]]:
-    """The plan with ``extra_hz`` of spectrum inserted directly above carrier ``i`` (every
-    carrier, exclusion and the block's upper edge above it moved up) and carrier ``i`` in the
-    target's configuration, placed in its enlarged room by :func:`_lower_gap`."""
-    sides = _sides(problem, ordered, i)
-    cut = ordered[i].upper_edge_hz - _TOLERANCE_HZ
-    block = problem.block
-    exclusions = tuple(
-        replace(x, start_hz=x.start_hz + extra_hz, stop_hz=x.stop_hz + extra_hz)
-        if x.start_hz >= cut
-        else x
-        for x in block.exclusions
-    )
-    wider = replace(block, stop_hz=block.stop_hz + extra_hz, exclusions=exclusions)
-    config = target.config
-    lower_edge = sides[0].wall_hz + _lower_gap(target, sides, _room(sides) + extra_hz)
-    carriers = [
-        replace(c, center_hz=c.center_hz + extra_hz) if j > i else c for j, c in enumerate(ordered)
-    ]
-    carriers[i] = Carrier(config, lower_edge + config.allocated_bandwidth_hz / 2, 0.0, 0.0)
-    return replace(problem, block=wider), carriers
-
-
-REFINE_STEPS = 4
-"""Halvings between the last extra that failed verification and the first that passed."""
-
-
-class _Widening(NamedTuple):
-    extra_hz: float | None
-    carrier: Carrier | None
-    first_violation: Violation | None
-
-
-def _extra_passing(
-    problem: Problem, ordered: Sequence[Carrier], i: int, target: _Target, start_hz: float
-) -> _Widening:
-    """The least extra spectrum found with which the plan holding ``target`` passes
-    verification, from ``start_hz`` up by doubling steps then halving back, the carrier placed
-    there, and the first violation seen (None: it passed at once)."""
-
-    def passes(extra_hz: float) -> Violation | None:
-        check = verify_plan(*_placed(problem, ordered, i, target, extra_hz))
-        return None if check.passed else check.violations[0]
-
-    def found(extra_hz: float, first: Violation | None) -> _Widening:
-        return _Widening(extra_hz, _placed(problem, ordered, i, target, extra_hz)[1][i], first)
-
-    step = max(2.0 * problem.block.raster_hz, 0.01 * target.config.allocated_bandwidth_hz)
-    base = max(start_hz, 0.0)
-    first = passes(base)
-    if first is None:
-        return found(base, None)
-    low = base
-    for k in range(VERIFY_TRIES):
-        high = base + step * 2**k
-        if passes(high) is None:
-            break
-        low = high
-    else:
-        return _Widening(None, None, first)
-    for _ in range(REFINE_STEPS):
-        middle = (low + high) / 2
-        if passes(middle) is None:
-            high = middle
-        else:
-            low = middle
-    return found(high, first)
-
-
 # ----------------------------------------------------------------------------- the tests
 
 
@@ -455,23 +184,23 @@ class _Case:
         return self.ordered[self.index]
 
     @property
-    def sides(self) -> tuple[_Side, _Side]:
-        return _sides(self.problem, self.ordered, self.index)
+    def sides(self) -> tuple[rm.Side, rm.Side]:
+        return rm.sides_of(self.problem, self.ordered, self.index)
 
 
 Found = dict[LimitedBy, str]
 """The limits that hold, each with its line in words."""
 
 
-def _targets(case: _Case, rolloffs: Sequence[float]) -> list[_Target]:
+def _targets(case: _Case, rolloffs: Sequence[float]) -> list[rm.Target]:
     """Every configuration of the profile's table and back-offs at ``rolloffs`` that closes
     and carries the target at R_T, with its guards (:func:`~solver.candidates.family_for`)."""
     options = equipment.backoff_options(case.profile)
-    entries = _table(case.problem, case.profile, case.demand)
-    links = _links(case.demand, entries, options)
-    rate = _target_rate(case.demand, case.profile, links)
+    entries = lk.table(case.problem, case.profile, case.demand)
+    links = lk.links(case.demand, entries, options)
+    rate = lk.target_rate(case.demand, case.profile, links)
     out = []
-    for k in np.flatnonzero(_reach(case.demand, case.profile, links)).tolist():
+    for k in np.flatnonzero(lk.reach(case.demand, case.profile, links)).tolist():
         entry, option = entries[k // len(options)], options[k % len(options)]
         for rolloff in rolloffs:
             fam = family_for(
@@ -487,7 +216,7 @@ def _targets(case: _Case, rolloffs: Sequence[float]) -> list[_Target]:
             if fam is not None:
                 config = fam.top.config
                 leak = fam.leakage_guard_per_baud * config.symbol_rate_baud
-                out.append(_Target(config, leak))
+                out.append(rm.Target(config, leak))
     return out
 
 
@@ -498,13 +227,13 @@ def _settings(config: CarrierConfig) -> str:
     )
 
 
-def _room_limits(case: _Case, targets: Sequence[_Target]) -> tuple[Found, _Widening]:
+def _room_limits(case: _Case, targets: Sequence[rm.Target]) -> tuple[Found, rm.Widening]:
     """Spectrum, neighbour or unused room, for a demand that some configuration serves at
     target; and the extra spectrum with which it passes verification."""
-    sides, room = case.sides, _room(case.sides)
-    best = min(targets, key=lambda t: _own_footprint(t, sides))
-    need = _own_footprint(best, sides)
-    widening = _extra_passing(case.problem, case.ordered, case.index, best, need - room)
+    sides, room = case.sides, rm.room_width(case.sides)
+    best = min(targets, key=lambda t: rm.own_footprint(t, sides))
+    need = rm.own_footprint(best, sides)
+    widening = rm.extra_passing(case.problem, case.ordered, case.index, best, need - room)
     violation = widening.first_violation
     where = f"the {room:,.0f} Hz between {sides[0].name} and {sides[1].name}"
     needs = (
@@ -541,17 +270,17 @@ def _rolloff_fits(case: _Case, room_hz: float) -> bool:
     missing = [a for a in CATALOGUE_ROLLOFFS if a not in case.profile.rolloffs]
     if not missing:
         return False
-    return any(_own_footprint(t, case.sides) <= room_hz for t in _targets(case, missing))
+    return any(rm.own_footprint(t, case.sides) <= room_hz for t in _targets(case, missing))
 
 
 def _intrinsic_limits(case: _Case) -> tuple[Found, float | None]:
     """Equipment and MODCOD-table limits for a demand that no configuration serves at target at
     any width; and the symbol rate the target needs above the profile's maximum."""
     demand, profile, found = case.demand, case.profile, Found()
-    entries = _table(case.problem, profile, demand)
-    own = _links(demand, entries, equipment.backoff_options(profile))
-    rate = _target_rate(demand, profile, own)
-    over = np.flatnonzero(_closes(demand, own, rate) & (rate > profile.symbol_rate_max_baud))
+    entries = lk.table(case.problem, profile, demand)
+    own = lk.links(demand, entries, equipment.backoff_options(profile))
+    rate = lk.target_rate(demand, profile, own)
+    over = np.flatnonzero(lk.closes(demand, own, rate) & (rate > profile.symbol_rate_max_baud))
     needed = None
     if over.size:
         k = int(over[np.argmin(rate[over])])
@@ -561,8 +290,8 @@ def _intrinsic_limits(case: _Case) -> tuple[Found, float | None]:
             f"{profile.symbol_rate_max_baud:,.0f} Bd"
         )
     else:
-        relaxed = _links(demand, entries, _relaxed_backoffs(profile))
-        hit = np.flatnonzero(_reach(demand, profile, relaxed))
+        relaxed = lk.links(demand, entries, lk.relaxed_backoffs(profile))
+        hit = np.flatnonzero(lk.reach(demand, profile, relaxed))
         if hit.size:
             k = int(hit[0])
             allowed = [o.output_backoff_db or 0.0 for o in equipment.backoff_options(profile)]
@@ -571,8 +300,8 @@ def _intrinsic_limits(case: _Case) -> tuple[Found, float | None]:
                 f"{_listed(allowed)} dB) would carry the target"
             )
     options = equipment.backoff_options(profile)
-    outside = _links(demand, _outside_table(case.problem, profile, demand), options)
-    hit = np.flatnonzero(_reach(demand, profile, outside))
+    outside = lk.links(demand, lk.outside_table(case.problem, profile, demand), options)
+    hit = np.flatnonzero(lk.reach(demand, profile, outside))
     if hit.size:
         found[LimitedBy.MODCOD_TABLE] = (
             f"{outside.names[int(hit[0])]}, outside its profile's table, would carry the target "
@@ -594,14 +323,14 @@ def _esn0_in_width(case: _Case) -> _EsN0 | None:
     """The least stated Es/N0 at which some configuration of the profile carries the target in
     the carrier's current allocated width (for a C/N0 link, at its current symbol rate)."""
     demand, profile, cfg = case.demand, case.profile, case.carrier.config
-    links = _links(
-        demand, _table(case.problem, profile, demand), equipment.backoff_options(profile)
+    links = lk.links(
+        demand, lk.table(case.problem, profile, demand), equipment.backoff_options(profile)
     )
-    stated_needed = _thermal_needed(links) - links.offset_db
-    now = float(_stated_db(demand, np.array([cfg.symbol_rate_baud]))[0])
+    stated_needed = lk.thermal_needed(links) - links.offset_db
+    now = float(lk.stated_db(demand, np.array([cfg.symbol_rate_baud]))[0])
     best = _EsN0(math.inf, now, "")
     for rolloff in profile.rolloffs:
-        rate = _width_rate(profile, cfg.allocated_bandwidth_hz, rolloff)
+        rate = lk.width_rate(profile, cfg.allocated_bandwidth_hz, rolloff)
         carries = rate * links.net >= demand.target_rate_bps * (1 - 1e-9)
         if rate <= 0 or not carries.any():
             continue
@@ -621,17 +350,17 @@ def _table_in_width(case: _Case) -> str | None:
     the carrier's current allocated width at its link (profile's roll-offs and back-offs)."""
     demand, profile, width = case.demand, case.profile, case.carrier.config.allocated_bandwidth_hz
     options = equipment.backoff_options(profile)
-    outside = _links(demand, _outside_table(case.problem, profile, demand), options)
-    inside = _links(demand, _table(case.problem, profile, demand), options)
+    outside = lk.links(demand, lk.outside_table(case.problem, profile, demand), options)
+    inside = lk.links(demand, lk.table(case.problem, profile, demand), options)
     for rolloff in profile.rolloffs:
-        rate = _width_rate(profile, width, rolloff)
+        rate = lk.width_rate(profile, width, rolloff)
         if rate <= 0:
             continue
         target = demand.target_rate_bps * (1 - 1e-9)
         at = np.array([rate])
-        if np.any((rate * inside.net >= target) & _closes(demand, inside, at)):
+        if np.any((rate * inside.net >= target) & lk.closes(demand, inside, at)):
             return None
-        hit = np.flatnonzero((rate * outside.net >= target) & _closes(demand, outside, at))
+        hit = np.flatnonzero((rate * outside.net >= target) & lk.closes(demand, outside, at))
         if hit.size:
             return (
                 f"{outside.names[int(hit[0])]}, outside its profile's table, would carry the "
@@ -661,12 +390,12 @@ def _link_words(case: _Case, esn0: _EsN0 | None, served_at_any_width: bool) -> s
 def _most_at_any_width(case: _Case) -> float:
     """The most any (entry, back-off) of the profile carries on a C/N0 link (bit/s)."""
     demand, profile = case.demand, case.profile
-    links = _links(
-        demand, _table(case.problem, profile, demand), equipment.backoff_options(profile)
+    links = lk.links(
+        demand, lk.table(case.problem, profile, demand), equipment.backoff_options(profile)
     )
     cn0 = -math.inf if demand.cn0_dbhz is None else demand.cn0_dbhz
     with np.errstate(over="ignore"):
-        limit = 10.0 ** ((cn0 + links.offset_db - _thermal_needed(links)) / 10.0)
+        limit = 10.0 ** ((cn0 + links.offset_db - lk.thermal_needed(links)) / 10.0)
     rate = equipment.grid_floor(
         np.minimum(limit, profile.symbol_rate_max_baud), profile.symbol_rate_step_baud
     )
@@ -678,7 +407,7 @@ def _most_at_any_width(case: _Case) -> float:
 
 def _explain(case: _Case) -> Shortfall:
     configs = _targets(case, case.profile.rolloffs)
-    widening, rate_needed = _Widening(None, None, None), None
+    widening, rate_needed = rm.Widening(None, None, None), None
     if configs:
         found, widening = _room_limits(case, configs)
     else:
