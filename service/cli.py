@@ -145,7 +145,7 @@ def _load_plan(path: Path) -> PlanOut:
 def _solve_here(
     request: PlanRequest, previous: PlanOut | None, formats: Sequence[ImageFormat]
 ) -> tuple[PlanOut, Pictures]:
-    from solver import solve
+    from solver import explain_shortfalls, solve
 
     if request.previous_plan_id is not None and previous is None:
         raise invalid([FieldIssue("previous_plan_id", "needs --server, or use --previous")])
@@ -157,7 +157,14 @@ def _solve_here(
     except ProblemError as exc:
         raise invalid([FieldIssue(exc.field, exc.message)]) from exc
     parent = None if previous is None else previous.id
-    out = plan_to_wire(plan, plan_id=None, created_at=utc_now(), parent_id=parent, request=request)
+    out = plan_to_wire(
+        plan,
+        plan_id=None,
+        created_at=utc_now(),
+        parent_id=parent,
+        request=request,
+        shortfalls=explain_shortfalls(problem, plan.carriers),
+    )
     return out, _render_here(plan, problem, formats, previous)
 
 

@@ -131,7 +131,8 @@ def exit_code_for(plan: PlanOut) -> ExitCode:
 
 def summary_table(plan: PlanOut) -> str:
     """A readable table of the plan: one line per carrier (``*``: retuned), then unserved
-    demands, totals and the plan's cautions.
+    demands, carriers below their target (what binds them, what would lift them), totals and
+    the plan's cautions.
 
     Parameters
     ----------
@@ -166,9 +167,34 @@ def summary_table(plan: PlanOut) -> str:
     if any(c.retuned for c in plan.carriers):
         lines.append(f"{RETUNED_MARK} retuned: moved or reconfigured from its current setting")
     lines.extend(f"unserved {u.demand_id}: {u.reason.value} ({u.detail})" for u in plan.unserved)
+    lines.extend(_below_target(plan))
     lines.extend(_totals(plan))
     lines.extend(f"note: {n}" for n in plan.notices)
     return "\n".join(lines) + "\n"
+
+
+def _below_target(plan: PlanOut) -> list[str]:
+    """One line per carrier below its target, by centre: what binds it (and what else does),
+    the lifts that apply, and why in words."""
+    lines = []
+    for c in sorted(plan.carriers, key=lambda c: c.center_hz):
+        if c.limited_by is None:
+            continue
+        also = (
+            f" (also {', '.join(a.value for a in c.also_limited_by)})" if c.also_limited_by else ""
+        )
+        lifts = []
+        if c.spectrum_to_target_hz is not None:
+            lifts.append(f"+{c.spectrum_to_target_hz / KHZ:.1f} kHz spectrum")
+        if c.esn0_to_target_db is not None:
+            lifts.append(f"Es/N0 {c.esn0_to_target_db:.2f} dB")
+        if c.symbol_rate_needed_baud is not None:
+            lifts.append(f"Rs {c.symbol_rate_needed_baud / MHZ:.4f} Mbaud")
+        lifted = f"; to target: {', '.join(lifts)}" if lifts else ""
+        lines.append(
+            f"below target {c.demand_id}: {c.limited_by.value}{also}{lifted} ({c.limit_detail})"
+        )
+    return lines
 
 
 def _totals(plan: PlanOut) -> list[str]:

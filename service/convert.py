@@ -9,6 +9,7 @@ give the solver the same thing.
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import asdict
 from datetime import datetime
 from typing import Protocol
@@ -46,6 +47,7 @@ from solver import (
     PlanSummary,
     Problem,
     ProgressEvent,
+    Shortfall,
     SolveStats,
     Transmitter,
     Unserved,
@@ -156,9 +158,12 @@ def plan_to_wire(
     created_at: datetime,
     parent_id: str | None,
     request: PlanRequest | None = None,
+    shortfalls: Mapping[str, Shortfall] | None = None,
 ) -> PlanOut:
     """Convert a solved plan to its wire form, adding the identity the store gives it, and,
-    given its ``request``, an echo of it and each carrier's demand figures (rates, priority)."""
+    given its ``request``, an echo of it and each carrier's demand figures (rates, priority);
+    given ``shortfalls`` (:func:`solver.explain_shortfalls`), each carrier below its target with
+    what binds it and what would lift it."""
     s, st = plan.summary, plan.stats
     summary = SummaryOut(
         used_bandwidth_hz=s.used_bandwidth_hz,
@@ -191,7 +196,9 @@ def plan_to_wire(
         created_at=created_at,
         parent_id=parent_id,
         status=plan.status,
-        carriers=_with_demands([carrier_to_wire(c) for c in plan.carriers], request),
+        carriers=_with_shortfalls(
+            _with_demands([carrier_to_wire(c) for c in plan.carriers], request), shortfalls or {}
+        ),
         unserved=[
             UnservedOut(demand_id=u.demand_id, reason=u.reason, detail=u.detail)
             for u in plan.unserved
@@ -220,6 +227,28 @@ def _with_demands(carriers: list[CarrierOut], request: PlanRequest | None) -> li
         else c
         for c in carriers
     ]
+
+
+def _with_shortfalls(
+    carriers: list[CarrierOut], shortfalls: Mapping[str, Shortfall]
+) -> list[CarrierOut]:
+    """Each carrier below its target with its limit, its lifts and the line in words."""
+    out = []
+    for c in carriers:
+        found = shortfalls.get(c.demand_id)
+        if found is not None:
+            c = c.model_copy(
+                update={
+                    "limited_by": found.limited_by,
+                    "also_limited_by": list(found.also),
+                    "spectrum_to_target_hz": finite_or_none(found.spectrum_to_target_hz),
+                    "esn0_to_target_db": finite_or_none(found.esn0_to_target_db),
+                    "symbol_rate_needed_baud": finite_or_none(found.symbol_rate_needed_baud),
+                    "limit_detail": found.detail,
+                }
+            )
+        out.append(c)
+    return out
 
 
 def plan_from_wire(out: PlanOut) -> Plan:

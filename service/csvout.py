@@ -1,8 +1,10 @@
 """A plan's carriers as CSV (RFC 4180): one header row, then one row per carrier by centre.
 
 Column names carry their units (``_hz``, ``_baud``, ``_db``, ``_pct``, ``_bps``); a null value
-is an empty cell; ``retuned`` is ``true`` or ``false``.  The plan's cautions (its ``notices``)
-are not in the CSV, which has no place for comments: they apply to every row all the same.
+is an empty cell; ``retuned`` is ``true`` or ``false``; a carrier below its target says what
+binds it (``limited_by``, ``also_limited_by`` joined by ``;``) and what would lift it.  The
+plan's cautions (its ``notices``) are not in the CSV, which has no place for comments: they
+apply to every row all the same.
 """
 
 from __future__ import annotations
@@ -38,19 +40,31 @@ CSV_COLUMNS: tuple[str, ...] = (
     "guard_below_hz",
     "guard_above_hz",
     "retuned",
+    "limited_by",
+    "also_limited_by",
+    "spectrum_to_target_hz",
+    "esn0_to_target_db",
+    "symbol_rate_needed_baud",
+    "limit_detail",
 )
 """The header row: names of :class:`~service.schemas.CarrierOut` fields, units in the names."""
+
+LIST_SEPARATOR = ";"
+"""Joins the entries of a list field (``also_limited_by``) in one cell."""
 
 
 def _cell(value: object) -> str:
     """One cell: empty for null, ``true``/``false`` for a flag, an enum's value, else ``str``
-    (for a float the shortest text that reads back to the same number)."""
+    a list's entries joined by :data:`LIST_SEPARATOR` (for a float the shortest text that reads
+    back to the same number)."""
     if value is None:
         return ""
     if isinstance(value, bool):
         return "true" if value else "false"
     if isinstance(value, Enum):
         return str(value.value)
+    if isinstance(value, list):
+        return LIST_SEPARATOR.join(_cell(v) for v in value)
     return str(value)
 
 

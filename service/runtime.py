@@ -30,7 +30,7 @@ from service.schemas import JobOut, PlanOut, PlanRequest
 from service.settings import Settings
 from service.store import Store, StoreUnavailableError, utc_now
 from service.worksize import check_work_size
-from solver import Plan, Problem, ProblemError, ProgressEvent
+from solver import Plan, Problem, ProblemError, ProgressEvent, explain_shortfalls
 
 __all__ = [
     "JobQueue",
@@ -129,13 +129,15 @@ STORE_RETRIES_S = (0.25, 0.5, 1.0, 2.0)
 
 
 def wire_plan(prepared: PreparedSolve, plan: Plan) -> PlanOut:
-    """The plan on the wire with a new id, the time, its parent and its request."""
+    """The plan on the wire with a new id, the time, its parent, its request, and for each
+    carrier below its target what binds it (:func:`solver.explain_shortfalls`)."""
     return plan_to_wire(
         plan,
         plan_id=new_id(),
         created_at=utc_now(),
         parent_id=prepared.parent_id,
         request=prepared.request,
+        shortfalls=explain_shortfalls(prepared.problem, plan.carriers),
     )
 
 

@@ -19,6 +19,7 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationInfo, field_validat
 from service.errors import FieldIssue
 from solver import (
     AmplifierModel,
+    LimitedBy,
     Modulation,
     Objective,
     ProblemError,
@@ -471,6 +472,32 @@ class CarrierOut(BaseModel):
     min_rate_bps: float | None = Field(None, description="its demand's least useful rate (bit/s)")
     target_rate_bps: float | None = Field(None, description="its demand's wanted rate (bit/s)")
     priority: int | None = Field(None, description="its demand's priority (higher first)")
+    limited_by: LimitedBy | None = Field(
+        None,
+        description="below its target: the limit that binds first (unused-room, equipment, "
+        "modcod-table, neighbour, spectrum, link, in that order); null: at target",
+    )
+    also_limited_by: list[LimitedBy] | None = Field(
+        None, description="below its target: the other limits that also hold; null: at target"
+    )
+    spectrum_to_target_hz: float | None = Field(
+        None,
+        description="extra spectrum beside it (Hz) with which its best configuration reaches "
+        "the target and the plan still verifies; null: at target, or no width would do",
+    )
+    esn0_to_target_db: float | None = Field(
+        None,
+        description="stated Es/N0 (dB; for a C/N0 link at its current symbol rate) with which "
+        "it would reach the target in its current width; null: not the lever",
+    )
+    symbol_rate_needed_baud: float | None = Field(
+        None,
+        description="symbol rate (baud) the target needs above its profile's maximum; null: "
+        "not an equipment limit",
+    )
+    limit_detail: str | None = Field(
+        None, description="below its target: why, in one line; null: at target"
+    )
 
 
 class UnservedOut(BaseModel):

@@ -7,6 +7,7 @@ imports only these.  The physics floor (spectra, amplifiers, MODCODs, link budge
 
 from solver.equipment import DEFAULT_SET, carrier_emission_key, modcod_table
 from solver.evaluate import CarrierEvaluation, LeakageAtGap, evaluate_carrier
+from solver.explain import LimitedBy, Shortfall, explain_shortfalls
 from solver.model import (
     Amplifier,
     AmplifierModel,
@@ -68,6 +69,7 @@ __all__ = [
     "Exclusion",
     "HandComparison",
     "LeakageAtGap",
+    "LimitedBy",
     "ModcodEntry",
     "ModcodRow",
     "Modulation",
@@ -78,6 +80,7 @@ __all__ = [
     "ProblemError",
     "ProgressEvent",
     "SettingChange",
+    "Shortfall",
     "SolveCancelledError",
     "SolveStats",
     "SolveStatus",
@@ -93,6 +96,7 @@ __all__ = [
     "catalogue",
     "configuration_bound",
     "evaluate_carrier",
+    "explain_shortfalls",
     "format_code_rate",
     "get_profile",
     "hand_comparison",

@@ -979,33 +979,22 @@ def _not_proven(problem: Problem, verdict: Judgement) -> list[str]:
     return said
 
 
-LINK_LIMIT_DB = 0.05
-"""A served power-limited demand with no more margin than this beyond its own is at its link
-limit: a wider carrier at the same MODCOD would not close."""
-
-
 def _below_target(problem: Problem, carriers: Sequence[Carrier]) -> list[str]:
-    """Which served demands run below their target, and why (so that spectrum left free beside
-    them is explained): at the link limit, or for want of room where they sit."""
+    """Which served demands run below their target (so that spectrum left free beside them is
+    noticed); what binds each, and what would lift it, is :func:`solver.explain_shortfalls`'s
+    to say, carrier by carrier."""
     demands = {d.id: d for d in problem.demands}
-    limited: list[str] = []
-    crowded: list[str] = []
-    for c in carriers:
-        demand = demands[c.demand_id]
-        if c.config.throughput_bps >= demand.target_rate_bps * (1 - 1e-6):
-            continue
-        excess = c.config.esn0_db - c.config.required_esn0_db - demand.margin_db
-        at_limit = demand.cn0_dbhz is not None and excess <= LINK_LIMIT_DB
-        (limited if at_limit else crowded).append(c.demand_id)
-    said = []
-    if limited:
-        said.append(
-            f"Below target at their link limit (a wider carrier would not close): "
-            f"{_names(limited)}."
-        )
-    if crowded:
-        said.append(f"Below target for want of room beside their neighbours: {_names(crowded)}.")
-    return said
+    below = [
+        c.demand_id
+        for c in carriers
+        if c.config.throughput_bps < demands[c.demand_id].target_rate_bps * (1 - 1e-6)
+    ]
+    if not below:
+        return []
+    return [
+        f"Below target: {_names(below)} (each such carrier says what binds it and what would "
+        "lift it)."
+    ]
 
 
 def _names(ids: Sequence[str], shown: int = 6) -> str:

@@ -46,6 +46,13 @@ CSV_HEADER = [  # the columns the project's issue asks for, in its order
     "guard_below_hz",
     "guard_above_hz",
     "retuned",
+    # then, for a carrier below its target, what binds it and what would lift it
+    "limited_by",
+    "also_limited_by",
+    "spectrum_to_target_hz",
+    "esn0_to_target_db",
+    "symbol_rate_needed_baud",
+    "limit_detail",
 ]
 
 REQUEST: dict[str, Any] = {
@@ -369,6 +376,8 @@ def _assert_csv_is_the_plan(raw: bytes, plan: dict[str, Any]) -> None:
                 assert cell == str(value).lower(), column
             elif isinstance(value, float):
                 assert float(cell) == value, column  # no rounding on the way
+            elif isinstance(value, list):
+                assert cell == ";".join(value), column
             else:
                 assert cell == str(value), column
 
