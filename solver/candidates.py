@@ -557,6 +557,7 @@ def _family(
         leakage_guard_per_baud=float(g.leakage_guard_per_baud[i]),
         key=combos.keys[c],
         symbol_rate_step_baud=combos.profile.symbol_rate_step_baud,
+        symbol_rate_max_baud=combos.profile.symbol_rate_max_baud,
     )
 
 
@@ -800,6 +801,7 @@ def _single_family(
     leakage_guard_per_baud: float,
 ) -> Family:
     """``config`` as a family of one width (the even raster slot that holds it)."""
+    profile = equipment.profile_for(problem, demand)
     raster = problem.block.raster_hz
     width = int(_even_units(np.array([config.allocated_bandwidth_hz]), raster)[0])
     half = max(width // 2, 1)
@@ -812,7 +814,8 @@ def _single_family(
         sensitivity_db=sensitivity_db,
         leakage_guard_per_baud=leakage_guard_per_baud,
         key=key,
-        symbol_rate_step_baud=equipment.profile_for(problem, demand).symbol_rate_step_baud,
+        symbol_rate_step_baud=profile.symbol_rate_step_baud,
+        symbol_rate_max_baud=profile.symbol_rate_max_baud,
     )
 
 

@@ -194,3 +194,22 @@ def test_a_carrier_reports_its_backoff_and_floor() -> None:
     expected = distortion.bussgang(Amplifier(smoothness=2.0, output_backoff_db=8.0)).evm_pct
     assert cfg.evm_pct == pytest.approx(expected)
     assert cfg.esn0_db < cfg.thermal_esn0_db
+
+
+@pytest.mark.parametrize("step_baud", [0.0, 1_000.0])
+def test_no_plan_rate_exceeds_the_equipment_maximum(step_baud: float) -> None:
+    # Strong links and targets far above what 1 Mbaud carries: every carrier wants more rate
+    # than the radio has, and the block leaves room to widen, so the packer's finer widths
+    # reach the top of each family.
+    radio = _radio(
+        symbol_rate_step_baud=step_baud,
+        symbol_rate_max_baud=1e6,
+        output_backoffs_db=(),
+        amplifier=None,
+        reference_backoff_db=None,
+    )
+    demands = tuple(Demand(f"w{k}", 1e6, 40e6, esn0_db=25.0 + k, profile="radio") for k in range(3))
+    plan = solve(_problem(radio, *demands))
+    assert len(plan.carriers) == 3
+    for c in plan.carriers:
+        assert c.config.symbol_rate_baud <= 1e6 * (1 + 1e-12), c.config.symbol_rate_baud

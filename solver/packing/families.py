@@ -104,6 +104,8 @@ class Family:
     key: emission.EmissionKey | None = None
     symbol_rate_step_baud: float = 0.0
     """The equipment's symbol-rate step (0: any rate); scaled rates are rounded down to it."""
+    symbol_rate_max_baud: float = math.inf
+    """The equipment's highest symbol rate; no scaled rate goes above it."""
     memo: dict[object, float] = field(
         default_factory=dict, init=False, compare=False, hash=False, repr=False
     )
@@ -145,9 +147,14 @@ class Family:
         when power-limited), guarded for a segment at ``level_db``."""
         top = self.top.config
         step = self.symbol_rate_step_baud
+        rate = min(
+            top.symbol_rate_baud * scale, max(self.symbol_rate_max_baud, top.symbol_rate_baud)
+        )
         if step > 0 and scale != 1.0:  # the top is on the grid; a scaled rate is rounded down
-            scale = max(math.floor(top.symbol_rate_baud * scale / step + 1e-9), 1) * step
-            scale /= top.symbol_rate_baud
+            rate = max(math.floor(rate / step + 1e-9), 1) * step  # exactly k·step
+        elif scale == 1.0:
+            rate = top.symbol_rate_baud
+        scale = rate / top.symbol_rate_baud
         thermal = top.esn0_db if top.thermal_esn0_db is None else top.thermal_esn0_db
         if self.power_limited:
             thermal -= 10.0 * math.log10(scale)
@@ -158,7 +165,7 @@ class Family:
         )
         return replace(
             top,
-            symbol_rate_baud=top.symbol_rate_baud * scale,
+            symbol_rate_baud=rate,
             allocated_bandwidth_hz=top.allocated_bandwidth_hz * scale,
             occupied_bandwidth_hz=top.occupied_bandwidth_hz * scale,
             guard_hz=self.guard_hz(level_db) * scale,

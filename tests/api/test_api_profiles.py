@@ -57,7 +57,8 @@ async def test_a_plan_on_a_profile_reports_backoff_evm_and_grid(solving_app: Fas
         assert c["output_backoff_db"] in (6.0, 8.0)
         assert c["evm_pct"] >= 2.0  # the transmitter's floor, plus the amplifier's distortion
         assert c["esn0_db"] < c["thermal_esn0_db"]
-        assert c["symbol_rate_baud"] % 1000 == pytest.approx(0.0, abs=1e-6)
+        steps = c["symbol_rate_baud"] / 1000  # whole steps of the radio's 1 kbaud grid
+        assert steps == pytest.approx(round(steps), abs=1e-9)
 
 
 @pytest.mark.parametrize(
