@@ -18,7 +18,7 @@ from typing import Literal
 from service.convert import finite_or_none
 from service.csvout import carriers_csv
 from service.errors import FieldIssue
-from service.schemas import PlanOut
+from service.schemas import PlanOut, SpectrumGainOut
 from solver import ProgressEvent, SolveStatus
 
 __all__ = [
@@ -166,6 +166,7 @@ def summary_table(plan: PlanOut) -> str:
         lines.append(f"{RETUNED_MARK} retuned: moved or reconfigured from its current setting")
     lines.extend(f"unserved {u.demand_id}: {u.reason.value} ({u.detail})" for u in plan.unserved)
     lines.append(_totals(plan))
+    lines.extend(_value_lines(plan))
     lines.extend(f"note: {n}" for n in plan.notices)
     return "\n".join(lines) + "\n"
 
@@ -180,6 +181,33 @@ def _totals(plan: PlanOut) -> str:
         f"bit/s/Hz, {s.efficiency_vs_bound * PERCENT:.1f} % of the bound; gap {gap}; "
         f"solved in {s.solve_time_s:.2f} s"
     )
+
+
+def _gain_text(g: SpectrumGainOut) -> str:
+    """A gain per MHz as bound (method) and achieved (method), in Mbit/s per MHz."""
+    achieved = (
+        "achieved —"
+        if g.achieved_bps_per_mhz is None
+        else f"achieved {g.achieved_bps_per_mhz / MHZ:.3f} ({g.achieved_method})"
+    )
+    return f"bound {g.bound_bps_per_mhz / MHZ:.3f} ({g.bound_method}), {achieved}"
+
+
+def _value_lines(plan: PlanOut) -> list[str]:
+    """What more spectrum is worth, in Mbit/s per MHz: each edge, then each exclusion."""
+    v = plan.summary.spectrum_value
+    if v is None:
+        return []
+    lines = [
+        f"spectrum value (Mbit/s per MHz, {v.step_hz / MHZ:.3f} MHz step): "
+        f"lower edge {_gain_text(v.lower_edge)}; upper edge {_gain_text(v.upper_edge)}"
+    ]
+    for x in v.exclusions:
+        note = f" {x.note!r}" if x.note else ""
+        lines.append(f"  exclusion {x.index}{note} ({x.freed_hz / MHZ:.3f} MHz): {_gain_text(x)}")
+    if v.achieved_note:
+        lines.append(f"  ({v.achieved_note})")
+    return lines
 
 
 def retune_line(plan: PlanOut) -> str:

@@ -12,6 +12,10 @@ import math
 from dataclasses import dataclass, field
 from enum import StrEnum
 from fractions import Fraction
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from solver.spectrum_value import SpectrumValue
 
 __all__ = [
     "Amplifier",
@@ -455,6 +459,8 @@ class PlanSummary:
     shannon_bound_bps: float
     efficiency_vs_bound: float
     retune_count: int
+    spectrum_value: SpectrumValue | None = None
+    """What more spectrum is worth (:mod:`solver.spectrum_value`); None when not computed."""
 
 
 @dataclass(frozen=True)
