@@ -185,12 +185,14 @@ def _totals(plan: PlanOut) -> str:
 
 def _gain_text(g: SpectrumGainOut) -> str:
     """A gain per MHz as bound (method) and achieved (method), in Mbit/s per MHz."""
-    achieved = (
-        "achieved —"
-        if g.achieved_bps_per_mhz is None
-        else f"achieved {g.achieved_bps_per_mhz / MHZ:.3f} ({g.achieved_method})"
-    )
-    return f"bound {g.bound_bps_per_mhz / MHZ:.3f} ({g.bound_method}), {achieved}"
+
+    def mbps(value: float | None) -> str:
+        return "—" if value is None else f"{value / MHZ:.3f}"
+
+    achieved = f"achieved {mbps(g.achieved_bps_per_mhz)}"
+    if g.achieved_method is not None:
+        achieved += f" ({g.achieved_method})"
+    return f"bound {mbps(g.bound_bps_per_mhz)} ({g.bound_method}), {achieved}"
 
 
 def _value_lines(plan: PlanOut) -> list[str]:

@@ -487,7 +487,9 @@ class SpectrumGainOut(BaseModel):
         "(bit/s); 0 when the bound already meets every target, though a plan below the bound "
         "may still gain"
     )
-    bound_bps_per_mhz: float = Field(description="bound gain per MHz freed (bit/s per MHz)")
+    bound_bps_per_mhz: float | None = Field(
+        description="bound gain per MHz freed (bit/s per MHz); null: less than 1 Hz freed"
+    )
     bound_method: SpectrumValueMethod = Field(
         description="relaxation-dual: the bound's dual value, exact over the step; "
         "relaxation-resolve: the bound solved again with the width added"
@@ -498,7 +500,9 @@ class SpectrumGainOut(BaseModel):
         "warm-started local search (bit/s, never negative); null: not computed",
     )
     achieved_bps_per_mhz: float | None = Field(
-        None, description="achieved gain per MHz freed (bit/s per MHz); null: not computed"
+        None,
+        description="achieved gain per MHz freed (bit/s per MHz); null: not computed, or "
+        "less than 1 Hz freed",
     )
     achieved_method: SpectrumValueMethod | None = Field(
         None, description="plan-upgrade when an achieved gain is given"

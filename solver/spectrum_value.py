@@ -133,16 +133,26 @@ class SpectrumGain:
     achieved_method: ValueMethod | None = None
 
     @property
-    def bound_bps_per_mhz(self) -> float:
-        """Bound gain per MHz freed, bit/s per MHz."""
-        return self.bound_gain_bps / (self.freed_hz / MHZ) if self.freed_hz > 0 else 0.0
+    def bound_bps_per_mhz(self) -> float | None:
+        """Bound gain per MHz freed, bit/s per MHz (None when under :data:`LEAST_FREED_HZ`)."""
+        return _per_mhz(self.bound_gain_bps, self.freed_hz)
 
     @property
     def achieved_bps_per_mhz(self) -> float | None:
-        """Achieved gain per MHz freed, bit/s per MHz (None when not computed)."""
+        """Achieved gain per MHz freed, bit/s per MHz (None when not computed, or when the
+        width is under :data:`LEAST_FREED_HZ`)."""
         if self.achieved_gain_bps is None:
             return None
-        return self.achieved_gain_bps / (self.freed_hz / MHZ) if self.freed_hz > 0 else 0.0
+        return _per_mhz(self.achieved_gain_bps, self.freed_hz)
+
+
+LEAST_FREED_HZ = 1.0
+"""Freed widths narrower than this (Hz) get no per-MHz figure: a rate per MHz of a sliver
+that narrow is meaningless (and its quotient may overflow)."""
+
+
+def _per_mhz(gain_bps: float, freed_hz: float) -> float | None:
+    return gain_bps / freed_hz * MHZ if freed_hz >= LEAST_FREED_HZ else None
 
 
 @dataclass(frozen=True)

@@ -15,6 +15,7 @@ from solver import Block, Demand, Exclusion, Objective, Problem, Transmitter, so
 from solver.candidates import every_family
 from solver.physics.bounds import shannon_nyquist_bound
 from solver.spectrum_value import (
+    SpectrumGain,
     ValueMethod,
     bound_gain,
     marginal_rate,
@@ -216,6 +217,14 @@ def test_removing_an_exclusion_never_loses(
     gain, _ = bound_gain(usable_hz, freed_hz, demands)
     more, _ = bound_gain(usable_hz, freed_hz * 1.5 + 1e3, demands)
     assert 0.0 <= gain <= more * (1 + 1e-9) + 1e-6
+
+
+def test_a_sliver_gets_no_rate_per_mhz() -> None:
+    # Found by the API fuzz run: an exclusion 5e-324 Hz wide divided by zero.  Gain and
+    # width are kept; the per-MHz figures are None under 1 Hz.
+    gain = SpectrumGain(5e-324, 0.0, ValueMethod.RELAXATION_RESOLVE, 0.0, ValueMethod.PLAN_UPGRADE)
+    assert (gain.bound_bps_per_mhz, gain.achieved_bps_per_mhz) == (None, None)
+    assert SpectrumGain(2e6, 3e6, ValueMethod.RELAXATION_DUAL).bound_bps_per_mhz == 1.5e6
 
 
 def test_a_negative_width_is_refused() -> None:

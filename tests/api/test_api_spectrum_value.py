@@ -39,7 +39,7 @@ async def test_spectrum_value_on_the_wire_and_in_the_summary(solving_app: FastAP
         assert f["bound_method"] in METHODS - {"plan-upgrade"}
         assert f["bound_gain_bps"] >= 0.0
         # per MHz = gain / freed width in MHz
-        assert f["bound_bps_per_mhz"] == pytest.approx(f["bound_gain_bps"] / (f["freed_hz"] / 1e6))
+        assert f["bound_bps_per_mhz"] == pytest.approx(f["bound_gain_bps"] / f["freed_hz"] * 1e6)
         if f["achieved_gain_bps"] is None:
             assert f["achieved_method"] is None and value["achieved_note"]
         else:
