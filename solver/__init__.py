@@ -41,7 +41,7 @@ from solver.physics.modcod import ModcodEntry, catalogue
 from solver.physics.modcodsets import MODCOD_SET_NAMES
 from solver.planner import solve
 from solver.rules import rule_of_thumb_plan
-from solver.spectrum_value import SpectrumGain, SpectrumValue
+from solver.spectrum_figures import SpectrumGain, SpectrumValue
 from solver.summary import CAUTIONS, SettingChange, setting_change
 from solver.validation import validate_problem
 from solver.verify import Verification, Violation, verify_plan

@@ -12,10 +12,8 @@ import math
 from dataclasses import dataclass, field
 from enum import StrEnum
 from fractions import Fraction
-from typing import TYPE_CHECKING
 
-if TYPE_CHECKING:
-    from solver.spectrum_value import SpectrumValue
+from solver.spectrum_figures import SpectrumValue
 
 __all__ = [
     "Amplifier",
