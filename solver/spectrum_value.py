@@ -43,6 +43,14 @@ Two figures per change, never mixed up:
   reported at a machine-speed-dependent value, and :attr:`SpectrumValue.achieved_note` says
   why.
 
+Why not the planner's own bound (:func:`solver.packing.spacing.throughput_bound`, the linear
+or mixed-integer programme over real MODCOD families with guards)?  Its objective is weighted
+by priority and exists only for ``max_throughput``; its mixed-integer version has no dual
+values at all (``scipy.optimize.milp`` returns none), and the relaxation's dual on a stretch's
+length row prices one grid unit, not a megahertz over which the active families change.  The
+Shannon–Nyquist relaxation is in plain bit/s for every objective, and its dual is exact
+where stated above.
+
 Both gains count each demand's throughput capped at its target (bit/s), as the bound does.
 The step is 1 MHz rounded to a whole number of raster steps (:func:`step_hz`); per-MHz figures
 divide the gain by the freed width in MHz.
