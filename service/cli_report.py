@@ -18,7 +18,7 @@ from typing import Literal
 from service.convert import finite_or_none
 from service.csvout import carriers_csv
 from service.errors import FieldIssue
-from service.schemas import PlanOut
+from service.schemas import PlanOut, SpectrumGainOut
 from solver import ProgressEvent, SolveStatus
 
 __all__ = [
@@ -169,6 +169,7 @@ def summary_table(plan: PlanOut) -> str:
     lines.extend(f"unserved {u.demand_id}: {u.reason.value} ({u.detail})" for u in plan.unserved)
     lines.extend(_below_target(plan))
     lines.extend(_totals(plan))
+    lines.extend(_value_lines(plan))
     lines.extend(f"note: {n}" for n in plan.notices)
     return "\n".join(lines) + "\n"
 
@@ -223,6 +224,35 @@ def _totals(plan: PlanOut) -> list[str]:
             f"{hand.served_demands} of {demands} demands, {hand.throughput_bps / MHZ:.3f} Mbit/s "
             f"in {hand.used_bandwidth_hz / MHZ:.4f} MHz; this plan carries {ratio} as much"
         )
+    return lines
+
+
+def _gain_text(g: SpectrumGainOut) -> str:
+    """A gain per MHz as bound (method) and achieved (method), in Mbit/s per MHz."""
+
+    def mbps(value: float | None) -> str:
+        return "—" if value is None else f"{value / MHZ:.3f}"
+
+    achieved = f"achieved {mbps(g.achieved_bps_per_mhz)}"
+    if g.achieved_method is not None:
+        achieved += f" ({g.achieved_method})"
+    return f"bound {mbps(g.bound_bps_per_mhz)} ({g.bound_method}), {achieved}"
+
+
+def _value_lines(plan: PlanOut) -> list[str]:
+    """What more spectrum is worth, in Mbit/s per MHz: each edge, then each exclusion."""
+    v = plan.summary.spectrum_value
+    if v is None:
+        return []
+    lines = [
+        f"spectrum value (Mbit/s per MHz, {v.step_hz / MHZ:.3f} MHz step): "
+        f"lower edge {_gain_text(v.lower_edge)}; upper edge {_gain_text(v.upper_edge)}"
+    ]
+    for x in v.exclusions:
+        note = f" {x.note!r}" if x.note else ""
+        lines.append(f"  exclusion {x.index}{note} ({x.freed_hz / MHZ:.3f} MHz): {_gain_text(x)}")
+    if v.achieved_note:
+        lines.append(f"  ({v.achieved_note})")
     return lines
 
 

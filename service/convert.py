@@ -12,7 +12,7 @@ import math
 from collections.abc import Mapping
 from dataclasses import asdict
 from datetime import datetime
-from typing import Protocol
+from typing import Any, Protocol
 
 from service.errors import InvalidInputError
 from service.schemas import (
@@ -21,12 +21,15 @@ from service.schemas import (
     CodingIn,
     DemandIn,
     EquipmentProfileIn,
+    ExclusionValueOut,
     HandMethodOut,
     JobProgress,
     LeakageOut,
     PlanOut,
     PlanRequest,
     SolverOut,
+    SpectrumGainOut,
+    SpectrumValueOut,
     SummaryOut,
     UnservedOut,
 )
@@ -49,6 +52,8 @@ from solver import (
     ProgressEvent,
     Shortfall,
     SolveStats,
+    SpectrumGain,
+    SpectrumValue,
     Transmitter,
     Unserved,
     format_code_rate,
@@ -183,6 +188,7 @@ def plan_to_wire(
         optimality_gap=finite_or_none(st.optimality_gap),
         solve_time_s=st.solve_time_s,
         retune_count=s.retune_count,
+        spectrum_value=_value_to_wire(s.spectrum_value),
     )
     solver = SolverOut(
         num_workers=st.num_workers,
@@ -207,6 +213,34 @@ def plan_to_wire(
         solver=solver,
         notices=list(plan.notices),
         request=request,
+    )
+
+
+def _gain_fields(g: SpectrumGain) -> dict[str, Any]:
+    return {
+        "freed_hz": g.freed_hz,
+        "bound_gain_bps": g.bound_gain_bps,
+        "bound_bps_per_mhz": g.bound_bps_per_mhz,
+        "bound_method": g.bound_method.value,
+        "achieved_gain_bps": g.achieved_gain_bps,
+        "achieved_bps_per_mhz": g.achieved_bps_per_mhz,
+        "achieved_method": None if g.achieved_method is None else g.achieved_method.value,
+    }
+
+
+def _value_to_wire(v: SpectrumValue | None) -> SpectrumValueOut | None:
+    """The plan's spectrum value on the wire (None when the plan has none)."""
+    if v is None:
+        return None
+    return SpectrumValueOut(
+        step_hz=v.step_hz,
+        lower_edge=SpectrumGainOut(**_gain_fields(v.lower_edge)),
+        upper_edge=SpectrumGainOut(**_gain_fields(v.upper_edge)),
+        exclusions=[
+            ExclusionValueOut(index=x.index, note=x.note, **_gain_fields(x.gain))
+            for x in v.exclusions
+        ],
+        achieved_note=v.achieved_note,
     )
 
 

@@ -523,6 +523,59 @@ class HandMethodOut(BaseModel):
     )
 
 
+SpectrumValueMethod = Literal["relaxation-dual", "relaxation-resolve", "plan-upgrade"]
+
+
+class SpectrumGainOut(BaseModel):
+    """What one change of spectrum is worth: a bound figure and, where computed, an achieved one."""
+
+    freed_hz: float = Field(description="width the change adds to the usable block (Hz)")
+    bound_gain_bps: float = Field(
+        description="gain of target_capped_bound_bps (ideal carriers, no guards) "
+        "(bit/s); 0 when the bound already meets every target, though a plan below the bound "
+        "may still gain"
+    )
+    bound_bps_per_mhz: float | None = Field(
+        description="bound gain per MHz freed (bit/s per MHz); null: less than 1 Hz freed"
+    )
+    bound_method: SpectrumValueMethod = Field(
+        description="relaxation-dual: the bound's dual value, exact over the step; "
+        "relaxation-resolve: the bound solved again with the width added"
+    )
+    achieved_gain_bps: float | None = Field(
+        None,
+        description="target-capped throughput this plan gains with the change by a verified, "
+        "warm-started local search (bit/s, never negative); null: not computed",
+    )
+    achieved_bps_per_mhz: float | None = Field(
+        None,
+        description="achieved gain per MHz freed (bit/s per MHz); null: not computed, or "
+        "less than 1 Hz freed",
+    )
+    achieved_method: SpectrumValueMethod | None = Field(
+        None, description="plan-upgrade when an achieved gain is given"
+    )
+
+
+class ExclusionValueOut(SpectrumGainOut):
+    """What removing one exclusion is worth."""
+
+    index: int = Field(description="position of the exclusion in block.exclusions")
+    note: str = Field(description="the exclusion's note")
+
+
+class SpectrumValueOut(BaseModel):
+    """The marginal throughput of spectrum: more at each block edge, or an exclusion removed."""
+
+    step_hz: float = Field(description="width added at each edge: 1 MHz on the raster (Hz)")
+    lower_edge: SpectrumGainOut = Field(description="the block's start moved down by step_hz")
+    upper_edge: SpectrumGainOut = Field(description="the block's stop moved up by step_hz")
+    exclusions: list[ExclusionValueOut] = Field(description="each exclusion removed, alone")
+    achieved_note: str = Field(
+        "", description="why achieved figures are missing or what they start from; empty: none"
+    )
+
+
 class SummaryOut(BaseModel):
     """Totals over the plan, how they compare with the bounds, the requested rates and the
     hand method, and the optimiser's figures."""
@@ -560,6 +613,9 @@ class SummaryOut(BaseModel):
     optimality_gap: float | None
     solve_time_s: float
     retune_count: int
+    spectrum_value: SpectrumValueOut | None = Field(
+        None, description="what more spectrum is worth to this plan; null: not computed"
+    )
 
 
 class SolverOut(BaseModel):

@@ -44,6 +44,7 @@ from solver.physics.modcod import ModcodEntry, catalogue
 from solver.physics.modcodsets import MODCOD_SET_NAMES
 from solver.planner import solve
 from solver.rules import hand_comparison, rule_of_thumb_plan
+from solver.spectrum_figures import SpectrumGain, SpectrumValue
 from solver.summary import CAUTIONS, SettingChange, setting_change
 from solver.validation import validate_problem
 from solver.verify import LEAKAGE_TOLERANCE_DB, Verification, Violation, verify_plan
@@ -84,7 +85,9 @@ __all__ = [
     "SolveCancelledError",
     "SolveStats",
     "SolveStatus",
+    "SpectrumGain",
     "SpectrumProfile",
+    "SpectrumValue",
     "Transmitter",
     "Unserved",
     "UnservedReason",

@@ -13,6 +13,8 @@ from dataclasses import dataclass, field
 from enum import StrEnum
 from fractions import Fraction
 
+from solver.spectrum_figures import SpectrumValue
+
 __all__ = [
     "Amplifier",
     "AmplifierModel",
@@ -486,6 +488,8 @@ class PlanSummary:
     retune_count: int
     hand_method: HandComparison | None = None
     """The hand method on the same request; None for the hand plan itself."""
+    spectrum_value: SpectrumValue | None = None
+    """What more spectrum is worth (:mod:`solver.spectrum_value`); None when not computed."""
 
 
 @dataclass(frozen=True)

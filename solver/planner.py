@@ -68,6 +68,7 @@ from solver.packing.arrangement import (
 )
 from solver.repair import drop_until_passing, dropped_notice
 from solver.rules import hand_comparison
+from solver.spectrum_value import ACHIEVED_SHARE, SpectrumValue, spectrum_value
 from solver.squeeze import Rechoice, rechoose, squeeze, undo_rechoices
 from solver.summary import (
     CAUTIONS,
@@ -857,7 +858,25 @@ def solve(
             early = [u for u in outcome.unserved if u.demand_id in pinned]
             kept = _run(budget, options, fixed, early, progress, cancel)
             outcome = _pick_replan(problem, outcome, kept)
-    return _finish(problem, outcome, tell.verified(outcome.carriers), clock.elapsed())
+    verdict = tell.verified(outcome.carriers)
+    value = _spectrum_value(problem, outcome, clock, cancel)
+    plan = _finish(problem, outcome, verdict, clock.elapsed())
+    return replace(plan, summary=replace(plan.summary, spectrum_value=value))
+
+
+def _spectrum_value(
+    problem: Problem, outcome: _Outcome, clock: _Clock, cancel: threading.Event | None
+) -> SpectrumValue:
+    """What more spectrum is worth to this plan (:mod:`solver.spectrum_value`): its achieved
+    figures take at most :data:`~solver.spectrum_value.ACHIEVED_SHARE` of the time limit, and
+    never run past it."""
+    limit = clock.started + problem.time_limit_s
+    deadline = min(limit, time.perf_counter() + ACHIEVED_SHARE * problem.time_limit_s)
+    keep = {d.id for d in problem.demands if d.pinned_center_hz is not None}
+    keep |= {f.carrier.demand_id for f in outcome.fixed}
+    return spectrum_value(
+        problem, outcome.carriers, every_family, keep, deadline=deadline, cancel=cancel
+    )
 
 
 def _with_pinned(
