@@ -27,7 +27,7 @@ from solver import (
     verify_plan,
 )
 from solver.candidates import build_candidates, family_for
-from solver.physics import distortion, emission
+from solver.physics import distortion, emission, inband
 
 RAPP = Amplifier(smoothness=2.0, output_backoff_db=6.0)
 
@@ -122,7 +122,11 @@ def test_more_backoff_lowers_thermal_es_n0_dB_for_dB_and_never_worsens_evm(
     )
     a, b = equipment.backoff_options(radio)
     assert b.esn0_offset_db == pytest.approx(a.esn0_offset_db - extra)  # dB for dB
-    assert b.evm_pct <= a.evm_pct + 1e-9
+    for modulation in (Modulation.QPSK, Modulation.QAM64):
+        louder, quieter = (
+            equipment.carrier_evm_pct(radio, x, modulation, 0.2) for x in (low, low + extra)
+        )
+        assert quieter <= louder + 1e-9
     demand = Demand("c", 1e6, 4e6, cn0_dbhz=cn0, margin_db=0.0, profile="radio")
     problem = _problem(radio, demand)
     configs = [
@@ -159,7 +163,8 @@ def test_a_request_without_profiles_keeps_its_transmitter_and_link_model() -> No
     profile = equipment.profile_for(problem, problem.demands[0])
     assert profile.rolloffs == (0.25,) and profile.amplifier == RAPP
     (only,) = equipment.backoff_options(profile)
-    assert only.evm_pct == 0.0 and only.esn0_offset_db == 0.0
+    assert only.esn0_offset_db == 0.0
+    assert equipment.carrier_evm_pct(profile, None, Modulation.QAM16, 0.25) == 0.0
     assert only.output_backoff_db == RAPP.output_backoff_db
     assert profile.modcod_set == equipment.DEFAULT_SET == "standard"
 
@@ -191,6 +196,11 @@ def test_a_carrier_reports_its_backoff_and_floor() -> None:
     cfg = fam.config
     assert cfg.output_backoff_db == 8.0
     assert cfg.thermal_esn0_db == pytest.approx(80.0 - 60.0 - 2.0)  # 2 dB past the reference
-    expected = distortion.bussgang(Amplifier(smoothness=2.0, output_backoff_db=8.0)).evm_pct
-    assert cfg.evm_pct == pytest.approx(expected)
+    at_8db = Amplifier(smoothness=2.0, output_backoff_db=8.0)
+    span = _radio().filter_span_symbols
+    key = emission.EmissionKey(0.2, span, amplifier=at_8db, modulation=Modulation.QPSK)
+    assert cfg.evm_pct == pytest.approx(inband.decision_distortion(key).evm_pct)
+    # A QPSK carrier peaks far less than a Gaussian signal, and its matched filter drops the
+    # out-of-band part: its floor lies below the Gaussian-input Bussgang figure.
+    assert cfg.evm_pct < distortion.bussgang(at_8db).evm_pct
     assert cfg.esn0_db < cfg.thermal_esn0_db
