@@ -56,6 +56,7 @@ __all__ = [
     "modcod_table",
     "profile_for",
     "profile_named",
+    "quieter",
     "reference_backoff_db",
     "strongest_level_db",
     "transmitter_at",
@@ -237,6 +238,30 @@ def backoff_options(profile: EquipmentProfile) -> tuple[BackoffOption, ...]:
         return (backoff_option(profile, None),)
     allowed = profile.output_backoffs_db or (profile.amplifier.output_backoff_db,)
     return tuple(backoff_option(profile, b) for b in sorted(set(allowed)))
+
+
+def quieter(problem: Problem) -> Problem | None:
+    """``problem`` with no carrier louder than its stated link: each profile's back-offs cut to
+    its reference and above (its quietest one if all are louder), or None when no profile
+    offers a louder back-off.
+
+    Every carrier's protection from its neighbours is sized for the loudest level any of
+    them may run at (:func:`strongest_level_db`); a back-off louder than the reference raises
+    that level for every carrier, whether a plan uses it or not.  The planner therefore also
+    plans this quieter request and keeps the better plan (:func:`solver.planner.solve`).
+    """
+    changed = []
+    for profile in problem.profiles:
+        options = backoff_options(profile)
+        quiet = tuple(o.output_backoff_db for o in options if o.esn0_offset_db <= 0.0)
+        if len(quiet) == len(options):
+            changed.append(profile)
+            continue
+        kept = quiet or (options[-1].output_backoff_db,)
+        changed.append(replace(profile, output_backoffs_db=tuple(b for b in kept if b is not None)))
+    if all(a is b for a, b in zip(changed, problem.profiles, strict=True)):
+        return None
+    return replace(problem, profiles=tuple(changed))
 
 
 _STRONGEST: dict[int, tuple[Problem, float]] = {}

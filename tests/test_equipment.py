@@ -4,6 +4,7 @@ symbol-rate grid (solver/equipment.py and its use by the candidates and the plan
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 from fractions import Fraction
 from typing import get_args
 
@@ -16,6 +17,7 @@ from solver import (
     MODCOD_SET_NAMES,
     Amplifier,
     Block,
+    Coding,
     Demand,
     EquipmentProfile,
     ModcodRow,
@@ -204,3 +206,33 @@ def test_a_carrier_reports_its_backoff_and_floor() -> None:
     # out-of-band part: its floor lies below the Gaussian-input Bussgang figure.
     assert cfg.evm_pct < distortion.bussgang(at_8db).evm_pct
     assert cfg.esn0_db < cfg.thermal_esn0_db
+
+
+def test_the_quieter_request_drops_only_the_louder_backoffs() -> None:
+    demand = Demand("q", 1e6, 4e6, esn0_db=12.0, profile="radio")
+    assert equipment.quieter(_problem(_radio(output_backoffs_db=(6.0, 8.0)), demand)) is None
+    (cut,) = equipment.quieter(_problem(_radio(), demand)).profiles  # type: ignore[union-attr]
+    assert cut.output_backoffs_db == (6.0, 8.0)  # the reference (6 dB) and quieter
+    loud = _radio(output_backoffs_db=(2.0, 4.0), reference_backoff_db=6.0)
+    (only,) = equipment.quieter(_problem(loud, demand)).profiles  # type: ignore[union-attr]
+    assert only.output_backoffs_db == (4.0,)  # none at the reference or quieter: the quietest
+    no_profiles = replace(_problem(_radio(), demand), profiles=())
+    assert equipment.quieter(replace(no_profiles, demands=(replace(demand, profile=""),))) is None
+
+
+def test_a_louder_backoff_is_still_chosen_where_only_it_closes_the_link() -> None:
+    # The radio's lowest entry, TS 38.214 Table 5.1.3.1-2 MCS 0 (QPSK 120/1024), needs the
+    # threshold the physics core computes for it plus the 3 dB margin.  The link is stated 1 dB
+    # short of that at the 6 dB reference, so only the 4 dB back-off (+2 dB) or louder closes
+    # it: the plan must come from the full request, not from its quieter part.
+    lowest = equipment.modcod_table(_radio(), Coding())[0]
+    assert (lowest.modulation, lowest.code_rate) == (Modulation.QPSK, Fraction(120, 1024))
+    stated = lowest.required_esn0_db + 3.0 - 1.0
+    demand = Demand("weak", 0.1e6, 1e6, esn0_db=stated, margin_db=3.0, profile="radio")
+    problem = _problem(_radio(), demand)
+    plan = solve(problem)
+    quiet_plan = solve(equipment.quieter(problem))  # type: ignore[arg-type]
+    assert not quiet_plan.carriers
+    (carrier,) = plan.carriers
+    assert carrier.config.output_backoff_db is not None
+    assert carrier.config.output_backoff_db < 6.0
