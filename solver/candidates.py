@@ -144,7 +144,10 @@ def _combos(
             for rolloff in profile.rolloffs:
                 key = keys[entry.modulation, rolloff]
                 occupied = emission.get_profile(key).occupied_bandwidth()
-                rows.append((entry, rolloff, key, occupied, option))
+                evm = equipment.carrier_evm_pct(
+                    profile, option.output_backoff_db, entry.modulation, rolloff
+                )
+                rows.append((entry, rolloff, key, occupied, option, evm))
     return _Combos(
         modulation=tuple(r[0].modulation for r in rows),
         code_rate=tuple(r[0].code_rate for r in rows),
@@ -156,7 +159,7 @@ def _combos(
         keys=tuple(r[2] for r in rows),
         backoff_db=tuple(r[4].output_backoff_db for r in rows),
         esn0_offset_db=np.array([r[4].esn0_offset_db for r in rows]),
-        evm_pct=np.array([r[4].evm_pct for r in rows]),
+        evm_pct=np.array([r[5] for r in rows]),
         profile=profile,
     )
 
@@ -708,8 +711,9 @@ def family_for(
     table_entry = _entry(problem, profile, modulation, code_rate)
     entry = table_entry.required_esn0_db
     option = equipment.backoff_option(profile, output_backoff_db)
+    evm = equipment.carrier_evm_pct(profile, option.output_backoff_db, modulation, rolloff)
     throughput = symbol_rate_baud * table_entry.net_bits_per_symbol
-    thermal, esn0 = _link_at(demand, option, symbol_rate_baud)
+    thermal, esn0 = _link_at(demand, option, evm, symbol_rate_baud)
     if throughput < demand.min_rate_bps * (1 - 1e-9) or esn0 - entry < demand.margin_db:
         return None  # an infinite threshold (the format never reaches the target) ends here too
     tx = equipment.transmitter_at(profile, option.output_backoff_db)
@@ -740,20 +744,21 @@ def family_for(
         required_esn0_db=entry,
         profile=profile.name,
         output_backoff_db=option.output_backoff_db,
-        evm_pct=option.evm_pct,
+        evm_pct=evm,
         thermal_esn0_db=thermal,
     )
     return _single_family(problem, demand, config, key, immunity, leak_per_baud)
 
 
 def _link_at(
-    demand: Demand, option: equipment.BackoffOption, rate_baud: float
+    demand: Demand, option: equipment.BackoffOption, evm_pct: float, rate_baud: float
 ) -> tuple[float, float]:
-    """Thermal and effective Es/N0 (dB) of ``demand`` at ``rate_baud`` and back-off ``option``."""
+    """Thermal and effective Es/N0 (dB) of ``demand`` at ``rate_baud``, back-off ``option``
+    and error-vector floor ``evm_pct``."""
     thermal = float(_stated_esn0_db(demand, np.array([rate_baud]))[0]) + option.esn0_offset_db
-    if option.evm_pct <= 0:
+    if evm_pct <= 0:
         return thermal, thermal
-    return thermal, float(distortion.effective_esn0_db(thermal, option.evm_pct))
+    return thermal, float(distortion.effective_esn0_db(thermal, evm_pct))
 
 
 @functools.lru_cache(maxsize=256)

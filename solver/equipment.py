@@ -9,9 +9,11 @@ For each profile this module gives
 * its MODCOD table (:func:`modcod_table`): the named set or the equipment's own rows, each with
   the threshold the physics core computes or the one the data sheet gives, used exactly;
 * its back-off options (:func:`backoff_options`): for each allowed amplifier output back-off,
-  how far Es/N0 and the carrier's level fall from the reference back-off (dB for dB), and the
-  error-vector floor there — the root-sum of the transmitter's floor, the amplifier's in-band
-  distortion (:func:`solver.physics.distortion.bussgang`) and the receiver's floor;
+  how far Es/N0 and the carrier's level fall from the reference back-off (dB for dB);
+* a carrier's error-vector floor (:func:`carrier_evm_pct`): the root-sum of the transmitter's
+  floor, the amplifier's in-band distortion of that carrier's own waveform at that back-off,
+  measured at the decisions (:func:`solver.physics.inband.decision_distortion`), and the
+  receiver's floor;
 * its symbol-rate grid (:func:`grid_floor`, :func:`grid_ceil`);
 * the emission key of a carrier sent by it (:func:`carrier_emission_key`).
 """
@@ -37,7 +39,7 @@ from solver.model import (
     ProblemError,
     Transmitter,
 )
-from solver.physics import distortion, emission, modcod, modcodsets
+from solver.physics import distortion, emission, inband, modcod, modcodsets
 
 __all__ = [
     "DEFAULT_SET",
@@ -46,6 +48,7 @@ __all__ = [
     "backoff_option",
     "backoff_options",
     "carrier_emission_key",
+    "carrier_evm_pct",
     "default_profile",
     "grid_ceil",
     "grid_floor",
@@ -53,6 +56,7 @@ __all__ = [
     "modcod_table",
     "profile_for",
     "profile_named",
+    "quieter",
     "reference_backoff_db",
     "strongest_level_db",
     "transmitter_at",
@@ -179,13 +183,10 @@ class BackoffOption:
     esn0_offset_db : float
         Change of Es/N0 and of the carrier's level against the reference back-off (dB; more
         back-off, less power: negative).
-    evm_pct : float
-        Error-vector floor there (% rms): transmitter, amplifier distortion, receiver.
     """
 
     output_backoff_db: float | None
     esn0_offset_db: float
-    evm_pct: float
 
 
 def reference_backoff_db(profile: EquipmentProfile) -> float | None:
@@ -201,18 +202,33 @@ def reference_backoff_db(profile: EquipmentProfile) -> float | None:
 def backoff_option(profile: EquipmentProfile, output_backoff_db: float | None) -> BackoffOption:
     """The operating point of ``profile``'s amplifier at ``output_backoff_db`` (None: the
     reference back-off; ignored for a linear transmitter)."""
-    amplifier = profile.amplifier
-    if amplifier is None:
-        evm = distortion.combined_evm_pct(profile.tx_evm_pct, profile.rx_evm_pct)
-        return BackoffOption(None, 0.0, evm)
+    if profile.amplifier is None:
+        return BackoffOption(None, 0.0)
     reference = reference_backoff_db(profile)
     backoff = reference if output_backoff_db is None else output_backoff_db
     if reference is None or backoff is None:  # not reached: the amplifier sets both
         raise ProblemError("output_backoff_db", "an amplifier needs a back-off")
-    at = replace(amplifier, output_backoff_db=backoff)
-    own = distortion.bussgang(at).evm_pct if profile.amplifier_distortion else 0.0
-    evm = distortion.combined_evm_pct(profile.tx_evm_pct, own, profile.rx_evm_pct)
-    return BackoffOption(backoff, reference - backoff, evm)
+    return BackoffOption(backoff, reference - backoff)
+
+
+@functools.lru_cache(maxsize=4096)
+def carrier_evm_pct(
+    profile: EquipmentProfile,
+    output_backoff_db: float | None,
+    modulation: Modulation,
+    rolloff: float,
+) -> float:
+    """Error-vector floor (% rms) of a carrier of ``modulation`` and ``rolloff`` sent by
+    ``profile`` at ``output_backoff_db`` (None: the reference): the root-sum of the
+    transmitter's floor, the amplifier's distortion at the decisions when the profile counts
+    it, and the receiver's floor."""
+    own = 0.0
+    option = backoff_option(profile, output_backoff_db)
+    if profile.amplifier is not None and profile.amplifier_distortion:
+        tx = transmitter_at(profile, option.output_backoff_db)
+        key = emission.EmissionKey.for_carrier(tx, modulation, rolloff)
+        own = inband.decision_distortion(key).evm_pct
+    return distortion.combined_evm_pct(profile.tx_evm_pct, own, profile.rx_evm_pct)
 
 
 @functools.lru_cache(maxsize=256)
@@ -222,6 +238,30 @@ def backoff_options(profile: EquipmentProfile) -> tuple[BackoffOption, ...]:
         return (backoff_option(profile, None),)
     allowed = profile.output_backoffs_db or (profile.amplifier.output_backoff_db,)
     return tuple(backoff_option(profile, b) for b in sorted(set(allowed)))
+
+
+def quieter(problem: Problem) -> Problem | None:
+    """``problem`` with no carrier louder than its stated link: each profile's back-offs cut to
+    its reference and above (its quietest one if all are louder), or None when no profile
+    offers a louder back-off.
+
+    Every carrier's protection from its neighbours is sized for the loudest level any of
+    them may run at (:func:`strongest_level_db`); a back-off louder than the reference raises
+    that level for every carrier, whether a plan uses it or not.  The planner therefore also
+    plans this quieter request and keeps the better plan (:func:`solver.planner.solve`).
+    """
+    changed = []
+    for profile in problem.profiles:
+        options = backoff_options(profile)
+        quiet = tuple(o.output_backoff_db for o in options if o.esn0_offset_db <= 0.0)
+        if len(quiet) == len(options):
+            changed.append(profile)
+            continue
+        kept = quiet or (options[-1].output_backoff_db,)
+        changed.append(replace(profile, output_backoffs_db=tuple(b for b in kept if b is not None)))
+    if all(a is b for a, b in zip(changed, problem.profiles, strict=True)):
+        return None
+    return replace(problem, profiles=tuple(changed))
 
 
 _STRONGEST: dict[int, tuple[Problem, float]] = {}

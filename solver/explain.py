@@ -197,7 +197,7 @@ def _targets(case: _Case, rolloffs: Sequence[float]) -> list[rm.Target]:
     and carries the target at R_T, with its guards (:func:`~solver.candidates.family_for`)."""
     options = equipment.backoff_options(case.profile)
     entries = lk.table(case.problem, case.profile, case.demand)
-    links = lk.links(case.demand, entries, options)
+    links = lk.links(case.demand, entries, options, case.profile)
     rate = lk.target_rate(case.demand, case.profile, links)
     out = []
     for k in np.flatnonzero(lk.reach(case.demand, case.profile, links)).tolist():
@@ -278,7 +278,7 @@ def _intrinsic_limits(case: _Case) -> tuple[Found, float | None]:
     any width; and the symbol rate the target needs above the profile's maximum."""
     demand, profile, found = case.demand, case.profile, Found()
     entries = lk.table(case.problem, profile, demand)
-    own = lk.links(demand, entries, equipment.backoff_options(profile))
+    own = lk.links(demand, entries, equipment.backoff_options(profile), profile)
     rate = lk.target_rate(demand, profile, own)
     over = np.flatnonzero(lk.closes(demand, own, rate) & (rate > profile.symbol_rate_max_baud))
     needed = None
@@ -290,7 +290,7 @@ def _intrinsic_limits(case: _Case) -> tuple[Found, float | None]:
             f"{profile.symbol_rate_max_baud:,.0f} Bd"
         )
     else:
-        relaxed = lk.links(demand, entries, lk.relaxed_backoffs(profile))
+        relaxed = lk.links(demand, entries, lk.relaxed_backoffs(profile), profile)
         hit = np.flatnonzero(lk.reach(demand, profile, relaxed))
         if hit.size:
             k = int(hit[0])
@@ -300,7 +300,7 @@ def _intrinsic_limits(case: _Case) -> tuple[Found, float | None]:
                 f"{_listed(allowed)} dB) would carry the target"
             )
     options = equipment.backoff_options(profile)
-    outside = lk.links(demand, lk.outside_table(case.problem, profile, demand), options)
+    outside = lk.links(demand, lk.outside_table(case.problem, profile, demand), options, profile)
     hit = np.flatnonzero(lk.reach(demand, profile, outside))
     if hit.size:
         found[LimitedBy.MODCOD_TABLE] = (
@@ -324,7 +324,7 @@ def _esn0_in_width(case: _Case) -> _EsN0 | None:
     the carrier's current allocated width (for a C/N0 link, at its current symbol rate)."""
     demand, profile, cfg = case.demand, case.profile, case.carrier.config
     links = lk.links(
-        demand, lk.table(case.problem, profile, demand), equipment.backoff_options(profile)
+        demand, lk.table(case.problem, profile, demand), equipment.backoff_options(profile), profile
     )
     stated_needed = lk.thermal_needed(links) - links.offset_db
     now = float(lk.stated_db(demand, np.array([cfg.symbol_rate_baud]))[0])
@@ -350,8 +350,8 @@ def _table_in_width(case: _Case) -> str | None:
     the carrier's current allocated width at its link (profile's roll-offs and back-offs)."""
     demand, profile, width = case.demand, case.profile, case.carrier.config.allocated_bandwidth_hz
     options = equipment.backoff_options(profile)
-    outside = lk.links(demand, lk.outside_table(case.problem, profile, demand), options)
-    inside = lk.links(demand, lk.table(case.problem, profile, demand), options)
+    outside = lk.links(demand, lk.outside_table(case.problem, profile, demand), options, profile)
+    inside = lk.links(demand, lk.table(case.problem, profile, demand), options, profile)
     for rolloff in profile.rolloffs:
         rate = lk.width_rate(profile, width, rolloff)
         if rate <= 0:
@@ -391,7 +391,7 @@ def _most_at_any_width(case: _Case) -> float:
     """The most any (entry, back-off) of the profile carries on a C/N0 link (bit/s)."""
     demand, profile = case.demand, case.profile
     links = lk.links(
-        demand, lk.table(case.problem, profile, demand), equipment.backoff_options(profile)
+        demand, lk.table(case.problem, profile, demand), equipment.backoff_options(profile), profile
     )
     cn0 = -math.inf if demand.cn0_dbhz is None else demand.cn0_dbhz
     with np.errstate(over="ignore"):

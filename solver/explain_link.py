@@ -51,15 +51,26 @@ def links(
     demand: Demand,
     entries: Sequence[equipment.TableEntry],
     options: Sequence[equipment.BackoffOption],
+    profile: EquipmentProfile,
 ) -> Links:
+    """Each (entry, back-off) pair of ``profile`` for ``demand``.  The EVM floor is taken at
+    the profile's widest roll-off, where the amplifier's distortion is least: the lenient
+    figure, as these links answer what *could* carry a target."""
     pairs = [(e, o) for e in entries for o in options]
+    rolloff = max(profile.rolloffs)
     return Links(
         names=tuple(_name(e) for e, _ in pairs),
         backoff_db=tuple(o.output_backoff_db for _, o in pairs),
         net=np.array([e.net_bits_per_symbol for e, _ in pairs], dtype=np.float64),
         needed_db=np.array([e.required_esn0_db + demand.margin_db for e, _ in pairs]),
         offset_db=np.array([o.esn0_offset_db for _, o in pairs], dtype=np.float64),
-        evm_pct=np.array([o.evm_pct for _, o in pairs], dtype=np.float64),
+        evm_pct=np.array(
+            [
+                equipment.carrier_evm_pct(profile, o.output_backoff_db, e.modulation, rolloff)
+                for e, o in pairs
+            ],
+            dtype=np.float64,
+        ),
     )
 
 

@@ -835,11 +835,7 @@ def solve(
     clock = _Clock.start(problem)
     tell = _Teller(clock, progress, problem, cancel)
     tell.stage("building spectra and candidates")
-    sets = {}
-    for d in problem.demands:
-        if cancel is not None and cancel.is_set():
-            raise SolveCancelledError("cancelled while spectra and candidates were being built")
-        sets[d.id] = candidate_sets(problem, d)
+    sets = _candidate_sets(problem, cancel)
     options = {d: kept for d, (kept, _) in sets.items()}
     tell.families = {d: bounding for d, (_, bounding) in sets.items()}
     if branches(tell.families, tell.free):
@@ -847,7 +843,7 @@ def solve(
     progress = tell.searching
     replanning = problem.retune_penalty > 0 and any(d.current is not None for d in problem.demands)
     stages = 2 if replanning else 1
-    outcome = _with_pinned(problem, options, clock, stages, progress, cancel)
+    outcome = _louder_or_not(problem, options, clock, stages, progress, cancel)
     if replanning:
         tell.verified(outcome.carriers)  # a verified plan to show while the replan runs
         staying = _staying(problem, options, outcome.fixed)
@@ -877,6 +873,40 @@ def _spectrum_value(
     return spectrum_value(
         problem, outcome.carriers, every_family, keep, deadline=deadline, cancel=cancel
     )
+
+
+def _candidate_sets(
+    problem: Problem, cancel: threading.Event | None
+) -> dict[str, tuple[DemandOptions, tuple[Family, ...]]]:
+    sets = {}
+    for d in problem.demands:
+        if cancel is not None and cancel.is_set():
+            raise SolveCancelledError("cancelled while spectra and candidates were being built")
+        sets[d.id] = candidate_sets(problem, d)
+    return sets
+
+
+def _louder_or_not(
+    problem: Problem,
+    options: dict[str, DemandOptions],
+    clock: _Clock,
+    stages: int,
+    progress: Callable[[ProgressEvent], None] | None,
+    cancel: threading.Event | None,
+) -> _Outcome:
+    """The better plan of the request as given and, when a profile may run louder than its
+    stated link, of the request without those back-offs (:func:`solver.equipment.quieter`):
+    a louder back-off widens every carrier's protection whether or not a plan uses it, so the
+    request as given can lose to its own quieter part within the same time."""
+    quiet = equipment.quieter(problem)
+    if quiet is None:
+        return _with_pinned(problem, options, clock, stages, progress, cancel)
+    quiet_options = {d: kept for d, (kept, _) in _candidate_sets(quiet, cancel).items()}
+    first = _with_pinned(quiet, quiet_options, clock, stages + 1, progress, cancel)
+    if cancel is not None and cancel.is_set():
+        return first
+    second = _with_pinned(problem, options, clock, stages, progress, cancel)
+    return max((first, second), key=lambda o: _score(problem, o))
 
 
 def _with_pinned(

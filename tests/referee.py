@@ -200,8 +200,10 @@ def _symbol_rates(
     link measured at the back-off ``option`` (its Es/N0 offset and error-vector floor)."""
     raster = problem.block.raster_hz
     per_baud = entry.net_bits_per_symbol
+    profile = equipment.profile_for(problem, demand)
+    evm = equipment.carrier_evm_pct(profile, option.output_backoff_db, entry.modulation, rolloff)
     thermal_needed = distortion.thermal_esn0_needed_db(
-        entry.required_esn0_db + demand.margin_db, option.evm_pct
+        entry.required_esn0_db + demand.margin_db, evm
     )
     if demand.cn0_dbhz is not None:
         rs_link = link.max_symbol_rate_for_esn0(

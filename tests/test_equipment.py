@@ -4,6 +4,7 @@ symbol-rate grid (solver/equipment.py and its use by the candidates and the plan
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 from fractions import Fraction
 from typing import get_args
 
@@ -16,6 +17,7 @@ from solver import (
     MODCOD_SET_NAMES,
     Amplifier,
     Block,
+    Coding,
     Demand,
     EquipmentProfile,
     ModcodRow,
@@ -27,7 +29,7 @@ from solver import (
     verify_plan,
 )
 from solver.candidates import build_candidates, family_for
-from solver.physics import distortion, emission
+from solver.physics import distortion, emission, inband
 
 RAPP = Amplifier(smoothness=2.0, output_backoff_db=6.0)
 
@@ -122,7 +124,11 @@ def test_more_backoff_lowers_thermal_es_n0_dB_for_dB_and_never_worsens_evm(
     )
     a, b = equipment.backoff_options(radio)
     assert b.esn0_offset_db == pytest.approx(a.esn0_offset_db - extra)  # dB for dB
-    assert b.evm_pct <= a.evm_pct + 1e-9
+    for modulation in (Modulation.QPSK, Modulation.QAM64):
+        louder, quieter = (
+            equipment.carrier_evm_pct(radio, x, modulation, 0.2) for x in (low, low + extra)
+        )
+        assert quieter <= louder + 1e-9
     demand = Demand("c", 1e6, 4e6, cn0_dbhz=cn0, margin_db=0.0, profile="radio")
     problem = _problem(radio, demand)
     configs = [
@@ -159,7 +165,8 @@ def test_a_request_without_profiles_keeps_its_transmitter_and_link_model() -> No
     profile = equipment.profile_for(problem, problem.demands[0])
     assert profile.rolloffs == (0.25,) and profile.amplifier == RAPP
     (only,) = equipment.backoff_options(profile)
-    assert only.evm_pct == 0.0 and only.esn0_offset_db == 0.0
+    assert only.esn0_offset_db == 0.0
+    assert equipment.carrier_evm_pct(profile, None, Modulation.QAM16, 0.25) == 0.0
     assert only.output_backoff_db == RAPP.output_backoff_db
     assert profile.modcod_set == equipment.DEFAULT_SET == "standard"
 
@@ -191,8 +198,13 @@ def test_a_carrier_reports_its_backoff_and_floor() -> None:
     cfg = fam.config
     assert cfg.output_backoff_db == 8.0
     assert cfg.thermal_esn0_db == pytest.approx(80.0 - 60.0 - 2.0)  # 2 dB past the reference
-    expected = distortion.bussgang(Amplifier(smoothness=2.0, output_backoff_db=8.0)).evm_pct
-    assert cfg.evm_pct == pytest.approx(expected)
+    at_8db = Amplifier(smoothness=2.0, output_backoff_db=8.0)
+    span = _radio().filter_span_symbols
+    key = emission.EmissionKey(0.2, span, amplifier=at_8db, modulation=Modulation.QPSK)
+    assert cfg.evm_pct == pytest.approx(inband.decision_distortion(key).evm_pct)
+    # A QPSK carrier peaks far less than a Gaussian signal, and its matched filter drops the
+    # out-of-band part: its floor lies below the Gaussian-input Bussgang figure.
+    assert cfg.evm_pct < distortion.bussgang(at_8db).evm_pct
     assert cfg.esn0_db < cfg.thermal_esn0_db
 
 
@@ -213,3 +225,33 @@ def test_no_plan_rate_exceeds_the_equipment_maximum(step_baud: float) -> None:
     assert len(plan.carriers) == 3
     for c in plan.carriers:
         assert c.config.symbol_rate_baud <= 1e6 * (1 + 1e-12), c.config.symbol_rate_baud
+
+
+def test_the_quieter_request_drops_only_the_louder_backoffs() -> None:
+    demand = Demand("q", 1e6, 4e6, esn0_db=12.0, profile="radio")
+    assert equipment.quieter(_problem(_radio(output_backoffs_db=(6.0, 8.0)), demand)) is None
+    (cut,) = equipment.quieter(_problem(_radio(), demand)).profiles  # type: ignore[union-attr]
+    assert cut.output_backoffs_db == (6.0, 8.0)  # the reference (6 dB) and quieter
+    loud = _radio(output_backoffs_db=(2.0, 4.0), reference_backoff_db=6.0)
+    (only,) = equipment.quieter(_problem(loud, demand)).profiles  # type: ignore[union-attr]
+    assert only.output_backoffs_db == (4.0,)  # none at the reference or quieter: the quietest
+    no_profiles = replace(_problem(_radio(), demand), profiles=())
+    assert equipment.quieter(replace(no_profiles, demands=(replace(demand, profile=""),))) is None
+
+
+def test_a_louder_backoff_is_still_chosen_where_only_it_closes_the_link() -> None:
+    # The radio's lowest entry, TS 38.214 Table 5.1.3.1-2 MCS 0 (QPSK 120/1024), needs the
+    # threshold the physics core computes for it plus the 3 dB margin.  The link is stated 1 dB
+    # short of that at the 6 dB reference, so only the 4 dB back-off (+2 dB) or louder closes
+    # it: the plan must come from the full request, not from its quieter part.
+    lowest = equipment.modcod_table(_radio(), Coding())[0]
+    assert (lowest.modulation, lowest.code_rate) == (Modulation.QPSK, Fraction(120, 1024))
+    stated = lowest.required_esn0_db + 3.0 - 1.0
+    demand = Demand("weak", 0.1e6, 1e6, esn0_db=stated, margin_db=3.0, profile="radio")
+    problem = _problem(_radio(), demand)
+    plan = solve(problem)
+    quiet_plan = solve(equipment.quieter(problem))  # type: ignore[arg-type]
+    assert not quiet_plan.carriers
+    (carrier,) = plan.carriers
+    assert carrier.config.output_backoff_db is not None
+    assert carrier.config.output_backoff_db < 6.0
