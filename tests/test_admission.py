@@ -226,6 +226,7 @@ def test_an_unchanged_request_replanned_keeps_every_carrier_and_its_guards(
             c.config.rolloff,
             c.config.modulation,
             c.config.code_rate,
+            c.config.output_backoff_db,  # unchanged means at the same back-off too
         )
         for c in plan.carriers
     }
