@@ -74,7 +74,8 @@ What lifts it:
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+import time
+from collections.abc import Collection, Sequence
 from dataclasses import dataclass
 from enum import StrEnum
 
@@ -93,6 +94,7 @@ from solver.model import (
     Transmitter,
     format_code_rate,
 )
+from solver.verify import verify_plan
 
 __all__ = [
     "CATALOGUE_ROLLOFFS",
@@ -100,6 +102,7 @@ __all__ = [
     "LimitedBy",
     "Shortfall",
     "explain_shortfalls",
+    "fill_unused_room",
     "meets_target",
 ]
 
@@ -460,3 +463,40 @@ def explain_shortfalls(problem: Problem, carriers: Sequence[Carrier]) -> dict[st
         case = _Case(problem, ordered, i, demand, profile, strongest)
         out[demand.id] = _explain(case)
     return out
+
+
+def fill_unused_room(
+    problem: Problem,
+    carriers: Sequence[Carrier],
+    keep: Collection[str],
+    deadline: float,
+) -> tuple[Carrier, ...]:
+    """``carriers`` with each carrier below target whose target configuration fits the room it
+    already has (the ``unused-room`` case of :func:`explain_shortfalls`) moved to it, one at a
+    time, each kept only when the whole plan still passes verification.
+
+    Demands in ``keep`` do not change; the work stops at ``deadline``
+    (``time.perf_counter()``).  Nothing moves outside its own room, so no other carrier does.
+    """
+    demands = {d.id: d for d in problem.demands}
+    ordered = sorted(carriers, key=lambda c: c.center_hz)
+    strongest = equipment.strongest_level_db(problem)
+    for i, carrier in enumerate(ordered):
+        demand = demands.get(carrier.demand_id)
+        if time.perf_counter() > deadline:
+            break
+        if demand is None or demand.id in keep:
+            continue
+        if meets_target(demand, carrier.config.throughput_bps):
+            continue
+        case = _Case(problem, ordered, i, demand, equipment.profile_for(problem, demand), strongest)
+        targets = _targets(case, case.profile.rolloffs)
+        if not targets:
+            continue
+        found, widening = _room_limits(case, targets)
+        if LimitedBy.UNUSED_ROOM not in found or widening.carrier is None:
+            continue
+        trial = [*ordered[:i], widening.carrier, *ordered[i + 1 :]]
+        if verify_plan(problem, trial).passed:
+            ordered = trial
+    return tuple(ordered)

@@ -35,6 +35,7 @@ from solver import (
     solve,
 )
 from solver.candidates import candidate_for
+from solver.explain import fill_unused_room
 from solver.verify import verify_plan
 from tests.dvbs2_table13 import TABLE_13
 
@@ -171,6 +172,21 @@ def test_room_left_by_the_objective_is_unused_room() -> None:
     assert found.spectrum_to_target_hz == 0.0
     assert found.widened is not None
     assert found.widened.config.allocated_bandwidth_hz == pytest.approx(3e6 / 1.587196 * 1.2)
+
+
+def test_a_carrier_with_unused_room_is_moved_to_its_target() -> None:
+    """The min_bandwidth plan above, handed to the max_throughput polish: the carrier takes
+    the target's QPSK 4/5 configuration in the room it has, and the plan still verifies; a
+    demand the caller keeps does not move."""
+    demand = Demand("d", 1e6, 3e6, esn0_db=8.0, margin_db=3.0, profile="t13")
+    narrow = _problem([demand], 10e6, _profile(), objective=Objective.MIN_BANDWIDTH)
+    plan = solve(narrow)
+    wide = replace(narrow, objective=Objective.MAX_THROUGHPUT)
+    (filled,) = fill_unused_room(wide, plan.carriers, (), math.inf)
+    assert filled.config.throughput_bps == pytest.approx(3e6, rel=1e-3)
+    assert (filled.config.modulation, filled.config.code_rate) == (Modulation.QPSK, Fraction(4, 5))
+    assert verify_plan(wide, [filled]).passed
+    assert fill_unused_room(wide, plan.carriers, {"d"}, math.inf) == plan.carriers
 
 
 def test_loud_pinned_neighbour_is_a_neighbour_limit() -> None:
