@@ -269,8 +269,12 @@ def _row(
         "thr_Mbps": s.total_throughput_bps / 1e6,
         "hand_thr_Mbps": hand.summary.total_throughput_bps / 1e6,
         "thr_ratio": s.total_throughput_bps / max(hand.summary.total_throughput_bps, 1.0),
-        "eff_vs_capped_bound": s.efficiency_vs_target_capped_bound,
-        "hand_eff_vs_capped_bound": hand.summary.efficiency_vs_target_capped_bound,
+        "eff_vs_capped_bound": _figure(
+            s, "efficiency_vs_target_capped_bound", "efficiency_vs_bound"
+        ),
+        "hand_eff_vs_capped_bound": _figure(
+            hand.summary, "efficiency_vs_target_capped_bound", "efficiency_vs_bound"
+        ),
         "minbw_used_MHz": lean.summary.used_bandwidth_hz / 1e6,
         "minbw_served": len(lean.carriers),
         "hand_min_used_MHz": hand_min.summary.used_bandwidth_hz / 1e6,
@@ -356,6 +360,18 @@ def _idle(problem: Problem, plan: Plan) -> _Idle:
     )
 
 
+CAPPED_EFFICIENCY = "efficiency_vs_target_capped_bound"
+
+
+def _figure(summary: object, name: str, earlier: str) -> float:
+    """A summary figure by its name, or by its earlier name when ``--before`` runs a checkout
+    from before the rename (NaN when it has neither)."""
+    for attribute in (name, earlier):
+        if attribute and hasattr(summary, attribute):
+            return float(getattr(summary, attribute))
+    return math.nan
+
+
 def _scenario_row(name: str, seed: int, time_limit_s: float | None) -> dict[str, object]:
     started = time.perf_counter()
     problem = SCENARIOS[name].build(seed)
@@ -396,10 +412,12 @@ def _scenario_row(name: str, seed: int, time_limit_s: float | None) -> dict[str,
         "thr_Mbps": thr / 1e6,
         "hand_thr_Mbps": h.total_throughput_bps / 1e6,
         "thr_vs_hand": thr / max(h.total_throughput_bps, 1.0),
-        "capped_bound_Mbps": s.target_capped_bound_bps / 1e6,
-        "capacity_Mbps": s.capacity_bound_bps / 1e6,
-        "eff_vs_capped_bound": s.efficiency_vs_target_capped_bound,
-        "hand_eff": h.efficiency_vs_target_capped_bound,
+        "capped_bound_Mbps": _figure(s, "target_capped_bound_bps", "shannon_bound_bps") / 1e6,
+        "capacity_Mbps": _figure(s, "capacity_bound_bps", "") / 1e6,
+        "eff_vs_capped_bound": _figure(
+            s, "efficiency_vs_target_capped_bound", "efficiency_vs_bound"
+        ),
+        "hand_eff": _figure(h, CAPPED_EFFICIENCY, "efficiency_vs_bound"),
         "idle_pct": idle.cell(),
         "hand_idle_pct": hand_idle.cell(),
         "short_by_idle": idle.short,
