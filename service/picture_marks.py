@@ -33,6 +33,7 @@ from solver import (
     Plan,
     Problem,
     setting_change,
+    setting_of,
 )
 
 __all__ = [
@@ -203,23 +204,11 @@ class CarrierChange:
         return self.after.center_hz - self.before.center_hz
 
 
-def _setting(carrier: Carrier) -> CurrentSetting:
-    cfg = carrier.config
-    return CurrentSetting(
-        carrier.center_hz,
-        cfg.symbol_rate_baud,
-        cfg.rolloff,
-        cfg.modulation,
-        cfg.code_rate,
-        cfg.output_backoff_db,
-    )
-
-
 def settings_before(problem: Problem, parent: Plan | None) -> dict[str, CurrentSetting] | None:
     """Each demand's earlier setting: the parent plan's carriers, else the request's
     ``current`` settings; None when there is nothing to compare with (a first plan)."""
     if parent is not None:
-        return {c.demand_id: _setting(c) for c in parent.carriers}
+        return {c.demand_id: setting_of(c) for c in parent.carriers}
     current = {d.id: d.current for d in problem.demands if d.current is not None}
     return current or None
 
@@ -238,7 +227,7 @@ def changes_since(
         if new is None:
             found.append(CarrierChange(demand_id, RetuneChange.DROPPED, old, None))
             continue
-        step = setting_change(old, _setting(new))
+        step = setting_change(old, setting_of(new))
         if step.moved and step.reconfigured:
             found.append(CarrierChange(demand_id, RetuneChange.MOVED_AND_RECONFIGURED, old, new))
         elif step.moved:

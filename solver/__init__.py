@@ -45,7 +45,7 @@ from solver.physics.modcodsets import MODCOD_SET_NAMES
 from solver.planner import solve
 from solver.rules import hand_comparison, rule_of_thumb_plan
 from solver.spectrum_figures import SpectrumGain, SpectrumValue
-from solver.summary import CAUTIONS, SettingChange, setting_change
+from solver.summary import CAUTIONS, SettingChange, setting_change, setting_of
 from solver.validation import validate_problem
 from solver.verify import LEAKAGE_TOLERANCE_DB, Verification, Violation, verify_plan
 from solver.worksize import ConfigurationBound, configuration_bound
@@ -107,6 +107,7 @@ __all__ = [
     "parse_code_rate",
     "rule_of_thumb_plan",
     "setting_change",
+    "setting_of",
     "shannon_nyquist_bound",
     "solve",
     "validate_problem",

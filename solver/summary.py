@@ -31,6 +31,7 @@ __all__ = [
     "explain_unserved",
     "mark_retunes",
     "setting_change",
+    "setting_of",
     "summarise",
     "with_guards",
 ]
@@ -283,7 +284,8 @@ def setting_change(before: CurrentSetting, after: CurrentSetting) -> SettingChan
     return SettingChange(moved, reconfigured)
 
 
-def _setting(carrier: Carrier) -> CurrentSetting:
+def setting_of(carrier: Carrier) -> CurrentSetting:
+    """The setting ``carrier`` runs at, as a replan states a current one."""
     cfg = carrier.config
     return CurrentSetting(
         carrier.center_hz,
@@ -302,6 +304,6 @@ def mark_retunes(problem: Problem, carriers: Sequence[Carrier]) -> list[Carrier]
     out = []
     for c in carriers:
         cur = current.get(c.demand_id)
-        moved = cur is not None and setting_change(cur, _setting(c)).retuned
+        moved = cur is not None and setting_change(cur, setting_of(c)).retuned
         out.append(replace(c, retuned=moved))
     return out
