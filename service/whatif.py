@@ -271,8 +271,9 @@ def difference(before: PlanOut, after: PlanOut, dropped: frozenset[str]) -> Diff
                 change=_change(b, a),
                 before=_brief(b),
                 after=_brief(a),
-                throughput_change_bps=(a.throughput_bps if a else 0.0)
-                - (b.throughput_bps if b else 0.0),
+                throughput_change_bps=_rounded_bps(
+                    (a.throughput_bps if a else 0.0) - (b.throughput_bps if b else 0.0)
+                ),
                 note=note,
             )
         )
@@ -281,8 +282,18 @@ def difference(before: PlanOut, after: PlanOut, dropped: frozenset[str]) -> Diff
     return DifferenceOut(
         total_throughput_before_bps=total_before,
         total_throughput_after_bps=total_after,
-        throughput_change_bps=total_after - total_before,
+        throughput_change_bps=_rounded_bps(total_after - total_before),
         served_before=len(old),
         served_after=len(new),
         demands=rows,
     )
+
+
+def _rounded_bps(change_bps: float) -> float:
+    """A throughput change to the millibit per second: an unchanged carrier whose rate is
+    recomputed reads 0, not float noise (−1.5e-11).
+
+    >>> _rounded_bps(5.1e6 * (0.1 + 0.2) - 5.1e6 * 0.3), _rounded_bps(-19110.0004)
+    (0.0, -19110.0)
+    """
+    return round(change_bps, 3) + 0.0  # + 0.0: −0.0 reads 0.0
