@@ -8,6 +8,7 @@ from scikit-commpy's modem and RRC filter with the Rapp formula written out here
 from __future__ import annotations
 
 import math
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -16,7 +17,7 @@ from commpy.modulation import PSKModem, QAMModem
 from scipy import optimize, signal
 
 from solver.model import Amplifier, AmplifierModel, Modulation
-from solver.physics import distortion, inband
+from solver.physics import distortion, inband, profilecache
 from solver.physics.amplifier import amplify, solve_drive
 from solver.physics.emission import EmissionKey
 from solver.physics.pulses import rrc_taps
@@ -159,3 +160,25 @@ def test_a_gentler_rolloff_peaks_more() -> None:
         for a in (0.05, 0.35)
     )
     assert tight > wide
+
+
+def test_stored_figures_are_read_back_exactly_and_a_new_version_is_a_miss(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    monkeypatch.setenv(profilecache.CACHE_DIR_ENV, str(tmp_path))
+    key = _key(Modulation.APSK16, 5.0, model=AmplifierModel.SALEH)
+    inband.decision_distortion.cache_clear()
+    fresh = inband.decision_distortion(key)
+    assert len(list(tmp_path.rglob("*.npz"))) == 1
+    inband.decision_distortion.cache_clear()
+    calls: list[object] = []
+    monkeypatch.setattr(inband, "decision_samples", lambda *a: calls.append(a))  # must not run
+    assert inband.decision_distortion(key) == fresh
+    assert not calls
+    monkeypatch.undo()
+    monkeypatch.setenv(profilecache.CACHE_DIR_ENV, str(tmp_path))
+    monkeypatch.setattr(inband, "VERSION", inband.VERSION + 1)
+    inband.decision_distortion.cache_clear()
+    assert inband.decision_distortion(key) == fresh  # recomputed, bit for bit
+    assert len(list(tmp_path.rglob("*.npz"))) == 2
+    inband.decision_distortion.cache_clear()

@@ -32,7 +32,18 @@ import numpy.typing as npt
 from scipy import signal
 
 from solver.model import AmplifierModel
-from solver.physics.amplifier import SALEH_BETA_A, amplify, solve_drive
+from solver.physics import profilecache
+from solver.physics.amplifier import (
+    BRACKET_DECIMATION,
+    DRIVE_GRID_DB,
+    DRIVE_REFINE,
+    SALEH_ALPHA_A,
+    SALEH_ALPHA_PHI,
+    SALEH_BETA_A,
+    SALEH_BETA_PHI,
+    amplify,
+    solve_drive,
+)
 from solver.physics.constellations import constellation
 from solver.physics.distortion import Distortion
 from solver.physics.emission import EmissionKey
@@ -54,6 +65,8 @@ simulated band, so none fold back into the channel."""
 SYMBOLS: Final = 8192
 """Decisions averaged: the EVM estimate's relative standard error is about 1/√(2·8192) ≈ 0.8 %."""
 SEED: Final = 20_011
+VERSION: Final = 1
+"""Version of this computation in stored figures; raise it when a change here alters them."""
 
 
 @functools.lru_cache(maxsize=1024)
@@ -82,18 +95,52 @@ def decision_distortion(key: EmissionKey, seed: int = SEED) -> Distortion:
     """
     if key.amplifier is None or key.modulation is None:
         raise ValueError(f"{key=} needs an amplifier and a modulation")
-    rng = np.random.default_rng(seed)
     points = np.asarray(constellation(key.modulation).points, dtype=np.complex128)
+    fields = _stored_fields(key, seed, points)
+    stored = profilecache.load_arrays(fields, ("figures",))
+    if stored is not None and stored["figures"].size == len(_FIGURES):
+        gain_re, gain_im, sdr, evm, ibo = (float(v) for v in stored["figures"])
+        return Distortion(complex(gain_re, gain_im), sdr, evm, ibo)
+    rng = np.random.default_rng(seed)
     reference, received, input_backoff = decision_samples(
         points[rng.integers(0, points.size, SYMBOLS)], key
     )
     distortion = sampled_distortion(reference, received)
+    figures = (
+        distortion.gain.real,
+        distortion.gain.imag,
+        distortion.signal_to_distortion_db,
+        distortion.evm_pct,
+        input_backoff,
+    )
+    profilecache.store_arrays(fields, {"figures": np.array(figures, dtype=np.float64)})
     return Distortion(
         gain=distortion.gain,
         signal_to_distortion_db=distortion.signal_to_distortion_db,
         evm_pct=distortion.evm_pct,
         input_backoff_db=input_backoff,
     )
+
+
+_FIGURES: Final = ("gain_re", "gain_im", "sdr_db", "evm_pct", "input_backoff_db")
+"""What :func:`decision_distortion` stores per key (:mod:`solver.physics.profilecache`)."""
+
+
+def _stored_fields(key: EmissionKey, seed: int, points: ComplexArray) -> dict[str, object]:
+    """Everything the figures of ``key`` depend on (raise :data:`VERSION` when the code here
+    or in :mod:`solver.physics.amplifier` changes them)."""
+    parameters: dict[str, object] = {
+        "what": "decision distortion",
+        "figures": _FIGURES,
+        "seed": seed,
+        "samples_per_symbol": SAMPLES_PER_SYMBOL,
+        "symbols": SYMBOLS,
+        "drive": (DRIVE_GRID_DB, BRACKET_DECIMATION, DRIVE_REFINE),
+        "saleh": (SALEH_ALPHA_A, SALEH_BETA_A, SALEH_ALPHA_PHI, SALEH_BETA_PHI),
+    }
+    taps = rrc_taps(key.rolloff, key.span_symbols, SAMPLES_PER_SYMBOL, key.window)
+    inputs = {"points": points, "taps": taps}
+    return profilecache.key_fields(version=VERSION, key=key, parameters=parameters, inputs=inputs)
 
 
 def decision_samples(
