@@ -3,8 +3,8 @@
 from __future__ import annotations
 
 import threading
-from collections.abc import Awaitable
-from typing import Annotated, Any
+from collections.abc import Awaitable, Callable
+from typing import Annotated, Any, TypeVar
 
 import anyio
 import anyio.to_thread
@@ -31,7 +31,7 @@ from service.schemas import (
     SettingOut,
 )
 from service.store import StoredPlan
-from solver import SolveCancelledError, setting_change
+from solver import Plan, Problem, SolveCancelledError, setting_change
 
 __all__ = [
     "AUTH_RESPONSES",
@@ -42,6 +42,8 @@ __all__ = [
 ]
 
 router = APIRouter(prefix="/v1/plans", tags=["plans"])
+
+T = TypeVar("T")
 
 MAX_PAGE = 100
 PlanId = Annotated[str, Path(min_length=1, max_length=64, description="plan id")]
@@ -120,6 +122,38 @@ async def _cancel_when_client_leaves(
             return
 
 
+def solve_for_client(runtime: Runtime, problem: Problem, cancel: threading.Event) -> Plan:
+    """``problem`` solved in this thread (a solver slot); a client that left while it ran is a
+    :class:`ClientGoneError`, so the plan it would not see is not stored either."""
+    try:
+        plan = run_solve(runtime, problem, mode="sync", cancel=cancel)
+    except SolveCancelledError:
+        raise ClientGoneError() from None
+    if cancel.is_set():
+        raise ClientGoneError()
+    return plan
+
+
+async def in_solver_slot(
+    runtime: Runtime, request: Request, work: Callable[[threading.Event], T]
+) -> T:
+    """``work(cancel)`` run in a solver slot, with ``cancel`` set once the client disconnects;
+    its exception, if any, is raised here, outside the watching task group."""
+    cancel = threading.Event()
+    failure: Exception | None = None
+    async with anyio.create_task_group() as watchers:
+        watchers.start_soon(_cancel_when_client_leaves, request, cancel)
+        try:
+            out = await runtime.gate.run(lambda: work(cancel))
+        except Exception as exc:  # re-raised below, outside the task group
+            failure = exc
+        finally:
+            watchers.cancel_scope.cancel()
+    if failure is not None:
+        raise failure
+    return out
+
+
 @router.post(
     "",
     status_code=201,
@@ -142,30 +176,14 @@ async def create_plan(
     first = await anyio.to_thread.run_sync(replayed, runtime.store, request, idempotency_key, body)
     if first is not None:
         return first
-    cancel = threading.Event()
 
-    def work() -> PlanOut:
+    def work(cancel: threading.Event) -> PlanOut:
         runtime.store.ping()  # a store that is down is a 503 before any solve, not after
         prepared = prepare(body, runtime.store, runtime.settings)
-        try:
-            plan = run_solve(runtime, prepared.problem, mode="sync", cancel=cancel)
-        except SolveCancelledError:
-            raise ClientGoneError() from None
-        if cancel.is_set():  # the plan the client would not see is not stored either
-            raise ClientGoneError()
+        plan = solve_for_client(runtime, prepared.problem, cancel)
         return store_plan(runtime, prepared, plan)
 
-    failure: Exception | None = None
-    async with anyio.create_task_group() as watchers:
-        watchers.start_soon(_cancel_when_client_leaves, request, cancel)
-        try:
-            out = await runtime.gate.run(work)
-        except Exception as exc:  # re-raised below, outside the task group
-            failure = exc
-        finally:
-            watchers.cancel_scope.cancel()
-    if failure is not None:
-        raise failure
+    out = await in_solver_slot(runtime, request, work)
     location = f"/v1/plans/{out.id}"
     answer = (201, location, out)
     await anyio.to_thread.run_sync(remember, runtime.store, request, idempotency_key, body, answer)
@@ -188,7 +206,8 @@ def list_plans(
     return PlanPage(items=items, total=total, offset=offset, limit=limit)
 
 
-def _stored(runtime: Runtime, plan_id: str) -> StoredPlan:
+def stored_plan(runtime: Runtime, plan_id: str) -> StoredPlan:
+    """The stored plan ``plan_id``, or a 404 problem."""
     stored = runtime.store.get_plan(plan_id)
     if stored is None:
         raise NotFoundError("plan", plan_id)
@@ -210,7 +229,7 @@ def get_plan(
     plan_id: PlanId, request: Request, runtime: Annotated[Runtime, Depends(get_runtime)]
 ) -> Response:
     """A stored plan (immutable: strong ETag, If-None-Match answered with 304)."""
-    body = _stored(runtime, plan_id).plan.model_dump_json().encode()
+    body = stored_plan(runtime, plan_id).plan.model_dump_json().encode()
     tag = entity_tag(body)
     return not_modified(request, tag) or immutable(body, "application/json", tag)
 
@@ -235,7 +254,7 @@ async def _picture(
     plan_id, fmt = key
     picture = pictures.kept(key)
     if picture is None:
-        stored = await anyio.to_thread.run_sync(_stored, runtime, plan_id)
+        stored = await anyio.to_thread.run_sync(stored_plan, runtime, plan_id)
         plan_json = stored.plan.model_dump_json()
         parent_json = await anyio.to_thread.run_sync(_parent_json, runtime, stored)
         parent_part = b"" if parent_json is None else parent_json.encode()
@@ -329,7 +348,7 @@ def get_carriers_csv(
     """One row per carrier by centre frequency, units in the column names (Hz, baud, dB, %,
     bit/s), an empty cell for null.  CSV has no place for the plan's cautions: read them in
     the plan's ``notices`` (``GET /v1/plans/{plan_id}``); they apply to every row."""
-    body = carriers_csv(_stored(runtime, plan_id).plan).encode()
+    body = carriers_csv(stored_plan(runtime, plan_id).plan).encode()
     tag = entity_tag(body)
     return not_modified(request, tag) or immutable(body, CSV_MEDIA_TYPE, tag)
 
@@ -342,7 +361,7 @@ def get_carriers_csv(
 )
 def get_retunes(plan_id: PlanId, runtime: Annotated[Runtime, Depends(get_runtime)]) -> RetuneList:
     """Relative to the parent plan; without a parent, to the request's ``current`` settings."""
-    stored = _stored(runtime, plan_id)
+    stored = stored_plan(runtime, plan_id)
     parent_id = stored.plan.parent_id
     parent = None if parent_id is None else runtime.store.get_plan(parent_id)
     if parent is not None:

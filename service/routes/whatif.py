@@ -11,20 +11,20 @@ import anyio.to_thread
 from fastapi import APIRouter, Depends, Request, Response
 
 from service.convert import plan_to_wire
-from service.errors import ClientGoneError, NotFoundError
 from service.ratelimit import limit_solves
 from service.routes.plans import (
     BUSY,
     NOT_FOUND,
     PROBLEM_RESPONSES,
     PlanId,
-    _cancel_when_client_leaves,
+    in_solver_slot,
+    solve_for_client,
+    stored_plan,
 )
-from service.runtime import Runtime, get_runtime, run_solve, store_plan
+from service.runtime import Runtime, get_runtime, store_plan
 from service.schemas_whatif import WhatIfOut, WhatIfRequest
 from service.store import StoredPlan, utc_now
 from service.whatif import ChangedRequest, apply_changes, difference, prepare_changed
-from solver import SolveCancelledError
 
 __all__ = ["router"]
 
@@ -42,12 +42,7 @@ def _what_if(
     plan_id = stored.plan.id
     runtime.store.ping()  # a store that is down is a 503 before any solve, not after
     prepared = prepare_changed(changed, runtime.store, runtime.settings)
-    try:
-        plan = run_solve(runtime, prepared.problem, mode="sync", cancel=cancel)
-    except SolveCancelledError:
-        raise ClientGoneError() from None
-    if cancel.is_set():
-        raise ClientGoneError()
+    plan = solve_for_client(runtime, prepared.problem, cancel)
     if body.store:
         out = store_plan(runtime, prepared, plan)
     else:
@@ -57,13 +52,6 @@ def _what_if(
     return WhatIfOut(
         stored=body.store, plan=out, difference=difference(stored.plan, out, changed.dropped)
     )
-
-
-def _parent(runtime: Runtime, plan_id: str) -> StoredPlan:
-    stored = runtime.store.get_plan(plan_id)
-    if stored is None:
-        raise NotFoundError("plan", plan_id)
-    return stored
 
 
 @router.post(
@@ -92,20 +80,11 @@ async def what_if_plan(
     stored when ``store`` is false; 201 with Location when true (``parent_id``: this plan).
     404 for an unknown plan; 422 naming the field of the changes (or of the changed request)
     that is invalid."""
-    stored = await anyio.to_thread.run_sync(_parent, runtime, plan_id)
+    stored = await anyio.to_thread.run_sync(stored_plan, runtime, plan_id)
     changed = apply_changes(stored.request, plan_id, body)
-    cancel = threading.Event()
-    failure: Exception | None = None
-    async with anyio.create_task_group() as watchers:
-        watchers.start_soon(_cancel_when_client_leaves, request, cancel)
-        try:
-            out = await runtime.gate.run(lambda: _what_if(runtime, stored, changed, body, cancel))
-        except Exception as exc:  # re-raised below, outside the task group
-            failure = exc
-        finally:
-            watchers.cancel_scope.cancel()
-    if failure is not None:
-        raise failure
+    out = await in_solver_slot(
+        runtime, request, lambda cancel: _what_if(runtime, stored, changed, body, cancel)
+    )
     if out.stored:
         response.status_code = 201
         response.headers["Location"] = f"/v1/plans/{out.plan.id}"
