@@ -849,58 +849,92 @@ def solve(
     outcome = _louder_or_not(problem, options, clock, stages, progress, cancel)
     if replanning:
         tell.verified(outcome.carriers)  # a verified plan to show while the replan runs
-        staying = _staying(problem, options, outcome.fixed)
-        if staying:
-            budget = replace(problem, time_limit_s=clock.share(1))
-            fixed = [*outcome.fixed, *staying]
-            pinned = {d.id for d in problem.demands if d.pinned_center_hz is not None}
-            early = [u for u in outcome.unserved if u.demand_id in pinned]
-            kept = _run(budget, options, fixed, early, progress, cancel)
-            outcome = _pick_replan(problem, outcome, kept)
-    outcome = _rooms_filled(problem, outcome, clock, cancel)
+        outcome = _kept_in_place(problem, options, outcome, clock, progress, cancel)
+    outcome, improved = _rooms_filled(problem, outcome, clock, cancel)
     verdict = tell.verified(outcome.carriers)
-    value = _spectrum_value(problem, outcome, clock, cancel)
+    value = _spectrum_value(problem, outcome, clock, cancel, improved)
     plan = _finish(problem, outcome, verdict, clock.elapsed())
     return replace(plan, summary=replace(plan.summary, spectrum_value=value))
 
 
+def _kept_in_place(
+    problem: Problem,
+    options: dict[str, DemandOptions],
+    outcome: _Outcome,
+    clock: _Clock,
+    progress: Callable[[ProgressEvent], None] | None,
+    cancel: threading.Event | None,
+) -> _Outcome:
+    """A replan's second stage: the current carriers that can stay exactly as they are kept,
+    the rest planned around them; the better of that and ``outcome`` by the retune penalty."""
+    staying = _staying(problem, options, outcome.fixed)
+    if not staying:
+        return outcome
+    budget = replace(problem, time_limit_s=clock.share(1))
+    fixed = [*outcome.fixed, *staying]
+    pinned = {d.id for d in problem.demands if d.pinned_center_hz is not None}
+    early = [u for u in outcome.unserved if u.demand_id in pinned]
+    kept = _run(budget, options, fixed, early, progress, cancel)
+    return _pick_replan(problem, outcome, kept)
+
+
 def _rooms_filled(
     problem: Problem, outcome: _Outcome, clock: _Clock, cancel: threading.Event | None
-) -> _Outcome:
+) -> tuple[_Outcome, bool]:
     """The outcome with every carrier below target that fits its target configuration in the
     room it already has moved to it (:func:`solver.explain.fill_unused_room`), then improved in
     place by the verified local search (:func:`~solver.upgrade.upgrade`), in the time kept back
     from the search; the spectrum value takes what is left of it.  Its figures start from a plan
-    improved in place, so without this the plan would report a gain it did not take."""
+    improved in place, so without this the plan would report a gain it did not take.  Also
+    whether that search ran to its end (the spectrum value need not run it again)."""
     if problem.objective is not Objective.MAX_THROUGHPUT or (
         cancel is not None and cancel.is_set()
     ):
-        return outcome
-    limit = clock.started + problem.time_limit_s
-    deadline = min(limit, time.perf_counter() + ACHIEVED_SHARE * problem.time_limit_s)
-    keep = {d.id for d in problem.demands if d.pinned_center_hz is not None}
-    keep |= {f.carrier.demand_id for f in outcome.fixed}
+        return outcome, False
+    deadline = _closing_deadline(problem, clock)
+    keep = _unmoved(problem, outcome)
     carriers = fill_unused_room(problem, outcome.carriers, keep, deadline)
     check = verify_plan(problem, carriers)
-    if check.passed and time.perf_counter() < deadline:
-        families = functools.partial(every_family, problem)
-        carriers = upgrade(problem, check, families, keep, deadline).carriers
-    return replace(outcome, carriers=carriers)
+    if not check.passed or time.perf_counter() >= deadline:
+        return replace(outcome, carriers=carriers), False
+    families = functools.partial(every_family, problem)
+    carriers = upgrade(problem, check, families, keep, deadline).carriers
+    return replace(outcome, carriers=carriers), time.perf_counter() < deadline
 
 
 def _spectrum_value(
-    problem: Problem, outcome: _Outcome, clock: _Clock, cancel: threading.Event | None
+    problem: Problem,
+    outcome: _Outcome,
+    clock: _Clock,
+    cancel: threading.Event | None,
+    improved: bool,
 ) -> SpectrumValue:
     """What more spectrum is worth to this plan (:mod:`solver.spectrum_value`): its achieved
     figures take at most :data:`~solver.spectrum_value.ACHIEVED_SHARE` of the time limit, and
-    never run past it."""
-    limit = clock.started + problem.time_limit_s
-    deadline = min(limit, time.perf_counter() + ACHIEVED_SHARE * problem.time_limit_s)
-    keep = {d.id for d in problem.demands if d.pinned_center_hz is not None}
-    keep |= {f.carrier.demand_id for f in outcome.fixed}
+    never run past it; ``improved``: the outcome is already improved in place."""
     return spectrum_value(
-        problem, outcome.carriers, every_family, keep, deadline=deadline, cancel=cancel
+        problem,
+        outcome.carriers,
+        every_family,
+        _unmoved(problem, outcome),
+        deadline=_closing_deadline(problem, clock),
+        cancel=cancel,
+        improved_in_place=improved,
     )
+
+
+def _closing_deadline(problem: Problem, clock: _Clock) -> float:
+    """The end of one closing step: :data:`~solver.spectrum_value.ACHIEVED_SHARE` of the time
+    limit from now, never past the limit."""
+    limit = clock.started + problem.time_limit_s
+    return min(limit, time.perf_counter() + ACHIEVED_SHARE * problem.time_limit_s)
+
+
+def _unmoved(problem: Problem, outcome: _Outcome) -> set[str]:
+    """Demands whose carriers no closing step may change: pinned ones, and those a replan
+    kept in place."""
+    keep = {d.id for d in problem.demands if d.pinned_center_hz is not None}
+    return keep | {f.carrier.demand_id for f in outcome.fixed}
 
 
 def _candidate_sets(

@@ -358,6 +358,7 @@ def spectrum_value(
     *,
     deadline: float | None = None,
     cancel: threading.Event | None = None,
+    improved_in_place: bool = False,
 ) -> SpectrumValue:
     """Bound and achieved gains of one raster-rounded MHz at each edge and of each exclusion.
 
@@ -376,6 +377,9 @@ def spectrum_value(
         figures are computed).
     cancel : threading.Event, optional
         When set, no further achieved figure is started.
+    improved_in_place : bool, optional
+        The carriers are already the result of the local search in their own request (the
+        planner ran it): they are the base as they are, and that search is not run again.
 
     Returns
     -------
@@ -387,7 +391,13 @@ def spectrum_value(
     usable = problem.block.usable_width_hz
     changes = _changes(problem, step)
     achiever = _Achiever(
-        problem, tuple(carriers), families, frozenset(keep), deadline or 0.0, cancel
+        problem,
+        tuple(carriers),
+        families,
+        frozenset(keep),
+        deadline or 0.0,
+        cancel,
+        base=tuple(carriers) if improved_in_place else None,
     )
     why = "achieved gains not requested" if deadline is None else achiever.why_not()
     gains = []

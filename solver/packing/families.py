@@ -152,8 +152,6 @@ class Family:
         )
         if step > 0 and scale != 1.0:  # the top is on the grid; a scaled rate is rounded down
             rate = max(math.floor(rate / step + 1e-9), 1) * step  # exactly k·step
-        elif scale == 1.0:
-            rate = top.symbol_rate_baud
         scale = rate / top.symbol_rate_baud
         thermal = top.esn0_db if top.thermal_esn0_db is None else top.thermal_esn0_db
         if self.power_limited:
